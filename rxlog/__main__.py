@@ -1,0 +1,3 @@
+from rxlog.cli import main
+
+main()

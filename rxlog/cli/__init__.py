@@ -1,0 +1,6 @@
+"""rxlog's command line: one module per concern, each adding its commands to ``main``."""
+
+from rxlog.cli.base import main
+from rxlog.cli import station  # noqa: F401  (config check, prune, demo)
+
+__all__ = ["main"]

@@ -1,0 +1,36 @@
+"""Commands about the station itself: config check."""
+
+from __future__ import annotations
+
+import click
+
+from rxlog.cli.base import main
+
+
+@main.group("config")
+def config_group():
+    """Station config (TOML) tools."""
+
+
+@config_group.command("check")
+@click.option("--config", "config_path", envvar="RXLOG_CONFIG", metavar="FILE",
+              type=click.Path(dir_okay=False), help="Station config (TOML). Default: $RXLOG_CONFIG.")
+def config_check(config_path):
+    """Validate a station config and print a one-line summary.
+
+    \b
+    Example:
+      rxlog config check --config config/station.example.toml
+    """
+    from rxlog.cli.base import UserError
+    from rxlog.config import ConfigError, load_config
+
+    try:
+        cfg = load_config(config_path)
+    except ConfigError as e:
+        raise UserError("invalid config:\n" + "\n".join("  " + p for p in e.problems)) from None
+    st, sp = cfg["station"], cfg["spectra"]
+    click.echo(f"{cfg.path}: ok — station {st['name']} at {st['latitude_deg']:.4f}°, "
+               f"{st['longitude_deg']:.4f}°; {sp['fmin_mhz']}-{sp['fmax_mhz']} MHz in "
+               f"{sp['channels']} channels every {sp['cadence_s']} s; receiver {cfg['receiver']['kind']}; "
+               f"storage {cfg.storage_root}")

@@ -1,0 +1,254 @@
+"""Station configuration: TOML (tomllib), validated against one schema.
+
+Every problem is reported as one line naming the file, the key (and its line where it
+can be found) and what was expected. ``load_config`` raises ``ConfigError`` carrying
+all of them; nothing else reads the TOML file.
+
+Each section's keys live in ``SCHEMA``. A key is a ``Key``: its type, default
+(``REQUIRED`` when it must be given), bounds or choices, and a one-line help that
+also documents ``config/station.example.toml``.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+import re
+import tomllib
+import zoneinfo
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+REQUIRED = object()
+
+
+class ConfigError(Exception):
+    """Invalid station configuration; ``problems`` holds one line per problem."""
+
+    def __init__(self, problems: list[str]):
+        self.problems = list(problems)
+        super().__init__("\n".join(self.problems))
+
+
+@dataclass(frozen=True)
+class Key:
+    type: type | tuple
+    default: Any = REQUIRED
+    min: float | None = None
+    max: float | None = None
+    choices: tuple | None = None
+    help: str = ""
+    # extra check on a well-typed value; returns a list of "what is wrong" strings
+    check: Callable[[Any], list[str]] | None = None
+
+
+def _timezone_check(value: str) -> list[str]:
+    try:
+        zoneinfo.ZoneInfo(value)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        return [f"unknown IANA time zone {value!r} (expected e.g. 'Europe/Berlin' or 'UTC')"]
+    return []
+
+
+NUMBER = (int, float)
+
+SCHEMA: dict[str, dict[str, Key]] = {
+    "station": {
+        "name": Key(str, help="Short station name, used in file names and exports (letters, digits, - and _)",
+                    check=lambda v: [] if re.fullmatch(r"[A-Za-z0-9_-]{1,40}", v) else
+                    ["expected 1-40 letters, digits, '-' or '_'"]),
+        "latitude_deg": Key(NUMBER, min=-90, max=90, help="Geodetic latitude, degrees north"),
+        "longitude_deg": Key(NUMBER, min=-180, max=180, help="Longitude, degrees east"),
+        "elevation_m": Key(NUMBER, 0.0, min=-500, max=9000, help="Height above the WGS84 ellipsoid, metres"),
+        "timezone": Key(str, "UTC", help="IANA time zone for local times in reports and forecasts",
+                        check=_timezone_check),
+        "antenna": Key(str, "", help="Free text: antenna type and orientation"),
+        "operator_contact": Key(str, "", help="Free text: who runs the station and how to reach them"),
+    },
+    "receiver": {
+        "kind": Key(str, "simulated", choices=("simulated", "rtlsdr", "rtltcp", "recording"),
+                    help="Where samples come from"),
+    },
+    "spectra": {
+        "fmin_mhz": Key(NUMBER, 16.0, min=1, max=60, help="Lower band edge, MHz"),
+        "fmax_mhz": Key(NUMBER, 24.0, min=1, max=60, help="Upper band edge, MHz"),
+        "channels": Key(int, 1024, min=8, max=65536, help="Number of equal channels across the band"),
+        "cadence_s": Key(NUMBER, 1.0, min=1e-4, max=600, help="Seconds between archived spectra"),
+    },
+    "storage": {
+        "root": Key(str, "data", help="Folder for archive, event store and reports; relative to this file"),
+        "retention_days": Key(NUMBER, 90, min=0.01, help="Delete archived spectra older than this many days"),
+        "lossless": Key(bool, False, help="Store float32 power exactly instead of 0.04-dB quantised integers"),
+    },
+    "sweep": {},
+    "rfi": {},
+    "detector": {},
+    "regions": {},
+    "service": {},
+}
+
+
+def _type_name(t) -> str:
+    if t is NUMBER or t == NUMBER:
+        return "a number"
+    names = {str: "a string", int: "an integer", float: "a number", bool: "true or false",
+             list: "a list", dict: "a table"}
+    if isinstance(t, tuple):
+        return " or ".join(names.get(x, x.__name__) for x in t)
+    return names.get(t, t.__name__)
+
+
+def _is_type(value, t) -> bool:
+    if isinstance(value, bool) and t is not bool and not (isinstance(t, tuple) and bool in t):
+        return False
+    return isinstance(value, t)
+
+
+def _key_lines(text: str) -> dict[tuple[str, str], int]:
+    """Map (section, key) -> 1-based line of its assignment, by a light scan of the TOML text."""
+    where: dict[tuple[str, str], int] = {}
+    section = ""
+    for n, line in enumerate(text.splitlines(), start=1):
+        s = line.strip()
+        m = re.match(r"^\[\[?\s*([A-Za-z0-9_.\-]+)\s*\]\]?", s)
+        if m:
+            section = m.group(1)
+            where.setdefault((section, ""), n)
+            continue
+        m = re.match(r"^([A-Za-z0-9_\-]+)\s*=", s)
+        if m:
+            where.setdefault((section, m.group(1)), n)
+    return where
+
+
+def validate(data: dict, path: str | os.PathLike = "<config>", text: str = "") -> tuple[dict, list[str]]:
+    """Check parsed TOML against SCHEMA; return (config with defaults filled, problems)."""
+    lines = _key_lines(text)
+    problems: list[str] = []
+    out: dict[str, dict] = {}
+
+    def at(section: str, key: str = "") -> str:
+        n = lines.get((section, key)) or lines.get((section, ""))
+        name = f"[{section}] {key}".rstrip() if key else f"[{section}]"
+        return f"{path}:{n}: {name}" if n else f"{path}: {name}"
+
+    for section in data:
+        if section not in SCHEMA:
+            close = difflib.get_close_matches(section, SCHEMA.keys(), n=1)
+            hint = f" (did you mean [{close[0]}]?)" if close else f" (expected one of {', '.join(SCHEMA)})"
+            problems.append(f"{at(section)}: unknown section{hint}")
+        elif not isinstance(data[section], dict):
+            problems.append(f"{path}: {section}: expected a [{section}] table")
+
+    for section, keys in SCHEMA.items():
+        given = data.get(section, {})
+        if not isinstance(given, dict):
+            continue
+        values: dict[str, Any] = {}
+        for key, value in given.items():
+            if key not in keys:
+                close = difflib.get_close_matches(key, keys.keys(), n=1)
+                hint = f" (did you mean '{close[0]}'?)" if close else (
+                    f" (valid keys: {', '.join(keys)})" if keys else " (this section has no keys yet)")
+                problems.append(f"{at(section, key)}: unknown key{hint}")
+                continue
+            spec = keys[key]
+            if not _is_type(value, spec.type):
+                problems.append(f"{at(section, key)}: expected {_type_name(spec.type)}, got {value!r}")
+                continue
+            if spec.choices is not None and value not in spec.choices:
+                problems.append(f"{at(section, key)}: expected one of {', '.join(map(repr, spec.choices))}, got {value!r}")
+                continue
+            if spec.min is not None and value < spec.min or spec.max is not None and value > spec.max:
+                lo = "" if spec.min is None else f"{spec.min}"
+                hi = "" if spec.max is None else f"{spec.max}"
+                rng = f"between {lo} and {hi}" if lo and hi else (f"at least {lo}" if lo else f"at most {hi}")
+                problems.append(f"{at(section, key)}: out of range, expected {rng}, got {value!r}")
+                continue
+            if spec.check is not None:
+                errs = spec.check(value)
+                if errs:
+                    problems.extend(f"{at(section, key)}: {e}" for e in errs)
+                    continue
+            values[key] = value
+        for key, spec in keys.items():
+            if key in values:
+                continue
+            if key in given:  # present but invalid: already reported
+                continue
+            if spec.default is REQUIRED:
+                problems.append(f"{at(section)}: missing required key '{key}' ({spec.help})")
+            else:
+                values[key] = spec.default
+        out[section] = values
+
+    sp = out.get("spectra", {})
+    if {"fmin_mhz", "fmax_mhz"} <= sp.keys() and sp["fmin_mhz"] >= sp["fmax_mhz"]:
+        problems.append(f"{at('spectra', 'fmax_mhz')}: expected fmax_mhz above fmin_mhz "
+                        f"({sp['fmin_mhz']} >= {sp['fmax_mhz']})")
+    for check in CROSS_CHECKS:
+        problems.extend(check(out, at))
+    return out, problems
+
+
+# Checks that look at more than one key: functions (config, at) -> list of problem lines.
+CROSS_CHECKS: list[Callable[[dict, Callable[..., str]], list[str]]] = []
+
+
+class Config(dict):
+    """A validated station config: ``cfg['station']['name']``; ``path`` and ``storage_root`` resolved."""
+
+    path: Path
+    storage_root: Path
+
+    @property
+    def station(self) -> dict:
+        return self["station"]
+
+    @property
+    def archive_dir(self) -> Path:
+        return self.storage_root / "archive"
+
+    @property
+    def store_path(self) -> Path:
+        return self.storage_root / "events.sqlite"
+
+    @property
+    def reports_dir(self) -> Path:
+        return self.storage_root / "reports"
+
+
+def load_config(path: str | os.PathLike | None) -> Config:
+    """Read and validate a station config; raise ConfigError with one line per problem."""
+    if path is None or str(path) == "":
+        raise ConfigError(["no station config given: pass --config FILE or set RXLOG_CONFIG"])
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except OSError as e:
+        raise ConfigError([f"{p}: cannot read config file ({e.strerror or e})"]) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise ConfigError([f"{p}: not UTF-8 text; expected a TOML station config"]) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise ConfigError([f"{p}: unreadable TOML: {e}"]) from None
+    values, problems = validate(data, p, text)
+    if problems:
+        raise ConfigError(problems)
+    cfg = Config(values)
+    cfg.path = p.resolve()
+    root = Path(os.path.expanduser(cfg["storage"]["root"]))
+    cfg.storage_root = root if root.is_absolute() else (cfg.path.parent / root)
+    return cfg
+
+
+def config_from_text(text: str, path: str | os.PathLike) -> Config:
+    """Write ``text`` to ``path`` and load it (used by the demo and tests to make working configs)."""
+    p = Path(path)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    p.write_text(text, encoding="utf-8")
+    return load_config(p)
