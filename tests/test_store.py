@@ -1,0 +1,129 @@
+"""Event store invariants: idempotent upserts, labels that survive re-detection, migrations."""
+
+import sqlite3
+
+import pytest
+import sqlite_utils
+
+from rxlog.errors import RxlogError
+from rxlog.store import SCHEMA_VERSION, EventStore, _v1, make_event_id
+from rxlog.timeutil import iso
+
+T0 = 1_800_000_000.0  # 2027-01-15T08:00:00Z
+
+
+def event(peak, fmin=18.0, fmax=22.0, cls="solar_iii", station="st-a", dur=6.0):
+    return {"event_id": make_event_id(station, peak, fmin, fmax), "station": station,
+            "start_utc": iso(peak - dur / 2), "end_utc": iso(peak + dur / 2), "peak_utc": iso(peak),
+            "fmin_mhz": fmin, "fmax_mhz": fmax, "peak_excess_db": 3.0, "snr": 12.0,
+            "class": cls, "confidence": 0.8, "reason": "test"}
+
+
+def test_upsert_is_idempotent(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    evs = [event(T0 + 100 * i) for i in range(5)]
+    store.upsert_events(evs)
+    store.upsert_events(evs)
+    assert len(store.events()) == 5
+    evs[0]["peak_excess_db"] = 9.0
+    store.upsert_events(evs[:1])
+    rows = store.events()
+    assert len(rows) == 5 and rows[0]["peak_excess_db"] == 9.0
+
+
+def test_replace_events_only_touches_its_range_and_station(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    store.upsert_events([event(T0 + 10), event(T0 + 5000), event(T0 + 10, station="st-b")])
+    store.replace_events("st-a", T0, T0 + 1000, [event(T0 + 20), event(T0 + 30)])
+    peaks = sorted((r["station"], r["peak_utc"]) for r in store.events())
+    assert peaks == sorted([("st-a", iso(T0 + 20)), ("st-a", iso(T0 + 30)),
+                            ("st-a", iso(T0 + 5000)), ("st-b", iso(T0 + 10))])
+
+
+def test_labels_survive_redetection_with_new_ids(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    first = [event(T0 + 100), event(T0 + 900, fmin=16.5, fmax=19.0, cls="jovian_l", dur=120)]
+    store.replace_events("st-a", T0, T0 + 3600, first)
+    store.add_label(first[0]["event_id"], "solar_iii", note="clear", who="ana")
+    store.add_label(first[1]["event_id"], "rfi", who="ben")
+    # Re-detection with other thresholds: boxes shift a little, ids change.
+    second = [event(T0 + 100.7, fmin=17.8, fmax=22.3), event(T0 + 905, fmin=16.4, fmax=19.2, cls="jovian_l", dur=110)]
+    assert {e["event_id"] for e in second}.isdisjoint({e["event_id"] for e in first})
+    store.replace_events("st-a", T0, T0 + 3600, second)
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[second[0]["event_id"]]["label"] == "solar_iii"
+    assert rows[second[0]["event_id"]]["label_who"] == "ana"
+    assert rows[second[1]["event_id"]]["label"] == "rfi"
+    assert store.events(unlabelled=True) == []
+
+
+def test_label_goes_to_best_overlapping_event_and_keeps_history(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    a, b = event(T0 + 100), event(T0 + 104, fmin=21.0, fmax=23.0)
+    store.upsert_events([a, b])
+    store.add_label(a["event_id"], "unsure")
+    store.add_label(a["event_id"], "solar_iii", who="ana")
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[a["event_id"]]["label"] == "solar_iii"
+    assert rows[b["event_id"]]["label"] is None
+    assert [h["label"] for h in store.label_history(a["event_id"])] == ["unsure", "solar_iii"]
+    # a class filter does not move labels onto other events
+    assert store.events(cls="solar_iii")[1]["label"] is None
+
+
+def test_unknown_label_and_event_are_clear_errors(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    e = event(T0)
+    store.upsert_events([e])
+    with pytest.raises(RxlogError, match="unknown label"):
+        store.add_label(e["event_id"], "martians")
+    with pytest.raises(RxlogError, match="no event"):
+        store.add_label("nope", "rfi")
+
+
+def test_migration_from_version_1_keeps_data(tmp_path):
+    path = tmp_path / "events.sqlite"
+    db = sqlite_utils.Database(sqlite3.connect(str(path)))
+    _v1(db)
+    db["schema_version"].insert({"version": 1, "applied_utc": iso(T0)}, pk="version")
+    old = {k: v for k, v in event(T0).items()}
+    db["events"].insert(old)
+    db.conn.commit()
+    db.conn.close()
+    store = EventStore(path)
+    assert store.version == SCHEMA_VERSION
+    assert "cml3_start_deg" in store.db["events"].columns_dict
+    rows = store.events()
+    assert len(rows) == 1 and rows[0]["event_id"] == old["event_id"]
+
+
+def test_newer_schema_is_refused_and_garbage_file_is_clear_error(tmp_path):
+    path = tmp_path / "events.sqlite"
+    store = EventStore(path)
+    store.db["schema_version"].insert({"version": SCHEMA_VERSION + 5, "applied_utc": iso(T0)})
+    store.db.conn.commit()
+    store.close()
+    with pytest.raises(RxlogError, match="newer"):
+        EventStore(path)
+    junk = tmp_path / "junk.sqlite"
+    junk.write_bytes(b"this is not sqlite" * 100)
+    with pytest.raises(RxlogError, match="not a usable"):
+        EventStore(junk)
+
+
+def test_store_is_wal_and_passes_integrity_check(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    store.upsert_events([event(T0)])
+    assert store.db.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    assert store.db.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+
+
+def test_quality_and_health_rows(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    store.record_quality([{"station": "st-a", "hour_utc": iso(T0), "masked_fraction": 0.1, "gap_s": 0, "covered_s": 3600}])
+    store.record_quality([{"station": "st-a", "hour_utc": iso(T0), "masked_fraction": 0.2, "gap_s": 5, "covered_s": 3595}])
+    assert [q["masked_fraction"] for q in store.quality()] == [0.2]
+    store.record_health({"station": "st-a", "time_utc": iso(T0), "samples_received": 10, "samples_dropped": 0,
+                         "queue_depth": 0, "cpu_percent": 5.0, "disk_free_mb": 1e4, "clock_sync": "unknown",
+                         "receiver_state": "ok"})
+    assert store.latest_health()["receiver_state"] == "ok"
