@@ -34,3 +34,23 @@ def config_check(config_path):
                f"{st['longitude_deg']:.4f}°; {sp['fmin_mhz']}-{sp['fmax_mhz']} MHz in "
                f"{sp['channels']} channels every {sp['cadence_s']} s; receiver {cfg['receiver']['kind']}; "
                f"storage {cfg.storage_root}")
+
+
+@main.command("demo")
+@click.option("--out", "out", default="rxlog-demo", show_default=True, type=click.Path(file_okay=False),
+              help="Folder for everything the demo writes (config, storage root, report).")
+def demo(out):
+    """Simulate a night at a fictional club station and run it through every stage.
+
+    No hardware needed. Writes a working station config, the archive, the event store,
+    the morning report, a forecast and exchange files under --out, and prints where.
+
+    \b
+    Example:
+      rxlog demo --out rxlog-demo
+      rxlog review --config rxlog-demo/birchwater/station.toml --serve
+    """
+    from rxlog.cli.base import friendly_errors
+    from rxlog.demo import run_demo
+
+    friendly_errors(run_demo)(out)
