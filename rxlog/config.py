@@ -85,7 +85,32 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "rfi": {},
     "detector": {},
     "regions": {},
-    "service": {},
+    "service": {
+        "feed": Key(str, "iq", choices=("iq", "spectra"),
+                    help="Simulated receiver only: 'iq' runs samples through the channelizer, "
+                         "'spectra' takes spectra straight from the sky model (fast dry runs)"),
+        "chunk_s": Key(NUMBER, 60.0, min=0.5, max=60,
+                       help="Seconds of spectra per crash-safe archive flush (a power cut loses at most this)"),
+        "health_interval_s": Key(NUMBER, 60.0, min=0.5, max=3600, help="Seconds between health rows in the event store"),
+        "disk_min_free_mb": Key(NUMBER, 500.0, min=0,
+                                help="Below this much free space under the storage root, stop archiving raw "
+                                     "spectra (events and health go on) until space returns"),
+        "retry_max_s": Key(NUMBER, 60.0, min=0.1, max=3600,
+                           help="Longest wait between attempts to reopen a lost receiver (waits double from 1 s)"),
+        "clock_step_s": Key(NUMBER, 0.5, min=0.01, max=86400,
+                            help="A jump of the wall clock against the monotonic clock above this many seconds "
+                                 "is recorded as a clock step and starts a new segment"),
+        "watchdog_s": Key(NUMBER, 120.0, min=10, max=3600,
+                          help="systemd WatchdogSec: restart the logger when its pipeline stalls this long"),
+        "user": Key(str, "rxlog", help="System user the systemd units run as (owns the storage root)",
+                    check=lambda v: [] if re.fullmatch(r"[a-z_][a-z0-9_-]{0,31}", v) else
+                    ["expected a system user name (lower-case letters, digits, '_' or '-')"]),
+        "log_level": Key(str, "info", choices=("debug", "info", "warning", "error"),
+                         help="Least severe log messages written to stderr (the journal)"),
+        "review_time": Key(str, "07:00", help="Local time (station time zone) of the daily morning review",
+                           check=lambda v: [] if re.fullmatch(r"([01][0-9]|2[0-3]):[0-5][0-9]", v) else
+                           ["expected HH:MM, 24-hour clock"]),
+    },
 }
 
 
