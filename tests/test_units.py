@@ -1,0 +1,132 @@
+"""systemd units rendered for a station config, checked by systemd's own verifier.
+
+`systemd-analyze verify` (Debian's systemd package; .ci/run installs it) parses each
+unit as systemd would and complains about unknown settings, bad values and missing
+executables; it exits 0 even for some of those warnings, so any output counts as failure.
+"""
+
+import re
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from rxlog.config import config_from_text
+from rxlog.errors import RxlogError
+from rxlog.units import default_units, units_for_config, write_units
+
+REPO = Path(__file__).resolve().parents[1]
+ANALYZE = shutil.which("systemd-analyze")
+needs_analyze = pytest.mark.skipif(ANALYZE is None, reason="systemd-analyze not installed (.ci/run installs systemd)")
+
+CONFIG = """
+[station]
+name = "test-site"
+latitude_deg = 47.5
+longitude_deg = 8.7
+timezone = "Europe/Zurich"
+[storage]
+root = "{root}"
+[service]
+user = "radiolog"
+watchdog_s = 90
+review_time = "06:45"
+"""
+
+
+@pytest.fixture
+def cfg(tmp_path):
+    return config_from_text(CONFIG.format(root=tmp_path / "store"), tmp_path / "station.toml")
+
+
+def _verify(paths):
+    p = subprocess.run([ANALYZE, "verify", "--man=no", *map(str, paths)], capture_output=True, text=True,
+                       timeout=60)
+    return p.returncode, (p.stdout + p.stderr).strip()
+
+
+@needs_analyze
+def test_rendered_units_pass_systemd_analyze_verify(cfg, tmp_path):
+    paths = write_units(units_for_config(cfg), tmp_path / "units")
+    units = [p for p in paths if p.suffix in (".service", ".timer")]
+    assert len(units) == 3
+    rc, out = _verify(units)
+    assert rc == 0 and out == "", out
+
+
+@needs_analyze
+def test_verifier_notices_a_broken_unit(cfg, tmp_path):
+    # The check above means something only if the verifier speaks up on a bad unit.
+    units = units_for_config(cfg)
+    units["rxlog.service"] = units["rxlog.service"].replace("Type=notify", "Type=notifyy")
+    paths = write_units(units, tmp_path / "units")
+    rc, out = _verify([p for p in paths if p.name == "rxlog.service"])
+    assert "notifyy" in out
+
+
+def _settings(text):
+    out = {}
+    for line in text.splitlines():
+        m = re.match(r"^([A-Za-z]+)=(.*)$", line)
+        if m:
+            out.setdefault(m.group(1), []).append(m.group(2))
+    return out
+
+
+def test_service_unit_carries_the_config(cfg):
+    s = _settings(units_for_config(cfg)["rxlog.service"])
+    storage = str(cfg.storage_root.resolve())
+    assert s["Type"] == ["notify"] and s["WatchdogSec"] == ["90s"] and s["Restart"] == ["on-failure"]
+    assert s["User"] == ["radiolog"] and s["NoNewPrivileges"] == ["yes"] and s["PrivateTmp"] == ["yes"]
+    assert s["ProtectSystem"] == ["strict"] and s["ReadWritePaths"] == [storage]
+    assert s["ExecStart"] == [f"{sys.executable} -m rxlog run --config {cfg.path}"]
+
+
+def test_timer_fires_at_review_time_in_station_zone(cfg):
+    s = _settings(units_for_config(cfg)["rxlog-review.timer"])
+    assert s["OnCalendar"] == ["*-*-* 06:45:00 Europe/Zurich"] and s["Persistent"] == ["true"]
+    r = _settings(units_for_config(cfg)["rxlog-review.service"])
+    assert r["ExecStart"] == [f"{sys.executable} -m rxlog review --config {cfg.path}"]
+    assert r["User"] == ["radiolog"]
+
+
+@needs_analyze
+def test_timer_calendar_is_understood_by_systemd(cfg):
+    # systemd-analyze calendar normalises a calendar event and prints its next elapse.
+    on = _settings(units_for_config(cfg)["rxlog-review.timer"])["OnCalendar"][0]
+    p = subprocess.run([ANALYZE, "calendar", on], capture_output=True, text=True, timeout=30)
+    assert p.returncode == 0 and "Next elapse" in p.stdout, p.stderr
+
+
+def test_udev_rule_grants_the_service_group_rtl2832u_devices(cfg):
+    rule = units_for_config(cfg)["60-rxlog-rtlsdr.rules"]
+    lines = [ln for ln in rule.splitlines() if ln and not ln.startswith("#")]
+    assert lines
+    for ln in lines:
+        # udev(7): match keys use '==', assignments '='; comma-separated KEY op "value".
+        pairs = re.findall(r'([A-Z]+(?:\{\w+\})?)(==|=)"([^"]*)"', ln)
+        assert ", ".join(f'{k}{op}"{v}"' for k, op, v in pairs) == ln
+        d = {k: v for k, _, v in pairs}
+        assert d["SUBSYSTEM"] == "usb" and d["ATTRS{idVendor}"] == "0bda"
+        assert d["GROUP"] == "radiolog" and d["MODE"] == "0660"
+    assert {re.search(r'idProduct}=="(\w+)"', ln).group(1) for ln in lines} >= {"2838"}
+
+
+def test_unit_specifiers_in_paths_are_escaped(tmp_path):
+    cfg = config_from_text(CONFIG.format(root=tmp_path / "st%h$x"), tmp_path / "a%b.toml")
+    s = _settings(units_for_config(cfg)["rxlog.service"])
+    assert s["ReadWritePaths"][0].endswith("st%%h$$x")
+    assert "a%%b.toml" in s["ExecStart"][0]
+
+
+def test_storage_root_with_spaces_is_refused(tmp_path):
+    cfg = config_from_text(CONFIG.format(root=tmp_path / "my data"), tmp_path / "station.toml")
+    with pytest.raises(RxlogError, match="white space"):
+        units_for_config(cfg)
+
+
+def test_shipped_systemd_folder_matches_the_renderer():
+    for name, text in default_units().items():
+        assert (REPO / "systemd" / name).read_text() == text, f"systemd/{name} is stale: re-render it"
