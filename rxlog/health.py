@@ -169,3 +169,22 @@ def running_logger(storage_root: str | os.PathLike) -> int | None:
         return None
     finally:
         os.close(fd)
+
+
+def station_status(cfg) -> dict:
+    """What ``rxlog status`` shows: {'pid': running logger's pid or None, 'health': the latest
+    health row or None, 'age_s': seconds since that row, 'store': path}. Creates nothing."""
+    from rxlog.store import EventStore
+
+    out = {"pid": running_logger(cfg.storage_root), "health": None, "age_s": None, "store": cfg.store_path}
+    if cfg.store_path.exists():
+        store = EventStore(cfg.store_path)
+        try:
+            out["health"] = store.latest_health(cfg["station"]["name"])
+        finally:
+            store.close()
+    if out["health"]:
+        from rxlog.timeutil import parse_iso
+
+        out["age_s"] = time.time() - parse_iso(out["health"]["time_utc"])
+    return out
