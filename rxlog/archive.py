@@ -399,21 +399,23 @@ def _time_origin(h, path) -> tuple[float, str]:
 
 
 def _to_utc_offset(scale: str, t_ref: float, path, key: str) -> float:
-    """Seconds to add to a POSIX-like reading on ``scale`` to get UTC (astropy.time leap seconds)."""
+    """Seconds to add to a reading on ``scale`` to get UTC, at the reference time.
+
+    TAI - UTC from the leap-second table built into ERFA (``erfa.dat``, no download);
+    TT = TAI + 32.184 s and GPS = TAI - 19 s by definition (IERS Conventions 2010, ch. 1).
+    A file spanning a leap second would be off by 1 s after it: not worth more here.
+    """
     if scale in ("UTC", "UT"):
         return 0.0
-    if scale not in ("TAI", "TT", "TDT", "GPS"):
+    shift = {"TAI": 0.0, "TT": 32.184, "TDT": 32.184, "GPS": -19.0}
+    if scale not in shift:
         raise RxlogError(f"{path}: keyword {key} = {scale!r}: time scale not supported; "
                          "expected 'UTC' (or TAI, TT, GPS)")
-    from astropy.time import Time
+    import erfa
 
-    mjd = t_ref / 86400.0 + _MJD_UNIX_EPOCH
-    if scale == "GPS":                     # GPS = TAI - 19 s (fixed by definition)
-        tt = Time(mjd, format="mjd", scale="tai") + 19.0 / 86400.0
-        tt = Time(tt.mjd, format="mjd", scale="tai")
-    else:
-        tt = Time(mjd, format="mjd", scale="tt" if scale in ("TT", "TDT") else "tai")
-    return (tt.utc.mjd - mjd) * 86400.0
+    d = dt.datetime(1970, 1, 1) + dt.timedelta(seconds=t_ref)
+    tai_utc = float(erfa.dat(d.year, d.month, d.day, (d.hour * 3600 + d.minute * 60 + d.second) / 86400.0))
+    return -(tai_utc + shift[scale])
 
 
 def _time_axis(h, i: int, path) -> dict:
