@@ -2,5 +2,6 @@
 
 from rxlog.cli.base import main
 from rxlog.cli import station  # noqa: F401  (config check, prune, demo)
+from rxlog.cli import archive  # noqa: F401  (prune, ingest of FITS dynamic spectra)
 
 __all__ = ["main"]
