@@ -20,6 +20,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
+from rxlog import ephemeris as _ephemeris
+
 REQUIRED = object()
 
 
@@ -84,7 +86,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "sweep": {},
     "rfi": {},
     "detector": {},
-    "regions": {},
+    "regions": {
+        "boxes": Key(list, _ephemeris.DEFAULT_REGION_BOXES, check=_ephemeris.check_region_boxes,
+                     help="Io-source boxes in the CML III / Io-phase plane, in order of precedence"),
+    },
     "service": {
         "feed": Key(str, "iq", choices=("iq", "spectra"),
                     help="Simulated receiver only: 'iq' runs samples through the channelizer, "
