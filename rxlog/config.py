@@ -20,6 +20,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
+from rxlog import rfi as _rfi
 from rxlog import ephemeris as _ephemeris
 
 REQUIRED = object()
@@ -71,6 +72,27 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "receiver": {
         "kind": Key(str, "simulated", choices=("simulated", "rtlsdr", "rtltcp", "recording"),
                     help="Where samples come from"),
+        "sample_rate_hz": Key(NUMBER, 2_400_000, min=1000, max=100e6,
+                              help="Complex samples per second (rtlsdr/rtltcp: 225001-300000 or 900001-3200000)"),
+        "gain_db": Key(NUMBER, 30.0, min=0, max=60, help="Fixed tuner gain in dB (the nearest step the tuner has)"),
+        "agc": Key(bool, False, help="Automatic gain control: refused, radiometry needs a fixed gain"),
+        "ppm": Key(int, 0, min=-500, max=500, help="Crystal frequency correction, parts per million"),
+        "device_index": Key(int, 0, min=0, max=63, help="rtlsdr: which dongle, in USB order (ignored when serial is set)"),
+        "serial": Key(str, "", help="rtlsdr: pick the dongle by its serial number (rtl_eeprom sets it)"),
+        "direct_sampling": Key(str, "off", choices=("off", "i", "q"),
+                               help="rtlsdr/rtltcp: HF straight into the ADC (I or Q branch) instead of the tuner"),
+        "upconverter_lo_hz": Key(NUMBER, 0.0, min=0, max=500e6,
+                                 help="Local oscillator of an upconverter ahead of the dongle, Hz (0: none)"),
+        "bias_tee": Key(bool, False, help="rtlsdr/rtltcp: power a preamp or upconverter over the coax"),
+        "host": Key(str, "127.0.0.1", help="rtltcp: address of the computer running rtl_tcp"),
+        "port": Key(int, 1234, min=1, max=65535, help="rtltcp: TCP port of rtl_tcp"),
+        "reconnect_max_s": Key(NUMBER, 60.0, min=1, max=3600,
+                               help="rtltcp: keep reconnecting this long before reporting the receiver lost"),
+        "recording_path": Key(str, "", help="recording: SigMF or raw file to replay; relative to this file"),
+        "recording_format": Key(str, "sigmf", choices=("sigmf", "cu8", "ci8", "ci16_le", "cf32_le"),
+                                help="recording: SigMF, or the sample format of a raw file"),
+        "recording_center_hz": Key(NUMBER, 0.0, min=0, help="recording (raw): centre frequency, Hz"),
+        "recording_start_utc": Key(str, "", help="recording (raw): ISO 8601 UTC time of the first sample"),
     },
     "spectra": {
         "fmin_mhz": Key(NUMBER, 16.0, min=1, max=60, help="Lower band edge, MHz"),
@@ -84,8 +106,55 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "lossless": Key(bool, False, help="Store float32 power exactly instead of 0.04-dB quantised integers"),
     },
     "sweep": {},
-    "rfi": {},
-    "detector": {},
+    "rfi": {
+        # Defaults: ITU Radio Regulations allocations in and near 16-24 MHz (from memory), see rxlog/rfi.py
+        "static_ranges": Key(list, _rfi.DEFAULT_STATIC_RANGES, check=_rfi.check_static_ranges,
+                             help="Always-masked ranges: tables {fmin_mhz, fmax_mhz, hours_utc = [from, to] "
+                                  "(optional, UTC, may wrap midnight), note}"),
+        "carrier_width_mhz": Key(NUMBER, 0.1, min=0.001, max=5,
+                                 help="A carrier stands above the median of the channels this far either side"),
+        "carrier_sigma": Key(NUMBER, 6.0, min=2, max=100,
+                             help="Carrier threshold: block level above its neighbours, in noise units of the level"),
+        "carrier_memory_s": Key(NUMBER, 3600.0, min=60, max=864000,
+                                help="Memory of the learned carrier list (exponential, seconds)"),
+        "carrier_fraction": Key(NUMBER, 0.5, min=0.01, max=1,
+                                help="A channel that was a carrier this often in memory stays masked while it fades"),
+        "sumthreshold_chi1": Key(NUMBER, 7.0, min=2, max=100,
+                                 help="SumThreshold (Offringa et al. 2010) single-sample threshold, noise units; "
+                                      "runs of M samples use chi1 / 1.5^log2(M)"),
+        "sumthreshold_max_mhz": Key(NUMBER, 0.05, min=0, max=5,
+                                    help="Longest SumThreshold run along frequency, MHz (narrowband signals)"),
+        "sumthreshold_max_s": Key(NUMBER, 8.0, min=0, max=600,
+                                  help="Longest SumThreshold run along time, seconds (within one block)"),
+        "kurtosis_sigma": Key(NUMBER, 5.0, min=2, max=100,
+                              help="Spectral kurtosis (Nita & Gary 2010) departure from 1 that flags a cell, "
+                                   "in units of its robust scatter"),
+    },
+    "detector": {
+        "block_s": Key(NUMBER, 30.0, min=1, max=3600, help="Seconds per background block (robust levels per channel)"),
+        "fast_window_s": Key(NUMBER, 240.0, min=10, max=7200,
+                             help="Fast background: centred median of block levels over this many seconds"),
+        "slow_window_s": Key(NUMBER, 7200.0, min=600, max=86400,
+                             help="Slow baseline: robust quadratic over this many seconds (long events are "
+                                  "reported half of it later)"),
+        "slow_freq_mhz": Key(NUMBER, 0.25, min=0.001, max=10, help="Coarse channel width of the slow path, MHz"),
+        "smooth_time_s": Key(NUMBER, 2.0, min=0, max=600, help="Burst smoothing box in time, seconds (Type III / L-burst scale)"),
+        "smooth_freq_mhz": Key(NUMBER, 0.2, min=0, max=10, help="Burst smoothing box in frequency, MHz"),
+        "seed_sigma": Key(NUMBER, 6.0, min=2, max=1000, help="A burst needs a smoothed cell this many sigma above background"),
+        "grow_sigma": Key(NUMBER, 3.0, min=1, max=1000, help="A burst extends over cells this many sigma above background"),
+        "min_peak_db": Key(NUMBER, 0.2, min=0, max=60, help="A burst's smoothed peak must also exceed this many dB"),
+        "slow_seed_db": Key(NUMBER, 0.3, min=0.01, max=60, help="A long event needs a coarse cell this many dB off the slow baseline"),
+        "slow_grow_db": Key(NUMBER, 0.15, min=0.01, max=60, help="A long event extends over coarse cells this many dB off"),
+        "slow_seed_sigma": Key(NUMBER, 6.0, min=1, max=1000, help="... and this many noise units (seed)"),
+        "slow_grow_sigma": Key(NUMBER, 3.0, min=1, max=1000, help="... and this many noise units (extent, and baseline rejection)"),
+        "slow_min_s": Key(NUMBER, 120.0, min=0, max=86400, help="Shortest long event, seconds (shorter ones are bursts)"),
+        "merge_gap_s": Key(NUMBER, 2.0, min=0, max=600, help="Fragments this close in time and overlapping in frequency are one event"),
+        "merge_freq_mhz": Key(NUMBER, 0.3, min=0, max=100, help="Frequency tolerance of that overlap, MHz"),
+        "max_event_s": Key(NUMBER, 600.0, min=10, max=86400, help="Longest burst before it is cut (longer ones belong to the slow path)"),
+        "episode_gap_s": Key(NUMBER, 600.0, min=0, max=86400, help="Events of one class this close in time form an episode"),
+        "sun_up_deg": Key(NUMBER, 0.0, min=-18, max=30, help="The Sun counts as up above this altitude, degrees"),
+        "jupiter_up_deg": Key(NUMBER, 0.0, min=-5, max=45, help="Jupiter counts as up above this altitude, degrees"),
+    },
     "regions": {
         "boxes": Key(list, _ephemeris.DEFAULT_REGION_BOXES, check=_ephemeris.check_region_boxes,
                      help="Io-source boxes in the CML III / Io-phase plane, in order of precedence"),
@@ -224,6 +293,15 @@ def validate(data: dict, path: str | os.PathLike = "<config>", text: str = "") -
 
 # Checks that look at more than one key: functions (config, at) -> list of problem lines.
 CROSS_CHECKS: list[Callable[[dict, Callable[..., str]], list[str]]] = []
+
+
+def _receiver_and_sweep_checks(cfg: dict, at) -> list[str]:
+    from rxlog import receiver, sweep
+
+    return receiver.config_problems(cfg, at) + sweep.config_problems(cfg, at)
+
+
+CROSS_CHECKS.append(_receiver_and_sweep_checks)
 
 
 class Config(dict):

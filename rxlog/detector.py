@@ -1,0 +1,1030 @@
+"""Burst detection: background, RFI mask, events with measured features, classes, episodes.
+
+The detector runs on one segment at a time (a segment never mixes tunings or gains) in
+fixed *blocks* of ``block_s`` seconds counted from the segment's first row. Every
+stage is a function of whole blocks and a fixed neighbourhood of blocks, so feeding
+rows one at a time, in chunks of any size, or all at once gives the same events
+(``OnlineDetector`` is what ``detect_spectrum`` uses underneath).
+
+Two paths find the two kinds of events:
+
+* **Bursts** (seconds to minutes): excess above the fast background (rxlog.background),
+  divided by each channel's noise, smoothed with a box of ``smooth_time_s`` x
+  ``smooth_freq_mhz`` matched to Type III / L-burst scales, and thresholded with
+  hysteresis (seeds at ``seed_sigma``, growing down to ``grow_sigma``). Connected
+  regions (8-connectivity over time and frequency) close in time and overlapping in
+  frequency merge into one event. Latency: (fast window / 2 + 3 blocks), a few minutes.
+* **Long events** (minutes to hours: Type IV continua, storms, fadeouts): block levels on
+  coarse channels against the slow baseline, with a positive and a *negative* branch,
+  thresholded in dB and in noise units. Reported half a slow window after they happen.
+
+Each event gets start, end and peak time; fmin, fmax; peak excess (dB) and SNR;
+integrated excess; a drift rate from a weighted fit of arrival time against frequency
+using the true sampling time of each channel (``chan_offset_s``), with its error;
+duration at fixed frequency; bandwidth; a class with a confidence and a one-line
+reason; and ephemeris tags at peak, start and end.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+from scipy import ndimage
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+
+from rxlog import background as bg
+from rxlog import rfi
+from rxlog.spectrum import FLAG_GAP, FLAG_RETUNE, FLAG_RFI, FLAG_UNCOVERED, DynamicSpectrum
+from rxlog.timeutil import iso
+
+# Alvarez & Haddock 1973 (Solar Physics 29, 197): Type III drift df/dt = -0.01 f^1.84 MHz/s.
+AH_COEFF, AH_INDEX = 0.01, 1.84
+
+# A measured Type III drift within this factor of the law counts as a match. The
+# observed scatter of decametric Type III drifts about the fitted law is roughly a factor
+# of two (common practice).
+TYPE3_FACTOR = 2.0
+# Type II drift at decametric wavelengths: -0.02 to -0.5 MHz/s (common practice).
+TYPE2_DRIFT = (-0.5, -0.02)
+# Jovian S-bursts drift at about -5 to -30 MHz/s (Zarka's reviews; from memory) and need
+# millisecond resolution: never inferred from spectra coarser than this.
+SBURST_DRIFT = (-40.0, -3.0)
+SBURST_MAX_CADENCE_S = 0.01
+
+EVENT_FIELDS = ("station", "event_id", "episode_id", "start_utc", "end_utc", "peak_utc",
+                "fmin_mhz", "fmax_mhz", "peak_excess_db", "snr", "integrated_excess",
+                "drift_mhz_s", "drift_err_mhz_s", "duration_s", "bandwidth_mhz", "class",
+                "confidence", "reason", "cml3_deg", "io_phase_deg", "cml3_start_deg",
+                "cml3_end_deg", "io_phase_start_deg", "io_phase_end_deg", "source_region",
+                "jupiter_alt_deg", "sun_alt_deg", "cutout_path")
+
+BAD_FLAGS = FLAG_GAP | FLAG_UNCOVERED | FLAG_RETUNE
+
+
+def ah_drift(f_mhz):
+    """Type III drift rate (MHz/s, negative) at f MHz after Alvarez & Haddock 1973."""
+    return -AH_COEFF * np.asarray(f_mhz, dtype=np.float64) ** AH_INDEX
+
+
+# ------------------------------------------------------------------------------------
+# Settings
+# ------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Settings:
+    """Detector and RFI settings in physical units (seconds, MHz, dB, noise sigma)."""
+
+    station: str = "station"
+    block_s: float = 30.0
+    fast_window_s: float = 240.0
+    slow_window_s: float = 7200.0
+    slow_freq_mhz: float = 0.25
+    smooth_time_s: float = 2.0
+    smooth_freq_mhz: float = 0.2
+    seed_sigma: float = 6.0
+    grow_sigma: float = 3.0
+    min_peak_db: float = 0.2
+    slow_seed_db: float = 0.3
+    slow_grow_db: float = 0.15
+    slow_seed_sigma: float = 6.0
+    slow_grow_sigma: float = 3.0
+    slow_min_s: float = 120.0
+    merge_gap_s: float = 2.0
+    merge_freq_mhz: float = 0.3
+    max_event_s: float = 600.0
+    episode_gap_s: float = 600.0
+    sun_up_deg: float = 0.0
+    jupiter_up_deg: float = 0.0
+    # RFI
+    static_ranges: tuple = ()
+    carrier_width_mhz: float = 0.1
+    carrier_sigma: float = 6.0
+    carrier_memory_s: float = 3600.0
+    carrier_fraction: float = 0.5
+    sumthreshold_chi1: float = 7.0
+    sumthreshold_max_mhz: float = 0.05
+    sumthreshold_max_s: float = 8.0
+    kurtosis_sigma: float = 5.0
+
+    @classmethod
+    def from_config(cls, cfg) -> "Settings":
+        d = dict(cfg.get("detector", {}))
+        r = dict(cfg.get("rfi", {}))
+        kw = {k: v for k, v in d.items() if k in cls.__dataclass_fields__}
+        kw.update({k: v for k, v in r.items() if k in cls.__dataclass_fields__})
+        if "static_ranges" in kw:
+            kw["static_ranges"] = tuple(dict(x) for x in kw["static_ranges"])
+        kw["station"] = cfg.get("station", {}).get("name", "station")
+        return cls(**kw)
+
+    def replace(self, **kw) -> "Settings":
+        return Settings(**{**self.__dict__, **kw})
+
+
+# ------------------------------------------------------------------------------------
+# Incremental connected components
+# ------------------------------------------------------------------------------------
+
+@dataclass
+class Component:
+    """Pixels of one finished event: absolute rows and columns, and field values there."""
+
+    rows: np.ndarray
+    cols: np.ndarray
+    values: dict
+    forced: bool = False
+
+
+class _Tracker:
+    """Connected components of a growing mask, emitted once no later row can change them.
+
+    Rows are pushed in order. Components of the ``grow`` mask that contain a ``seed``
+    cell are kept; kept components within ``gap_rows`` in time whose column ranges
+    overlap (within ``merge_cols``) form one event. A group is finished when its last
+    row is more than ``gap_rows`` before the newest row, or forced out once it spans
+    ``max_rows``. Finished pixels leave the buffer, so memory holds only open events.
+    """
+
+    def __init__(self, n_cols: int, gap_rows: int, merge_cols: int, max_rows: int, fields: tuple):
+        self.n_cols = n_cols
+        self.gap = max(0, int(gap_rows))
+        self.merge_cols = max(0, int(merge_cols))
+        self.max_rows = max(1, int(max_rows))
+        self.names = fields
+        self.row0 = 0
+        self.grow = np.zeros((0, n_cols), dtype=bool)
+        self.seed = np.zeros((0, n_cols), dtype=bool)
+        self.vals = {k: np.zeros((0, n_cols), dtype=np.float32) for k in fields}
+
+    def push(self, grow: np.ndarray, seed: np.ndarray, values: dict, final: bool = False) -> list[Component]:
+        self.grow = np.concatenate([self.grow, grow & (True)], axis=0)
+        self.seed = np.concatenate([self.seed, seed & grow], axis=0)
+        for k in self.names:
+            self.vals[k] = np.concatenate([self.vals[k], values[k].astype(np.float32)], axis=0)
+        return self._collect(final)
+
+    def finish(self) -> list[Component]:
+        return self._collect(final=True)
+
+    def _collect(self, final: bool) -> list[Component]:
+        n = self.grow.shape[0]
+        if n == 0:
+            return []
+        lab, nl = ndimage.label(self.grow, structure=np.ones((3, 3), dtype=bool))
+        out: list[Component] = []
+        if nl == 0:
+            self._trim(n if final else n - 1)
+            return out
+        objs = ndimage.find_objects(lab)
+        r0 = np.array([o[0].start for o in objs]); r1 = np.array([o[0].stop for o in objs])
+        c0 = np.array([o[1].start for o in objs]); c1 = np.array([o[1].stop for o in objs])
+        seeded = ndimage.maximum(self.seed, lab, index=np.arange(1, nl + 1)).astype(bool)
+        touching = r1 >= n   # may still grow into the next row
+        drop = ~seeded & (~touching | final)
+        keep_idx = np.flatnonzero(seeded)
+        groups = self._groups(r0[keep_idx], r1[keep_idx], c0[keep_idx], c1[keep_idx])
+        remove = list(np.flatnonzero(drop))
+        for g in groups:
+            members = keep_idx[g]
+            g_start, g_end = r0[members].min(), r1[members].max() - 1
+            done = final or g_end < n - 1 - self.gap
+            forced = not done and (n - g_start) >= self.max_rows
+            if not (done or forced):
+                continue
+            rows, cols = [], []
+            for m in members:
+                sl = objs[m]
+                rr, cc = np.nonzero(lab[sl] == m + 1)
+                rows.append(rr + sl[0].start); cols.append(cc + sl[1].start)
+            rows = np.concatenate(rows); cols = np.concatenate(cols)
+            order = np.lexsort((cols, rows))
+            rows, cols = rows[order], cols[order]
+            vals = {k: self.vals[k][rows, cols] for k in self.names}
+            out.append(Component(rows + self.row0, cols, vals, forced=forced))
+            remove.extend(members)
+        for m in remove:
+            sl = objs[m]
+            sub = lab[sl] == m + 1
+            self.grow[sl][sub] = False
+            self.seed[sl][sub] = False
+        if final:
+            self._trim(n)
+        else:
+            still = self.grow.any(axis=1)
+            first = int(np.argmax(still)) if still.any() else n - 1
+            self._trim(min(first, n - 1))
+        out.sort(key=lambda c: (int(c.rows.min()), int(c.cols.min())))
+        return out
+
+    def _groups(self, r0, r1, c0, c1) -> list[np.ndarray]:
+        k = len(r0)
+        if k == 0:
+            return []
+        if k == 1:
+            return [np.array([0])]
+        gap_t = np.maximum(r0[:, None] - r1[None, :], r0[None, :] - r1[:, None])   # rows between
+        ov_f = (c0[:, None] <= c1[None, :] - 1 + self.merge_cols) & (c0[None, :] <= c1[:, None] - 1 + self.merge_cols)
+        adj = (gap_t <= self.gap) & ov_f
+        ii, jj = np.nonzero(np.triu(adj, 1))
+        graph = coo_matrix((np.ones(len(ii)), (ii, jj)), shape=(k, k))
+        ncomp, labels = connected_components(graph, directed=False)
+        return [np.flatnonzero(labels == i) for i in range(ncomp)]
+
+    def _trim(self, start: int):
+        if start <= 0:
+            return
+        self.grow = self.grow[start:]
+        self.seed = self.seed[start:]
+        for k in self.names:
+            self.vals[k] = self.vals[k][start:]
+        self.row0 += start
+
+
+# ------------------------------------------------------------------------------------
+# Features
+# ------------------------------------------------------------------------------------
+
+def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
+              cadence_s: float) -> dict:
+    """Drift rate from a weighted fit of arrival time against frequency.
+
+    Cells are binned in frequency (``bin_mhz``); each bin's arrival time is the
+    excess-weighted mean of its cells' true times. A line t = a + s (f - fc) (a
+    quadratic when the bins span more than 2 MHz, so the slope is the local one at the
+    centre fc) is fitted by weighted least squares with the bins' total weights; the
+    slope's error comes from the residual scatter. Drift = 1/s MHz/s, error s_err/s^2.
+    ``resolved`` is False when the arrival spread across the band is under half a
+    time step or under three standard errors: then the event is simultaneous at this
+    resolution (drift None).
+    """
+    out = {"drift": None, "drift_err": None, "dtdf": 0.0, "dtdf_err": math.inf,
+           "resolved": False, "spread_s": 0.0, "n_bins": 0}
+    w = np.clip(np.asarray(w, dtype=np.float64), 0, None)
+    if w.sum() <= 0:
+        return out
+    b = np.floor((f_mhz - f_mhz.min()) / max(bin_mhz, 1e-9)).astype(np.int64)
+    nb = int(b.max()) + 1
+    W = np.bincount(b, weights=w, minlength=nb)
+    ok = W > 0
+    if ok.sum() < 3:
+        out["n_bins"] = int(ok.sum())
+        return out
+    tb = np.bincount(b, weights=w * t, minlength=nb)[ok] / W[ok]
+    fb = np.bincount(b, weights=w * f_mhz, minlength=nb)[ok] / W[ok]
+    Wb = W[ok] / W[ok].mean()
+    fc = float(np.sum(Wb * fb) / np.sum(Wb))
+    x = fb - fc
+    span = float(np.ptp(fb))
+    deg = 2 if (span > 2.0 and len(fb) >= 8) else 1
+    A = np.stack([x ** k for k in range(deg + 1)], axis=1)
+    AtW = A.T * Wb
+    try:
+        cov0 = np.linalg.inv(AtW @ A)
+    except np.linalg.LinAlgError:
+        return out
+    coef = cov0 @ (AtW @ tb)
+    resid = tb - A @ coef
+    dof = max(len(tb) - (deg + 1), 1)
+    s2 = float(np.sum(Wb * resid ** 2) / dof)
+    # Arrival times are quantised by the time step: never claim better than that.
+    s2 = max(s2, cadence_s ** 2 / 12.0 / max(len(tb), 1))
+    s_err = math.sqrt(max(cov0[1, 1] * s2, 0.0))
+    s = float(coef[1])
+    spread = abs(s) * span
+    out.update(dtdf=s, dtdf_err=s_err, spread_s=spread, n_bins=int(len(tb)))
+    if spread >= 0.5 * cadence_s and abs(s) >= 3.0 * s_err and s != 0.0:
+        out.update(drift=1.0 / s, drift_err=s_err / s ** 2, resolved=True)
+    return out
+
+
+def _row_runs_median(rows: np.ndarray, cols: np.ndarray) -> float:
+    """Median over channels of the longest run of consecutive rows of the event there."""
+    order = np.lexsort((rows, cols))
+    r, c = rows[order], cols[order]
+    new = np.ones(len(r), dtype=bool)
+    new[1:] = (c[1:] != c[:-1]) | (r[1:] != r[:-1] + 1)
+    run_id = np.cumsum(new) - 1
+    run_len = np.bincount(run_id)
+    run_col = c[new]
+    longest = np.zeros(int(c.max()) + 1, dtype=np.int64)
+    np.maximum.at(longest, run_col, run_len)
+    return float(np.median(longest[np.unique(c)]))
+
+
+# ------------------------------------------------------------------------------------
+# Classification
+# ------------------------------------------------------------------------------------
+
+def classify(f: dict, s: Settings) -> tuple[str, float, str]:
+    """Rule-based class, confidence (0-1) and a one-line reason from features and context.
+
+    ``f`` holds the measured features (see ``_features``) and the context: sun_alt,
+    jupiter_alt, source_region (None when no ephemeris), band_mhz (covered band width)
+    and cadence_s. Rules and their thresholds:
+    Type III -- resolved negative drift within a factor TYPE3_FACTOR of Alvarez & Haddock
+    1973 at the event's centre frequency, seconds at fixed frequency, Sun up;
+    Type II -- drift in TYPE2_DRIFT, a minute or more long; Type IV -- long (10 min or
+    more) broadband (half the band or more) positive continuum, Sun up; fadeout --
+    band-wide drop with the Sun up; Jovian L -- Jupiter up, the rest of the morphology
+    natural (in an Io source region raises the confidence); rfi -- impulsive (every
+    channel at once for a time step or two), swept narrowband lines (ionosonde chirps,
+    any upward drift), narrowband signals, or persistent non-Gaussian spectral kurtosis.
+    """
+    sun, jup, region = f.get("sun_alt"), f.get("jupiter_alt"), f.get("source_region")
+    sun_up = None if sun is None else sun > s.sun_up_deg
+    jup_up = None if jup is None else jup > s.jupiter_up_deg
+    fc = f["fc_mhz"]
+    bw, band = f["bandwidth_mhz"], max(f["band_mhz"], 1e-6)
+    cad = f["cadence_s"]
+    drift = f["drift"]
+    sun_txt = "" if sun is None else (f"Sun up ({sun:.0f}°)" if sun_up else f"Sun down ({sun:.0f}°)")
+    jup_txt = "" if jup is None else (f"Jupiter up ({jup:.0f}°)" if jup_up else f"Jupiter down ({jup:.0f}°)")
+
+    def why(*parts):
+        return "; ".join(p for p in parts if p)
+
+    # -- long events from the slow path ---------------------------------------------
+    if f["path"] == "slow":
+        depth = f["peak_excess_db"]
+        if f["sign"] < 0:
+            if bw >= 0.5 * band:
+                if sun_up:
+                    return "fadeout", 0.8, why(f"band-wide drop of {-depth:.1f} dB over {f['span_s'] / 60:.0f} min", sun_txt)
+                if sun_up is None:
+                    return "fadeout", 0.4, why(f"band-wide drop of {-depth:.1f} dB over {f['span_s'] / 60:.0f} min",
+                                               "Sun altitude unknown")
+                return "unknown", 0.5, why(f"band-wide drop of {-depth:.1f} dB", sun_txt, "not a fadeout at night")
+            return "unknown", 0.4, why(f"drop of {-depth:.1f} dB over {bw:.1f} MHz only", "not band-wide")
+        long_bb = f["span_s"] >= 600.0 and bw >= 0.5 * band
+        if long_bb and sun_up and not (f["bursty"] and jup_up):
+            return "solar_iv", 0.7, why(f"broadband continuum {depth:.1f} dB over {bw:.1f} MHz "
+                                        f"for {f['span_s'] / 60:.0f} min", sun_txt)
+        if jup_up:
+            conf = 0.75 if region else 0.55
+            return "jovian_l", conf, why(f"storm {depth:.1f} dB over {bw:.1f} MHz for {f['span_s'] / 60:.0f} min",
+                                         jup_txt, f"in {region}" if region else "outside the Io source regions")
+        if long_bb and sun_up is None:
+            return "solar_iv", 0.35, why(f"broadband continuum for {f['span_s'] / 60:.0f} min", "no ephemeris")
+        return "unknown", 0.4, why(f"enhancement {depth:.1f} dB over {bw:.1f} MHz for {f['span_s'] / 60:.0f} min",
+                                   sun_txt, jup_txt)
+
+    # -- interference morphology -------------------------------------------------------
+    run = f["run_s"]
+    if f["sk_fraction"] is not None and f["sk_fraction"] >= 0.5 and bw < 0.5 * band:
+        return "rfi", 0.8, f"non-Gaussian (spectral kurtosis) in {100 * f['sk_fraction']:.0f}% of cells, {bw:.2f} MHz wide"
+    if bw <= max(0.1, 3 * f["chan_mhz"]):
+        return "rfi", 0.8, f"narrowband signal ({1000 * bw:.0f} kHz wide) for {f['span_s']:.0f} s"
+    # An impulse covers every channel of the event at once for a step or two; decide only
+    # where a Type III would have been resolved as a drift at this time step.
+    ah_spread = bw / abs(float(ah_drift(fc)))
+    if (not f["resolved"] and run <= max(2 * cad, 2.0) and f["full_rows"] >= 0.8
+            and bw >= 0.5 * band and ah_spread >= 2 * cad):
+        return "rfi", 0.85, (f"impulsive: {bw:.1f} MHz at once, {run:.1f} s at fixed frequency, no drift"
+                             + (f", {f['n_rows']} steps over {f['span_s']:.0f} s" if f["span_s"] > 3 * cad else ""))
+    if f["resolved"] and run <= max(3 * cad, 2.0) and f["inst_bw_mhz"] * 5 <= bw and abs(drift) < 1.5:
+        return "rfi", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)"
+    if f["resolved"] and drift > 0:
+        return "rfi", 0.6, f"upward drift {drift:+.2f} MHz/s: natural bursts here drift down"
+
+    # -- natural bursts ----------------------------------------------------------------
+    if f["resolved"] and drift < 0:
+        law = float(ah_drift(fc))
+        ratio = drift / law
+        if 1 / TYPE3_FACTOR <= ratio <= TYPE3_FACTOR and run <= 20.0:
+            match = f"drift {drift:.1f} MHz/s matches Type III law ({law:.1f}) at {fc:.0f} MHz"
+            closeness = 1.0 - abs(math.log(ratio)) / math.log(TYPE3_FACTOR)
+            if sun_up:
+                return "solar_iii", round(0.6 + 0.35 * closeness, 2), why(match, sun_txt)
+            if sun_up is None:
+                return "solar_iii", round(0.3 + 0.3 * closeness, 2), why(match, "no ephemeris")
+            if not jup_up:
+                return "unknown", 0.4, why(match, sun_txt)
+        if (f["cadence_s"] <= SBURST_MAX_CADENCE_S and SBURST_DRIFT[0] <= drift <= SBURST_DRIFT[1]
+                and run <= 0.05 and jup_up is not False):
+            return "jovian_s", 0.7 if jup_up else 0.4, why(f"millisecond burst drifting {drift:.1f} MHz/s", jup_txt)
+        if TYPE2_DRIFT[0] / TYPE3_FACTOR <= drift <= TYPE2_DRIFT[1] and f["span_s"] >= 60.0:
+            txt = f"slow drift {drift:.2f} MHz/s over {f['span_s'] / 60:.1f} min (Type II range)"
+            if sun_up:
+                return "solar_ii", 0.7, why(txt, sun_txt)
+            if sun_up is None:
+                return "solar_ii", 0.35, why(txt, "no ephemeris")
+    if jup_up:
+        conf = 0.7 if region else 0.5
+        if sun_up:
+            conf -= 0.15
+        shape = (f"drift {drift:.1f} MHz/s" if f["resolved"] else "no coherent drift")
+        return "jovian_l", round(conf, 2), why(f"{bw:.1f} MHz, {run:.0f} s at fixed frequency, {shape}", jup_txt,
+                                               f"in {region}" if region else "outside the Io source regions")
+    desc = f"{bw:.1f} MHz, {f['span_s']:.0f} s" + (f", drift {drift:.2f} MHz/s" if f["resolved"] else ", no drift")
+    return "unknown", 0.3, why(desc, sun_txt, jup_txt)
+
+
+# ------------------------------------------------------------------------------------
+# One segment
+# ------------------------------------------------------------------------------------
+
+@dataclass
+class _Block:
+    power: np.ndarray
+    flags: np.ndarray
+    sk: np.ndarray | None
+    t0: float
+
+
+class _Segment:
+    """The detector's state for one segment; see the module docstring for the stages."""
+
+    def __init__(self, s: Settings, spec: DynamicSpectrum, mask_sink=None):
+        self.s = s
+        self.name = spec.segment
+        self.t0 = float(spec.t0)
+        self.cadence = float(spec.cadence_s)
+        self.freq = np.asarray(spec.freq_hz, dtype=np.float64)
+        self.f_mhz = self.freq / 1e6
+        self.offsets = np.asarray(spec.chan_offset_s, dtype=np.float64)
+        self.n_chan = len(self.freq)
+        self.chan_mhz = float(np.median(np.abs(np.diff(self.f_mhz)))) if self.n_chan > 1 else 1.0
+        self.mask_sink = mask_sink
+        cad = self.cadence
+        self.R = max(1, int(round(s.block_s / cad)))
+        self.block_s = self.R * cad
+        self.W = max(1, int(round(s.fast_window_s / self.block_s / 2)))
+        self.half_slow = max(2, int(round(s.slow_window_s / self.block_s / 2)))
+        self.T = min(self.R, max(1, int(round(s.smooth_time_s / cad))))
+        self.F = max(1, int(round(s.smooth_freq_mhz / self.chan_mhz)))
+        self.cw = max(1, int(round(s.carrier_width_mhz / self.chan_mhz)))
+        self.st_f = max(1, int(s.sumthreshold_max_mhz / self.chan_mhz))
+        self.st_t = max(1, int(s.sumthreshold_max_s / cad))
+        self.groups = bg.coarse_groups(self.freq, s.slow_freq_mhz)
+        self.n_groups = int(self.groups.max()) + 1
+        self.carriers = rfi.CarrierMemory(self.n_chan, self.block_s, s.carrier_memory_s, s.carrier_fraction)
+        self.next_t = self.t0
+        self.pending: list[DynamicSpectrum] = []
+        self.pending_rows = 0
+        self.blocks: dict[int, _Block] = {}
+        self.level: dict[int, np.ndarray] = {}
+        self.sigma: dict[int, np.ndarray] = {}
+        self.chan_mask: dict[int, np.ndarray] = {}
+        self.fast: dict[int, tuple] = {}
+        self.stage_m: dict[int, dict] = {}
+        self.coarse: dict[int, np.ndarray] = {}
+        self.n_blocks = 0          # blocks cut so far
+        self.next_fast = 0
+        self.next_m = 0
+        self.next_s = 0
+        self.next_slow = 0
+        self.has_sk = spec.kurtosis is not None
+        fields = ("ex", "sig", "raw", "sk")
+        self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
+                             round(s.max_event_s / cad), fields)
+        slow_fields = ("ex", "sig")
+        gap_b = max(1, int(round(s.merge_gap_s / self.block_s)))
+        self.slow_pos = _Tracker(self.n_groups, gap_b, 1, 10 ** 9, slow_fields)
+        self.slow_neg = _Tracker(self.n_groups, gap_b, 1, 10 ** 9, slow_fields)
+        self.quality: dict[float, list[float]] = {}
+        # covered band from channels that ever carry data
+        self.covered = np.zeros(self.n_chan, dtype=bool)
+
+    # -- input -----------------------------------------------------------------------
+    def accepts(self, spec: DynamicSpectrum) -> bool:
+        return (spec.segment == self.name and spec.n_chan == self.n_chan
+                and abs(spec.cadence_s - self.cadence) < 1e-9 * max(1.0, self.cadence)
+                and np.array_equal(spec.freq_hz, self.freq)
+                and abs(spec.t0 - self.next_t) <= 0.25 * self.cadence)
+
+    def add(self, spec: DynamicSpectrum) -> list:
+        self.pending.append(spec)
+        self.pending_rows += spec.n_time
+        self.next_t = spec.t_end
+        out = []
+        while self.pending_rows >= self.R:
+            self._cut_block(self.R)
+            out += self._advance(final=False)
+        return out
+
+    def finish(self) -> list:
+        out = []
+        if self.pending_rows > 0:
+            self._cut_block(self.pending_rows)
+        out += self._advance(final=True)
+        out += [("fine", c) for c in self.fine.finish()]
+        out += [("slow+", c) for c in self.slow_pos.finish()]
+        out += [("slow-", c) for c in self.slow_neg.finish()]
+        return out
+
+    def _cut_block(self, n: int):
+        parts, need = [], n
+        while need > 0:
+            sp = self.pending[0]
+            take = min(need, sp.n_time)
+            parts.append((sp.power_db[:take], sp.flags[:take], None if sp.kurtosis is None else sp.kurtosis[:take]))
+            if take == sp.n_time:
+                self.pending.pop(0)
+            else:
+                self.pending[0] = sp.slice_rows(take, sp.n_time)
+            need -= take
+        self.pending_rows -= n
+        power = np.concatenate([p[0] for p in parts]).astype(np.float32)
+        flags = np.concatenate([p[1] for p in parts])
+        sk = None
+        if self.has_sk and all(p[2] is not None for p in parts):
+            sk = np.concatenate([p[2] for p in parts]).astype(np.float32)
+        j = self.n_blocks
+        self.blocks[j] = _Block(power, flags, sk, self.t0 + j * self.block_s)
+        self._block_stats(j)
+        self.n_blocks += 1
+
+    # -- stage A: block statistics and per-block channel masks ------------------------
+    def _static(self, j: int, n: int) -> np.ndarray:
+        if not self.s.static_ranges:
+            return np.zeros((n, self.n_chan), dtype=bool)
+        times = self.blocks[j].t0 + self.cadence * np.arange(n)
+        return rfi.static_mask(list(self.s.static_ranges), self.freq, times)
+
+    def _block_stats(self, j: int):
+        b = self.blocks[j]
+        n = b.power.shape[0]
+        good = ((b.flags & BAD_FLAGS) == 0) & np.isfinite(b.power)
+        self.covered |= good.any(axis=0)
+        base = good & ~self._static(j, n)
+        level, sigma = bg.block_stats(b.power, base)
+        # Carriers: block level against its neighbours, in units of the level's own noise
+        # (the median of n cells has sigma ~ 1.2533 sigma_cell / sqrt(n) for Gaussian noise).
+        nvalid = np.maximum(base.sum(axis=0), 1)
+        lvl_sigma = 1.2533 * sigma / np.sqrt(nvalid)
+        car = rfi.carrier_channels(level, lvl_sigma, self.cw, self.s.carrier_sigma)
+        cmask = self.carriers.update(car)
+        if b.sk is not None:
+            skf = rfi.kurtosis_flags(b.sk, base, self.s.kurtosis_sigma)
+            persistent = skf.sum(axis=0) > 0.5 * np.maximum(base.sum(axis=0), 1)
+            cmask = cmask | persistent
+        self.chan_mask[j] = cmask
+        self.level[j] = np.where(cmask, np.nan, level).astype(np.float32)
+        self.sigma[j] = sigma
+        self.coarse[j] = bg.coarse_levels(self.level[j], self.groups, self.n_groups)
+
+    # -- scheduling ------------------------------------------------------------------
+    def _advance(self, final: bool) -> list:
+        out = []
+        nb = self.n_blocks
+        # fast background of block j needs blocks up to j + W
+        while self.next_fast < nb and (final or self.next_fast + self.W < nb):
+            j = self.next_fast
+            lo, hi = max(0, j - self.W), min(nb, j + self.W + 1)
+            self.fast[j] = (bg.fast_level(np.stack([self.level[k] for k in range(lo, hi)])),
+                            bg.nanmedian(np.stack([self.sigma[k] for k in range(lo, hi)]), axis=0))
+            self.next_fast += 1
+        # stage M(j) needs the fast level of j + 1 (or the end)
+        while self.next_m < self.next_fast and (final or self.next_m + 1 < self.next_fast):
+            self._stage_m(self.next_m, last=(final and self.next_m + 1 >= nb))
+            self.next_m += 1
+        # stage S(j) needs M(j + 1)
+        while self.next_s < self.next_m and (final or self.next_s + 1 < self.next_m):
+            out += [("fine", c) for c in self._stage_s(self.next_s)]
+            self.next_s += 1
+        # slow path of block k needs coarse levels up to k + half window
+        while self.next_slow < nb and (final or self.next_slow + self.half_slow < nb):
+            out += self._slow(self.next_slow, nb)
+            self.next_slow += 1
+        self._forget()
+        return out
+
+    def _forget(self):
+        for d, keep_from in ((self.blocks, self.next_m), (self.stage_m, self.next_s - 1),
+                             (self.fast, self.next_m - 1), (self.chan_mask, self.next_m),
+                             (self.sigma, self.next_fast - self.W), (self.level, self.next_fast - self.W),
+                             (self.coarse, self.next_slow - self.half_slow)):
+            for k in [k for k in d if k < keep_from]:
+                del d[k]
+
+    # -- stage M: excess, noise units and the cell mask for one block ------------------
+    def _stage_m(self, j: int, last: bool):
+        s = self.s
+        b = self.blocks[j]
+        n = b.power.shape[0]
+        here, sig_c = self.fast[j]
+        prev = self.fast[j - 1][0] if j - 1 in self.fast else here
+        nxt = self.fast[j + 1][0] if (j + 1) in self.fast else here
+        prev = np.where(np.isfinite(prev), prev, here)
+        nxt = np.where(np.isfinite(nxt), nxt, here)
+        base = bg.interpolate_blocks(prev, here, nxt, n, self.R)
+        data = ((b.flags & BAD_FLAGS) == 0) & np.isfinite(b.power)
+        good = data & np.isfinite(base)
+        static = self._static(j, n)
+        masked = static | self.chan_mask[j][None, :]
+        excess = (b.power - base).astype(np.float32)
+        sigma = np.where(np.isfinite(sig_c) & (sig_c > 0), sig_c, np.inf).astype(np.float32)
+        z = np.where(good, excess / sigma, 0.0).astype(np.float32)
+        w = good & ~masked
+        # SumThreshold on the narrowband residual where the neighbourhood is quiet.
+        mean, count = rfi.neighbour_mean(z, w, self.cw)
+        quiet = mean * np.sqrt(np.maximum(count, 1.0)) < s.grow_sigma
+        hp = np.where(w & quiet, z - mean, 0.0)
+        st = rfi.sum_threshold(hp, np.zeros_like(w), 1, s.sumthreshold_chi1, self.st_f)
+        st = rfi.sum_threshold(hp, st, 0, s.sumthreshold_chi1, self.st_t)
+        st &= w
+        w &= ~st
+        sk_anom = np.zeros_like(w)
+        if b.sk is not None:
+            sk_anom = rfi.kurtosis_flags(b.sk, good, s.kurtosis_sigma)
+        rfi_cells = data & (masked | st)
+        flags = b.flags | np.where(rfi_cells, FLAG_RFI, 0).astype(np.uint8)
+        if self.mask_sink is not None:
+            self.mask_sink(self.name, b.t0, flags)
+        times = b.t0 + self.cadence * np.arange(n)
+        for h, v in rfi.hour_quality(times, flags, self.cadence).items():
+            acc = self.quality.setdefault(h, [0.0, 0.0, 0.0, 0.0])
+            for i in range(4):
+                acc[i] += v[i]
+        self.stage_m[j] = {"z": np.where(w, z, 0.0).astype(np.float32), "w": w.astype(np.float32),
+                           "ex": np.where(w, excess, 0.0).astype(np.float32), "sk": sk_anom, "n": n}
+
+    # -- stage S: smoothing, hysteresis, components for one block -------------------
+    def _stage_s(self, j: int) -> list[Component]:
+        s = self.s
+        m = self.stage_m[j]
+        n = m["n"]
+        before = self.T // 2
+        after = self.T - 1 - before
+
+        def ctx(key):
+            parts = []
+            p = self.stage_m.get(j - 1)
+            if before:
+                if p is not None and p["n"] >= before:
+                    parts.append(p[key][-before:])
+                else:
+                    parts.append(np.zeros((before, self.n_chan), dtype=np.float32))
+            parts.append(m[key])
+            q = self.stage_m.get(j + 1)
+            if after:
+                if q is not None and q["n"] >= after:
+                    parts.append(q[key][:after])
+                else:
+                    parts.append(np.zeros((after, self.n_chan), dtype=np.float32))
+            return np.concatenate(parts, axis=0)
+
+        zw, w, ew = ctx("z"), ctx("w"), ctx("ex")
+
+        def box(x):
+            y = ndimage.uniform_filter1d(x, self.F, axis=1, mode="constant")
+            if self.T > 1:
+                y = ndimage.uniform_filter1d(y, self.T, axis=0, mode="constant", origin=0)
+            return y[before:before + n]
+
+        nbox = self.F * self.T
+        num, den, exs = box(zw), box(w), box(ew)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sig = np.where(den > 0, num * math.sqrt(nbox) / np.sqrt(den), 0.0).astype(np.float32)
+            ex_s = np.where(den > 0, exs / den, 0.0).astype(np.float32)
+        # Correlated noise (overlapping windows, resampled grids) widens the smoothed
+        # distribution: rescale by its robust width, never below the independent case.
+        wc = m["w"][:, ::4] > 0
+        if wc.sum() > 100:
+            scale = bg.MAD_TO_SIGMA * float(np.median(np.abs(sig[:, ::4][wc])))
+            sig /= min(max(scale, 1.0), 4.0)
+        enough = den * nbox >= 0.25 * nbox
+        grow = (sig >= s.grow_sigma) & enough
+        seed = grow & (sig >= s.seed_sigma) & (ex_s >= s.min_peak_db)
+        comps = self.fine.push(grow, seed, {"ex": ex_s, "sig": sig, "raw": m["ex"],
+                                            "sk": m["sk"].astype(np.float32)})
+        # rows were appended at absolute offset j * R; the tracker counts from 0 in order
+        return comps
+
+    # -- slow path -------------------------------------------------------------------
+    def _slow(self, k: int, nb: int) -> list:
+        s = self.s
+        lo, hi = max(0, k - self.half_slow), min(nb, k + self.half_slow + 1)
+        ks = np.arange(lo, hi)
+        y = np.stack([self.coarse[i] for i in ks])
+        base, scatter = bg.robust_quadratic(ks.astype(np.float64), y, float(k), s.slow_grow_db, s.slow_grow_sigma)
+        e = self.coarse[k] - base
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sg = np.where(scatter > 0, e / scatter, 0.0)
+        e = np.nan_to_num(e).astype(np.float32)[None, :]
+        sg = np.nan_to_num(sg).astype(np.float32)[None, :]
+        out = []
+        for sign, tracker, tag in ((1, self.slow_pos, "slow+"), (-1, self.slow_neg, "slow-")):
+            es, ss = sign * e, sign * sg
+            grow = (es >= s.slow_grow_db) & (ss >= s.slow_grow_sigma)
+            seed = grow & (es >= s.slow_seed_db) & (ss >= s.slow_seed_sigma)
+            out += [(tag, c) for c in tracker.push(grow, seed, {"ex": e, "sig": sg})]
+        return out
+
+    # -- features ----------------------------------------------------------------------
+    def features(self, kind: str, c: Component) -> dict | None:
+        if kind == "fine":
+            return self._fine_features(c)
+        return self._slow_features(c, 1 if kind == "slow+" else -1)
+
+    def band_mhz(self) -> float:
+        cov = np.flatnonzero(self.covered)
+        if len(cov) == 0:
+            return 0.0
+        return float(self.f_mhz[cov[-1]] - self.f_mhz[cov[0]] + self.chan_mhz)
+
+    def _fine_features(self, c: Component) -> dict | None:
+        cad = self.cadence
+        rows, cols = c.rows, c.cols
+        t = self.t0 + rows * cad + self.offsets[cols]
+        ex, raw = c.values["ex"], c.values["raw"]
+        ipk = int(np.argmax(ex))
+        fmin = float(self.f_mhz[cols.min()] - self.chan_mhz / 2)
+        fmax = float(self.f_mhz[cols.max()] + self.chan_mhz / 2)
+        d = fit_drift(t + cad / 2, self.f_mhz[cols], np.clip(raw, 0, None),
+                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad)
+        # Morphology from the half-maximum core: per row (instantaneous width, and whether
+        # the row spans nearly the whole event band at once, as an impulse does) and per
+        # channel (duration at fixed frequency).
+        bw = fmax - fmin
+        urows, inv = np.unique(rows, return_inverse=True)
+        row_pk = np.zeros(len(urows)); np.maximum.at(row_pk, inv, ex)
+        core = ex >= 0.5 * row_pk[inv]
+        rmin = np.full(len(urows), np.iinfo(np.int64).max); rmax = np.full(len(urows), -1)
+        np.minimum.at(rmin, inv[core], cols[core]); np.maximum.at(rmax, inv[core], cols[core])
+        width = (rmax - rmin + 1) * self.chan_mhz
+        rw = np.clip(row_pk, 0, None)
+        full_rows = float(np.sum(rw * (width >= 0.8 * bw)) / max(rw.sum(), 1e-12))
+        ucols, cinv = np.unique(cols, return_inverse=True)
+        col_pk = np.zeros(len(ucols)); np.maximum.at(col_pk, cinv, ex)
+        ccore = ex >= 0.5 * col_pk[cinv]
+        run = _row_runs_median(rows[ccore], cols[ccore])
+        lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
+        return {
+            "path": "fine", "sign": 1,
+            "start": float(t.min()), "end": float(t.max() + cad), "peak": float(t[ipk] + cad / 2),
+            "fmin": fmin, "fmax": fmax, "fc_mhz": 0.5 * (fmin + fmax),
+            "peak_excess_db": float(ex[ipk]), "snr": float(c.values["sig"].max()),
+            "integrated_excess": float(lin.sum() * cad * self.chan_mhz),
+            "run_s": run * cad,
+            "span_s": float(t.max() + cad - t.min()),
+            "bandwidth_mhz": bw, "inst_bw_mhz": float(np.median(width[rw >= 0.5 * rw.max()])),
+            "full_rows": full_rows, "n_rows": int(len(urows)),
+            "sk_fraction": float(np.mean(c.values["sk"] > 0)) if self.has_sk else None,
+            "bursty": False, **d,
+        }
+
+    def _slow_features(self, c: Component, sign: int) -> dict | None:
+        rows, cols = c.rows, c.cols
+        span_blocks = int(rows.max() - rows.min() + 1)
+        if span_blocks * self.block_s < self.s.slow_min_s:
+            return None
+        edges = np.flatnonzero(np.isin(self.groups, np.unique(cols)))
+        fmin = float(self.f_mhz[edges.min()] - self.chan_mhz / 2)
+        fmax = float(self.f_mhz[edges.max()] + self.chan_mhz / 2)
+        ex = c.values["ex"]
+        ipk = int(np.argmax(sign * ex))
+        start = self.t0 + rows.min() * self.block_s
+        end = self.t0 + (rows.max() + 1) * self.block_s
+        # "bursty": the excess changes a lot from block to block (L-burst storms) rather
+        # than rising and falling smoothly (continua).
+        prof = np.bincount(rows - rows.min(), weights=sign * ex) / np.maximum(np.bincount(rows - rows.min()), 1)
+        rough = float(np.median(np.abs(np.diff(prof))) / max(np.median(prof), 1e-6)) if len(prof) > 3 else 0.0
+        gmhz = self.s.slow_freq_mhz
+        lin = np.power(10.0, ex.astype(np.float64) / 10.0) - 1.0
+        return {
+            "path": "slow", "sign": sign,
+            "start": float(start), "end": float(end), "peak": float(self.t0 + (rows[ipk] + 0.5) * self.block_s),
+            "fmin": fmin, "fmax": fmax, "fc_mhz": 0.5 * (fmin + fmax),
+            "peak_excess_db": float(ex[ipk]), "snr": float(np.abs(c.values["sig"]).max()),
+            "integrated_excess": float(lin.sum() * self.block_s * gmhz),
+            "run_s": float(np.median(np.bincount(cols)[np.unique(cols)]) * self.block_s),
+            "span_s": float(end - start), "bandwidth_mhz": fmax - fmin, "inst_bw_mhz": fmax - fmin,
+            "full_rows": 1.0, "n_rows": span_blocks, "sk_fraction": None,
+            "bursty": rough > 0.3,
+            "drift": None, "drift_err": None, "dtdf": 0.0, "dtdf_err": math.inf, "resolved": False,
+            "spread_s": 0.0, "n_bins": 0,
+        }
+
+    def hours_before(self, t: float) -> list[tuple[float, list[float]]]:
+        done = [(h, v) for h, v in self.quality.items() if h + 3600.0 <= t]
+        for h, _ in done:
+            del self.quality[h]
+        return done
+
+
+# ------------------------------------------------------------------------------------
+# The public detector
+# ------------------------------------------------------------------------------------
+
+TagsFn = Callable[[np.ndarray], dict]
+
+
+def default_tags_fn(cfg) -> TagsFn | None:
+    """Ephemeris tags for this station, or None when the ephemeris module is missing."""
+    try:
+        from rxlog.ephemeris import station_tags
+    except ImportError:
+        return None
+    return lambda times: station_tags(cfg, np.asarray(times, dtype=np.float64))
+
+
+def _event_id(station: str, peak: float, fmin: float, fmax: float) -> str:
+    from rxlog.store import make_event_id
+    return make_event_id(station, peak, fmin, fmax)
+
+
+class OnlineDetector:
+    """Chunk-by-chunk detector with bounded memory.
+
+    ``feed(spec_chunk)`` takes the next rows (any number, in time order; a new segment
+    id, channel grid, cadence or a jump in time starts a new segment) and returns the
+    events finished so far; ``flush()`` ends the current segment and returns the rest.
+    ``pop_episodes()`` and ``pop_quality()`` return the episodes updated and the hourly
+    quality rows finished since the last call. Fine bursts come out a few minutes after
+    they end; long events half a slow window (``slow_window_s`` / 2) after.
+    """
+
+    def __init__(self, cfg, tags_fn: TagsFn | None = None, settings: Settings | None = None,
+                 mask_sink: Callable | None = None):
+        self.cfg = cfg
+        self.s = settings or Settings.from_config(cfg)
+        self.tags_fn = tags_fn if tags_fn is not None else default_tags_fn(cfg)
+        self.mask_sink = mask_sink
+        self.seg: _Segment | None = None
+        self._episodes: dict[str, dict] = {}
+        self._open: list[dict] = []   # open episodes
+        self._touched: set[str] = set()
+        self._quality: list[dict] = []
+
+    # -- feeding -----------------------------------------------------------------------
+    def feed(self, spec: DynamicSpectrum) -> list[dict]:
+        out = []
+        if spec.n_time == 0:
+            return out
+        if self.seg is not None and not self.seg.accepts(spec):
+            out += self._end_segment()
+        if self.seg is None:
+            self.seg = _Segment(self.s, spec, self.mask_sink)
+        out += self._events(self.seg.add(spec))
+        self._collect_quality(final=False)
+        return out
+
+    def flush(self) -> list[dict]:
+        out = self._end_segment()
+        for ep in self._open:
+            self._touched.add(ep["episode_id"])
+        self._open = []
+        return out
+
+    def _end_segment(self) -> list[dict]:
+        if self.seg is None:
+            return []
+        out = self._events(self.seg.finish())
+        self._collect_quality(final=True)
+        self.seg = None
+        return out
+
+    def pop_episodes(self) -> list[dict]:
+        eps = [dict(self._episodes[i]) for i in sorted(self._touched)]
+        self._touched.clear()
+        return eps
+
+    def pop_quality(self) -> list[dict]:
+        q, self._quality = self._quality, []
+        return q
+
+    def _collect_quality(self, final: bool):
+        seg = self.seg
+        if seg is None:
+            return
+        t = math.inf if final else seg.t0 + seg.next_m * seg.block_s
+        for h, (masked, cov, gap, covs) in sorted(seg.hours_before(t)):
+            self._quality.append({"station": self.s.station, "hour_utc": iso(h),
+                                  "masked_fraction": masked / cov if cov > 0 else None,
+                                  "gap_s": gap, "covered_s": covs})
+
+    # -- events ----------------------------------------------------------------------------
+    def _events(self, comps: list) -> list[dict]:
+        seg = self.seg
+        feats = []
+        for kind, c in comps:
+            f = seg.features(kind, c)
+            if f is not None:
+                feats.append(f)
+        if not feats:
+            return []
+        tags = self._tags(feats)
+        events = []
+        for i, f in enumerate(feats):
+            ctx = {k: tags[k][i] for k in tags} if tags else {}
+            f.update(sun_alt=ctx.get("sun_alt_deg"), jupiter_alt=ctx.get("jupiter_alt_deg"),
+                     source_region=ctx.get("source_region") or None, band_mhz=seg.band_mhz(),
+                     cadence_s=seg.cadence, chan_mhz=seg.chan_mhz)
+            cls, conf, reason = classify(f, self.s)
+            events.append(self._event_dict(f, ctx, cls, conf, reason))
+        events.sort(key=lambda e: e["peak_utc"])
+        for e in events:
+            self._assign_episode(e)
+        return events
+
+    def _tags(self, feats: list[dict]) -> dict | None:
+        if self.tags_fn is None:
+            return None
+        n = len(feats)
+        times = np.array([f["peak"] for f in feats] + [f["start"] for f in feats] + [f["end"] for f in feats])
+        raw = self.tags_fn(times)
+        out = {}
+        for k in ("sun_alt_deg", "jupiter_alt_deg", "source_region"):
+            if k in raw:
+                out[k] = list(np.asarray(raw[k])[:n])
+        for k in ("cml3_deg", "io_phase_deg"):
+            if k in raw:
+                v = np.asarray(raw[k], dtype=np.float64)
+                out[k], out[k.replace("_deg", "_start_deg")], out[k.replace("_deg", "_end_deg")] = \
+                    list(v[:n]), list(v[n:2 * n]), list(v[2 * n:])
+        return out
+
+    def _event_dict(self, f: dict, ctx: dict, cls: str, conf: float, reason: str) -> dict:
+        def num(x, nd=3):
+            return None if x is None or not np.isfinite(x) else round(float(x), nd)
+
+        e = {k: None for k in EVENT_FIELDS}
+        e.update(station=self.s.station,
+                 event_id=_event_id(self.s.station, f["peak"], f["fmin"], f["fmax"]),
+                 start_utc=iso(f["start"]), end_utc=iso(f["end"]), peak_utc=iso(f["peak"]),
+                 fmin_mhz=num(f["fmin"], 4), fmax_mhz=num(f["fmax"], 4),
+                 peak_excess_db=num(f["peak_excess_db"]), snr=num(f["snr"], 1),
+                 integrated_excess=num(f["integrated_excess"], 4),
+                 drift_mhz_s=num(f["drift"], 4), drift_err_mhz_s=num(f["drift_err"], 4),
+                 duration_s=num(f["run_s"], 2), bandwidth_mhz=num(f["bandwidth_mhz"], 4),
+                 confidence=round(float(min(max(conf, 0.0), 1.0)), 2), reason=reason)
+        e["class"] = cls
+        for k in ("cml3_deg", "io_phase_deg", "cml3_start_deg", "cml3_end_deg", "io_phase_start_deg",
+                  "io_phase_end_deg", "jupiter_alt_deg", "sun_alt_deg"):
+            if k in ctx and ctx[k] is not None:
+                e[k] = num(ctx[k], 2)
+        if ctx.get("source_region"):
+            e["source_region"] = str(ctx["source_region"])
+        return e
+
+    # -- episodes ---------------------------------------------------------------------------
+    def _assign_episode(self, e: dict):
+        from rxlog.timeutil import parse_iso
+        t0, t1 = parse_iso(e["start_utc"]), parse_iso(e["end_utc"])
+        gap = self.s.episode_gap_s
+        # episodes are closed once nothing later can join them (allowing for the slow path's delay)
+        horizon = t0 - gap - self.s.slow_window_s
+        still = []
+        for ep in self._open:
+            if ep["_t1"] < horizon:
+                self._touched.add(ep["episode_id"])
+            else:
+                still.append(ep)
+        self._open = still
+        for ep in self._open:
+            if ep["class"] == e["class"] and ep["_t0"] - gap <= t1 and t0 <= ep["_t1"] + gap:
+                break
+        else:
+            ep = {"episode_id": "ep-" + e["event_id"], "station": e["station"], "class": e["class"],
+                  "_t0": t0, "_t1": t1, "n_events": 0, "fmin_mhz": e["fmin_mhz"], "fmax_mhz": e["fmax_mhz"],
+                  "peak_excess_db": e["peak_excess_db"]}
+            self._open.append(ep)
+        ep["_t0"], ep["_t1"] = min(ep["_t0"], t0), max(ep["_t1"], t1)
+        ep["n_events"] += 1
+        ep["fmin_mhz"] = min(ep["fmin_mhz"], e["fmin_mhz"])
+        ep["fmax_mhz"] = max(ep["fmax_mhz"], e["fmax_mhz"])
+        if abs(e["peak_excess_db"] or 0) > abs(ep["peak_excess_db"] or 0):
+            ep["peak_excess_db"] = e["peak_excess_db"]
+        ep["start_utc"], ep["end_utc"] = iso(ep["_t0"]), iso(ep["_t1"])
+        self._episodes[ep["episode_id"]] = {k: v for k, v in ep.items() if not k.startswith("_")}
+        self._touched.add(ep["episode_id"])
+        e["episode_id"] = ep["episode_id"]
+
+
+@dataclass
+class DetectionResult:
+    events: list = field(default_factory=list)
+    episodes: list = field(default_factory=list)
+    quality_rows: list = field(default_factory=list)
+    mask: np.ndarray | None = None
+
+
+def detect_spectrum(cfg, spec: DynamicSpectrum, tags_fn: TagsFn | None = None,
+                    settings: Settings | None = None, chunk_s: float = 900.0) -> DetectionResult:
+    """Detect events in one dynamic spectrum (one segment) in one call.
+
+    Runs the online detector over the spectrum in chunks of ``chunk_s`` seconds (the
+    result does not depend on the chunk size) and returns the events, episodes, hourly
+    quality rows and the flags with FLAG_RFI set where the mask removed cells.
+    """
+    mask = spec.flags.copy()
+    row_of = {}
+
+    def sink(segment, t_block, flags):
+        i0 = int(round((t_block - spec.t0) / spec.cadence_s))
+        mask[i0:i0 + flags.shape[0]] = flags
+        row_of[i0] = True
+
+    det = OnlineDetector(cfg, tags_fn=tags_fn, settings=settings, mask_sink=sink)
+    step = max(1, int(round(chunk_s / spec.cadence_s)))
+    events = []
+    for i in range(0, spec.n_time, step):
+        events += det.feed(spec.slice_rows(i, min(i + step, spec.n_time)))
+    events += det.flush()
+    events.sort(key=lambda e: e["peak_utc"])
+    return DetectionResult(events=events, episodes=det.pop_episodes(), quality_rows=det.pop_quality(), mask=mask)
