@@ -3,5 +3,6 @@
 from rxlog.cli.base import main
 from rxlog.cli import station  # noqa: F401  (config check, prune, demo)
 from rxlog.cli import archive  # noqa: F401  (prune, ingest of FITS dynamic spectra)
+from rxlog.cli import review  # noqa: F401  (review, events, label)
 
 __all__ = ["main"]

@@ -1,0 +1,109 @@
+"""Morning review commands: the night report and its labelling page, event listings, labels."""
+
+from __future__ import annotations
+
+import getpass
+
+import click
+
+from rxlog.cli.base import station_command
+from rxlog.store import CLASSES, LABELS
+
+
+class _Progress:
+    """click progress bar on stderr, opened on the first report of progress."""
+
+    def __init__(self, label):
+        self.label, self.bar, self.done = label, None, 0
+
+    def __call__(self, done, total):
+        if self.bar is None:
+            self.bar = click.progressbar(length=total, label=self.label, file=click.get_text_stream("stderr"))
+            self.bar.__enter__()
+        self.bar.update(done - self.done)
+        self.done = done
+        if done >= total:
+            self.bar.__exit__(None, None, None)
+
+
+@station_command("review")
+@click.option("--night", metavar="YYYY-MM-DD", help="Local date on which the night begins (noon to noon). "
+              "Default: the latest complete night with data.")
+@click.option("--serve", is_flag=True, help="After writing the report, serve it with labelling until Ctrl-C.")
+@click.option("--port", type=click.IntRange(0, 65535), default=8765, show_default=True, help="Port for --serve.")
+@click.option("--host", default="127.0.0.1", show_default=True,
+              help="Address for --serve; anything but loopback needs --allow-remote and --access-token.")
+@click.option("--allow-remote", is_flag=True, help="Allow --host to be a non-loopback address.")
+@click.option("--access-token", envvar="RXLOG_REVIEW_TOKEN", metavar="TEXT",
+              help="Secret every visitor must present (?key=TEXT); required with --allow-remote. "
+                   "Default: $RXLOG_REVIEW_TOKEN.")
+def review(cfg, night, serve, port, host, allow_remote, access_token):
+    """Write the morning report of one night and print its summary; --serve to label events.
+
+    The report folder (under the storage root's reports/) holds index.html with the
+    plots beside it; it opens from disk and can be copied elsewhere. With --serve the
+    page on http://127.0.0.1:PORT/ saves labels to the event store as you choose them
+    (keys: j/k step, 1..0 label, n note).
+
+    \b
+    Example:
+      rxlog review --config station.toml
+      rxlog review --config station.toml --night 2027-02-03 --serve --port 8765
+    """
+    from rxlog.report import build_report, default_night, parse_night
+    from rxlog.review_server import serve_review
+
+    chosen = parse_night(cfg, night) if night else default_night(cfg)
+    index = build_report(cfg, chosen, progress=_Progress(f"reading the night of {chosen.name}"))
+    click.echo((index.parent / "summary.txt").read_text(encoding="utf-8").rstrip())
+    click.echo(f"report: {index}")
+    if serve:
+        def ready(srv):
+            url = srv.url + (f"?key={access_token}" if srv.access_token else "")
+            click.echo(f"review page: {url}  (Ctrl-C to stop)")
+
+        serve_review(cfg, chosen, host=host, port=port, allow_remote=allow_remote,
+                     access_token=access_token, ready=ready)
+
+
+@station_command("events")
+@click.option("--night", metavar="YYYY-MM-DD", help="Only this night (local noon to noon). Default: all events.")
+@click.option("--class", "cls", type=click.Choice(CLASSES), help="Only events of this detected class.")
+@click.option("--unlabelled", is_flag=True, help="Only events nobody has labelled yet.")
+def events(cfg, night, cls, unlabelled):
+    """List stored events as a table (local times), oldest first.
+
+    \b
+    Example:
+      rxlog events --config station.toml --night 2027-02-03 --class jovian_l --unlabelled
+    """
+    from rxlog.report import event_table
+
+    click.echo(event_table(cfg, night=night, cls=cls, unlabelled=unlabelled))
+
+
+@station_command("label")
+@click.argument("event_id")
+@click.argument("label", metavar="LABEL", type=click.Choice(LABELS))
+@click.option("--note", default="", help="Free text kept with the label.")
+@click.option("--who", default=None, help="Who labels (default: your login name).")
+def label(cfg, event_id, label, note, who):
+    """Label one event (a class, 'noise' for nothing real, or 'unsure'); earlier labels stay in its history.
+
+    \b
+    Example:
+      rxlog label --config station.toml birchwater-20270203T0412305-18.250 jovian_l --note "clear arc"
+    """
+    from rxlog.store import EventStore
+
+    if who is None:
+        try:
+            who = getpass.getuser()
+        except (KeyError, OSError):
+            who = ""
+    store = EventStore(cfg.store_path)
+    try:
+        store.add_label(event_id, label, note=note, who=who)
+    finally:
+        store.close()
+    click.echo(f"{event_id}: labelled {label}" + (f" by {who}" if who else "") + (f" — {note}" if note else ""))

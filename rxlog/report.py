@@ -1,0 +1,1294 @@
+"""The morning report: one night's summary, plots and a self-contained review page.
+
+A night runs from local noon to the next local noon at the station (the station's
+``timezone``), so an evening and the morning after are one night; it is named by the
+local date on which it begins. ``build_report`` writes ``<reports_dir>/<night>/``:
+
+- ``index.html``: the summary, the plots and one card per event with its label
+  control. Styles and script are inline, images sit beside it and are linked by
+  relative paths, nothing is fetched from the network, so the folder can be copied or
+  mailed and still opens from disk. Labelling needs ``rxlog review --serve``
+  (``review_server.py``); from disk the page is read-only.
+- ``overview.png``: the night's dynamic spectrum (excess over a running background)
+  with event boxes, the Sun-up and Jupiter-up bands and the hourly masked fraction on
+  one local-time axis.
+- ``cml_io.png``: the night's Jovian candidates on the CML III–Io-phase plane over the
+  source regions.
+- ``events/<event_id>.png``: per event, a zoom of the dynamic spectrum and its light
+  curve (from the kept full-resolution cutout when there is one, else the archive).
+
+The archive is read once, in chunks of an hour, so memory stays flat however long the
+night or however many events it has.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import html
+import json
+import math
+import time
+import urllib.parse
+from dataclasses import dataclass, field
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import numpy as np
+
+from rxlog.errors import RxlogError
+from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED
+from rxlog.store import CLASSES, LABELS, EventStore
+from rxlog.timeutil import iso, parse_iso
+
+# Human names of classes and labels, in the order the page shows them (keys 1..9, 0).
+LABEL_NAMES = {
+    "jovian_l": "Jupiter L-burst", "jovian_s": "Jupiter S-burst",
+    "solar_iii": "Solar type III", "solar_ii": "Solar type II", "solar_iv": "Solar type IV",
+    "fadeout": "Short-wave fadeout", "rfi": "Interference", "unknown": "Real, unclassified",
+    "noise": "Nothing there", "unsure": "Not sure",
+}
+LABEL_KEYS = {lab: str((i + 1) % 10) for i, lab in enumerate(LABELS)}
+JOVIAN = ("jovian_l", "jovian_s")
+
+# Class colours from the Okabe & Ito (2008) colour-universal-design palette, which stays
+# distinguishable under the common colour-vision deficiencies; 'rfi' and 'unknown' use
+# light grey and white so they show on the dark end of viridis.
+CLASS_COLOURS = {
+    "jovian_l": "#D55E00", "jovian_s": "#CC79A7", "solar_iii": "#F0E442", "solar_ii": "#E69F00",
+    "solar_iv": "#009E73", "fadeout": "#56B4E9", "rfi": "#BBBBBB", "unknown": "#FFFFFF",
+}
+
+CHUNK_S = 3600.0             # archive read granularity
+OVERVIEW_TIME_BINS = 1440    # one minute per bin for a 24-h night
+MAX_FREQ_BINS = 256          # display channels
+ZOOM_TIME_BINS = 360         # at most this many columns in an event zoom
+BACKGROUND_BLOCK_BINS = 60   # overview bins per running-background block (an hour)
+DISPLAY_FLAGS = FLAG_GAP | FLAG_UNCOVERED | FLAG_RFI   # cells left out of the displayed power
+
+
+# -- nights -----------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Night:
+    """One observing night: [t0, t1) from local noon on ``date`` to local noon the day after."""
+    date: dt.date
+    t0: float
+    t1: float
+    tz: ZoneInfo
+
+    @property
+    def name(self) -> str:
+        return self.date.isoformat()
+
+    def local(self, t: float) -> dt.datetime:
+        return dt.datetime.fromtimestamp(t, self.tz)
+
+
+def night_starting(cfg, date: dt.date) -> Night:
+    """The night that begins at local noon of ``date`` (23 or 25 h long across a clock change)."""
+    tz = ZoneInfo(cfg["station"]["timezone"])
+    start = dt.datetime.combine(date, dt.time(12), tzinfo=tz)
+    end = dt.datetime.combine(date + dt.timedelta(days=1), dt.time(12), tzinfo=tz)
+    return Night(date, start.timestamp(), end.timestamp(), tz)
+
+
+def night_of(cfg, t_unix: float) -> Night:
+    """The night containing the instant ``t_unix``."""
+    tz = ZoneInfo(cfg["station"]["timezone"])
+    local = dt.datetime.fromtimestamp(t_unix, tz)
+    date = local.date() if local.hour >= 12 else local.date() - dt.timedelta(days=1)
+    return night_starting(cfg, date)
+
+
+def parse_night(cfg, text: str) -> Night:
+    """'YYYY-MM-DD' (the local date on which the night begins) -> Night."""
+    try:
+        date = dt.date.fromisoformat(str(text).strip())
+    except ValueError:
+        raise RxlogError(f"night {text!r}: expected a date YYYY-MM-DD, the local date on which "
+                         f"the night begins (it runs noon to noon)") from None
+    return night_starting(cfg, date)
+
+
+def data_extent(cfg) -> tuple[float, float] | None:
+    """First and last instant with data: archived spectra or stored events, whichever reach further."""
+    from rxlog.archive import archive_extent
+
+    lo, hi = [], []
+    ext = archive_extent(cfg.archive_dir)
+    if ext is not None:
+        lo.append(float(ext[0])); hi.append(float(ext[1]))
+    store = EventStore(cfg.store_path)
+    try:
+        row = store.db.execute("select min(start_utc), max(end_utc) from events "
+                               "where station = ?", [cfg["station"]["name"]]).fetchone()
+    finally:
+        store.close()
+    if row and row[0]:
+        lo.append(parse_iso(row[0])); hi.append(parse_iso(row[1]))
+    return (min(lo), max(hi)) if lo else None
+
+
+def default_night(cfg, now: float | None = None) -> Night:
+    """The latest complete night that has data.
+
+    A night is complete once the wall clock or the data have passed its closing noon.
+    Demo data may lie in the future, so when no night with data is complete, the night
+    holding the latest data is taken (its report says how much of it was recorded).
+    """
+    ext = data_extent(cfg)
+    if ext is None:
+        raise RxlogError(f"no data yet: no archived spectra under {cfg.archive_dir} and no events in "
+                         f"{cfg.store_path}; record or simulate a night first, or pass --night")
+    first, last = ext
+    now = time.time() if now is None else now
+    latest = night_of(cfg, max(first, last - 1e-3))
+    if latest.t1 <= max(now, last):
+        return latest
+    before = night_starting(cfg, latest.date - dt.timedelta(days=1))
+    return before if before.t1 > first else latest
+
+
+def report_dir(cfg, night: Night) -> Path:
+    return Path(cfg.reports_dir) / night.name
+
+
+# -- reading the night ------------------------------------------------------------------
+
+@dataclass
+class _Zoom:
+    """Accumulator of one event's zoom: sums and counts on its own time grid."""
+    index: int
+    event: dict
+    a: float
+    b: float
+    t_edges: np.ndarray
+    sums: np.ndarray
+    counts: np.ndarray
+
+
+@dataclass
+class NightData:
+    """What the archive pass learns about a night."""
+    night: Night
+    t_edges: np.ndarray              # overview time bin edges (POSIX s)
+    f_edges_mhz: np.ndarray          # display frequency bin edges (MHz)
+    power: np.ndarray                # (n_tb, n_fb) mean power dB, NaN where nothing usable
+    covered: list = field(default_factory=list)     # merged [(start, end)] with data
+    cells_valid: float = 0.0         # cells with data
+    cells_masked: float = 0.0        # of those, flagged as interference
+    hourly_masked: dict = field(default_factory=dict)   # hour start (POSIX) -> [masked, valid]
+
+    @property
+    def covered_s(self) -> float:
+        return sum(b - a for a, b in self.covered)
+
+    def gaps(self, min_s: float = 0.0) -> list[tuple[float, float]]:
+        out, t = [], self.night.t0
+        for a, b in self.covered:
+            if a - t > min_s:
+                out.append((t, a))
+            t = max(t, b)
+        if self.night.t1 - t > min_s:
+            out.append((t, self.night.t1))
+        return out
+
+
+def _freq_bins(cfg) -> np.ndarray:
+    sp = cfg["spectra"]
+    n = min(int(sp["channels"]), MAX_FREQ_BINS)
+    return np.linspace(sp["fmin_mhz"], sp["fmax_mhz"], n + 1)
+
+
+def _accumulate(sums, counts, row_bin, chan_bin, power, valid, n_bins_t):
+    """Add ``power[valid]`` into sums/counts at (row_bin[row], chan_bin[chan]) with one bincount."""
+    n_fb = sums.shape[1]
+    ok = valid & (row_bin[:, None] >= 0) & (row_bin[:, None] < n_bins_t) & (chan_bin[None, :] >= 0)
+    idx = (row_bin[:, None] * n_fb + chan_bin[None, :])[ok]
+    size = sums.size
+    sums += np.bincount(idx, weights=power[ok], minlength=size).reshape(sums.shape)
+    counts += np.bincount(idx, minlength=size).reshape(counts.shape)
+
+
+def _merge(intervals):
+    out = []
+    for a, b in sorted(intervals):
+        if out and a <= out[-1][1] + 1e-6:
+            out[-1][1] = max(out[-1][1], b)
+        else:
+            out.append([a, b])
+    return [(a, b) for a, b in out]
+
+
+# Zoom window lengths (s): a window snaps to the shortest that holds the event with some
+# room either side, so zooms of similar events share one time axis (and one drawn frame).
+ZOOM_LENGTHS_S = (40, 60, 120, 300, 600, 1200, 1800, 3600, 7200, 14400, 28800)
+
+
+def zoom_window(ev: dict, cadence_s: float) -> tuple[float, float]:
+    """The (start, end) of an event's zoom: centred on the event, a length from ZOOM_LENGTHS_S."""
+    a, b = parse_iso(ev["start_utc"]), parse_iso(ev["end_utc"])
+    need = (b - a) + 2 * max(0.25 * (b - a), 10.0 * cadence_s, 8.0)
+    length = next((L for L in ZOOM_LENGTHS_S if L >= need), math.ceil(need / 3600.0) * 3600.0)
+    mid = round(0.5 * (a + b))
+    return mid - 0.5 * length, mid + 0.5 * length
+
+
+def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=None) -> NightData:
+    """One pass over the night's archive: overview grid, coverage, masked cells, event zooms.
+
+    ``on_zoom(index, event, t_edges, f_edges_mhz, power, background)`` is called for each
+    event as soon as the data past its window (and the background around it) are read.
+    """
+    from rxlog.archive import read_archive
+
+    cadence = float(cfg["spectra"]["cadence_s"])
+    f_edges = _freq_bins(cfg)
+    n_fb = len(f_edges) - 1
+    width = max((night.t1 - night.t0) / OVERVIEW_TIME_BINS, cadence)
+    n_tb = int(math.ceil((night.t1 - night.t0) / width))
+    t_edges = night.t0 + width * np.arange(n_tb + 1)
+    sums = np.zeros((n_tb, n_fb)); counts = np.zeros((n_tb, n_fb))
+    data = NightData(night, t_edges, f_edges, np.full((n_tb, n_fb), np.nan))
+    covered = []
+
+    pending = []   # zooms not yet started, by window start
+    for i, ev in enumerate(events):
+        a, b = zoom_window(ev, cadence)
+        n = int(min(ZOOM_TIME_BINS, max(8, math.ceil((b - a) / cadence))))
+        pending.append(_Zoom(i, ev, a, b, np.linspace(a, b, n + 1), None, None))
+    pending.sort(key=lambda z: z.a)
+    active: list[_Zoom] = []
+
+    def finish(z: _Zoom, read_to: float):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            power = z.sums / z.counts
+            mean = sums / counts
+        # Background: the per-channel median of the overview minutes from an hour
+        # before the event to half an hour after it (all read by now).
+        lo = np.searchsorted(t_edges, z.a - 3600.0)
+        hi = max(np.searchsorted(t_edges, min(z.b + 1800.0, read_to)), lo + 1)
+        with np.errstate(all="ignore"):
+            import warnings
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                bg = np.nanmedian(mean[lo:hi], axis=0)
+        on_zoom(z.index, z.event, z.t_edges, f_edges, power, bg)
+
+    # Chunks on whole UTC hours: the archive keeps one file per UTC hour.
+    edges = np.arange(math.floor(night.t0 / CHUNK_S) * CHUNK_S, night.t1, CHUNK_S)[1:]
+    chunk_starts = np.concatenate(([night.t0], edges))
+    for k, c0 in enumerate(chunk_starts):
+        c1 = min(chunk_starts[k + 1] if k + 1 < len(chunk_starts) else night.t1, night.t1)
+        while pending and pending[0].a < c1:
+            z = pending.pop(0)
+            z.sums = np.zeros((len(z.t_edges) - 1, n_fb)); z.counts = np.zeros_like(z.sums)
+            active.append(z)
+        for seg in read_archive(cfg.archive_dir, c0, c1).segments:
+            times = seg.times
+            keep = (times >= c0) & (times < c1)
+            if not keep.any():
+                continue
+            rows = np.flatnonzero(keep)
+            times = times[rows]
+            power = seg.power_db[rows[0]:rows[-1] + 1]
+            flags = seg.flags[rows[0]:rows[-1] + 1]
+            finite = np.isfinite(power)
+            have = finite & ((flags & (FLAG_GAP | FLAG_UNCOVERED)) == 0)
+            valid = have & ((flags & FLAG_RFI) == 0)
+            chan_bin = np.searchsorted(f_edges, seg.freq_hz / 1e6, side="right") - 1
+            chan_bin[(chan_bin < 0) | (chan_bin >= n_fb)] = -1
+            row_bin = np.floor((times - night.t0) / width).astype(np.int64)
+            _accumulate(sums, counts, row_bin, chan_bin, power, valid, n_tb)
+            # Coverage: runs of rows with any data, each row lasting one cadence.
+            row_has = have.any(axis=1)
+            if row_has.any():
+                edges = np.diff(np.concatenate(([0], row_has.astype(np.int8), [0])))
+                starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+                covered.extend(zip(times[starts], times[ends - 1] + seg.cadence_s))
+            n_have = have.sum(axis=1)
+            n_masked = (have & ((flags & FLAG_RFI) != 0)).sum(axis=1)
+            data.cells_valid += float(n_have.sum()); data.cells_masked += float(n_masked.sum())
+            hours = np.floor(times / 3600.0) * 3600.0
+            for h in np.unique(hours):
+                sel = hours == h
+                acc = data.hourly_masked.setdefault(float(h), [0.0, 0.0])
+                acc[0] += float(n_masked[sel].sum()); acc[1] += float(n_have[sel].sum())
+            for z in active:
+                if z.b <= times[0] or z.a >= times[-1] + seg.cadence_s:
+                    continue
+                zb = np.floor((times - z.a) / (z.t_edges[1] - z.t_edges[0])).astype(np.int64)
+                _accumulate(z.sums, z.counts, zb, chan_bin, power, valid, len(z.t_edges) - 1)
+        if on_zoom is not None:
+            still = []
+            for z in active:
+                (finish(z, c1) if z.b + 1800.0 <= c1 else still.append(z))
+            active = still
+        if progress is not None:
+            progress(k + 1, len(chunk_starts))
+    if on_zoom is not None:
+        for z in active + pending:
+            if z.sums is None:
+                z.sums = np.zeros((len(z.t_edges) - 1, n_fb)); z.counts = np.zeros_like(z.sums)
+            finish(z, night.t1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        data.power = (sums / counts).astype(np.float32)
+    data.covered = _merge(covered)
+    return data
+
+
+def running_background(power: np.ndarray, block: int = BACKGROUND_BLOCK_BINS) -> np.ndarray:
+    """Per-channel background following slow drifts: medians of hour blocks, linearly interpolated in time."""
+    import warnings
+
+    n_t, n_f = power.shape
+    n_blocks = max(1, int(math.ceil(n_t / block)))
+    padded = np.full((n_blocks * block, n_f), np.nan, dtype=np.float64)
+    padded[:n_t] = power
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        med = np.nanmedian(padded.reshape(n_blocks, block, n_f), axis=1)
+        overall = np.nanmedian(power, axis=0)
+    med = np.where(np.isfinite(med), med, overall[None, :])
+    centres = (np.arange(n_blocks) + 0.5) * block
+    x = np.arange(n_t) + 0.5
+    out = np.empty((n_t, n_f))
+    for c in range(n_f):   # one interpolation per display channel (<= 256), not per sample
+        out[:, c] = np.interp(x, centres, med[:, c])
+    return out
+
+
+# -- summary ----------------------------------------------------------------------------
+
+def _intervals(x) -> list[tuple[float, float]]:
+    """Intervals from the ephemeris/forecast as (start, end) POSIX pairs, whatever their shape."""
+    out = []
+    for iv in x or []:
+        if isinstance(iv, dict):
+            a, b = iv.get("start", iv.get("start_unix")), iv.get("end", iv.get("end_unix"))
+        elif hasattr(iv, "start"):
+            a, b = iv.start, iv.end
+        else:
+            a, b = iv[0], iv[1]
+        out.append((float(a), float(b)))
+    return out
+
+
+def _overlap(a0, a1, b0, b1) -> float:
+    return max(0.0, min(a1, b1) - max(a0, b0))
+
+
+def night_summary(cfg, night: Night, events: list[dict], data: NightData, quality: list[dict],
+                  jupiter_up, sun_up, forecast) -> dict:
+    """The numbers the page and the terminal show, as plain values."""
+    length = night.t1 - night.t0
+    per_class = {c: 0 for c in CLASSES}
+    for e in events:
+        per_class[e["class"]] = per_class.get(e["class"], 0) + 1
+    hourly = _hourly_masked(night, data, quality)
+    masked_total = (data.cells_masked / data.cells_valid) if data.cells_valid else None
+    q_rows = [q for q in quality if night.t0 - 3600 < parse_iso(q["hour_utc"]) < night.t1]
+    if q_rows and sum(q["covered_s"] or 0 for q in q_rows) > 0:
+        w = np.array([q["covered_s"] or 0.0 for q in q_rows])
+        m = np.array([q["masked_fraction"] if q["masked_fraction"] is not None else np.nan for q in q_rows])
+        ok = np.isfinite(m) & (w > 0)
+        if ok.any():
+            masked_total = float((m[ok] * w[ok]).sum() / w[ok].sum())
+    windows = []
+    for w in forecast:
+        a, b = float(w["start"]), float(w["end"])
+        seen = [e for e in events if e["class"] in JOVIAN
+                and _overlap(parse_iso(e["start_utc"]), parse_iso(e["end_utc"]), a, b) > 0]
+        rec = sum(_overlap(c0, c1, a, b) for c0, c1 in data.covered)
+        windows.append({"start": a, "end": b, "region": w.get("region", ""),
+                        "max_jupiter_alt_deg": w.get("max_jupiter_alt_deg"),
+                        "recorded_fraction": rec / (b - a) if b > a else 0.0,
+                        "seen": [e["event_id"] for e in seen]})
+    in_windows = {eid for w in windows for eid in w["seen"]}
+    outside = [e["event_id"] for e in events if e["class"] in JOVIAN and e["event_id"] not in in_windows]
+    return {
+        "station": cfg["station"]["name"], "night": night.name, "timezone": str(night.tz),
+        "start": night.t0, "end": night.t1, "length_s": length,
+        "recorded_s": data.covered_s, "uptime": data.covered_s / length if length else 0.0,
+        "gaps": data.gaps(min_s=max(2.0 * float(cfg["spectra"]["cadence_s"]), 10.0)),
+        "masked_fraction": masked_total, "masked_source": "detection" if q_rows else "archive flags",
+        "hourly_masked": hourly,
+        "n_events": len(events), "per_class": per_class,
+        "n_labelled": sum(1 for e in events if e.get("label")),
+        "jupiter_up": jupiter_up, "sun_up": sun_up,
+        "forecast": windows, "jovian_outside_forecast": outside,
+        "generated_utc": iso(time.time()),
+    }
+
+
+def _hourly_masked(night: Night, data: NightData, quality: list[dict]) -> list[tuple[float, float]]:
+    """(hour start, masked fraction) for the night: the detector's record when there is one, else archive flags."""
+    rows = [(parse_iso(q["hour_utc"]), q["masked_fraction"]) for q in quality
+            if q["masked_fraction"] is not None]
+    rows = [(h, float(m)) for h, m in rows if night.t0 - 3600 < h < night.t1]
+    if rows:
+        return sorted(rows)
+    return sorted((h, m / v) for h, (m, v) in data.hourly_masked.items() if v > 0)
+
+
+def _fmt_local(night: Night, t: float, seconds=False) -> str:
+    return night.local(t).strftime("%H:%M:%S" if seconds else "%H:%M")
+
+
+def _fmt_span(night: Night, a: float, b: float) -> str:
+    return f"{_fmt_local(night, a)}–{_fmt_local(night, b)}"
+
+
+def _fmt_hours(s: float) -> str:
+    return f"{s / 3600:.1f} h"
+
+
+def format_summary(summary: dict, night: Night) -> str:
+    """The terminal summary: a few lines a person reads over coffee."""
+    s = summary
+    lines = [f"{s['station']} — night of {s['night']} (local noon to noon, {s['timezone']})"]
+    gaps = s["gaps"]
+    gap_text = ", ".join(_fmt_span(night, a, b) for a, b in gaps[:6]) + (" …" if len(gaps) > 6 else "")
+    lines.append(f"  recorded {_fmt_hours(s['recorded_s'])} of {_fmt_hours(s['length_s'])} "
+                 f"({100 * s['uptime']:.0f} %); {len(gaps)} gap{'s' if len(gaps) != 1 else ''}"
+                 + (f": {gap_text}" if gaps else ""))
+    if s["masked_fraction"] is not None:
+        lines.append(f"  masked as interference: {100 * s['masked_fraction']:.1f} % ({s['masked_source']})")
+    counts = ", ".join(f"{c} {n}" for c, n in s["per_class"].items() if n)
+    lines.append(f"  events: {s['n_events']}" + (f" ({counts})" if counts else "")
+                 + f"; labelled {s['n_labelled']}")
+    for body, key in (("Jupiter", "jupiter_up"), ("Sun", "sun_up")):
+        spans = ", ".join(_fmt_span(night, a, b) for a, b in s[key]) or "not up"
+        lines.append(f"  {body} up: {spans}")
+    if s["forecast"]:
+        for w in s["forecast"]:
+            seen = f"seen {len(w['seen'])} Jovian event{'s' if len(w['seen']) != 1 else ''}" if w["seen"] \
+                else "nothing seen"
+            lines.append(f"  forecast {w['region']} {_fmt_span(night, w['start'], w['end'])}: {seen} "
+                         f"(recorded {100 * w['recorded_fraction']:.0f} %)")
+    else:
+        lines.append("  forecast: no windows this night")
+    if s["jovian_outside_forecast"]:
+        lines.append(f"  Jovian candidates outside forecast windows: {len(s['jovian_outside_forecast'])}")
+    return "\n".join(lines)
+
+
+# -- plots ------------------------------------------------------------------------------
+
+def _mpl():
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot  # noqa: F401  (registers colormaps)
+    return matplotlib
+
+
+_EPOCH_DAYS = None
+
+
+def _dnum(t):
+    """POSIX seconds -> matplotlib date numbers."""
+    global _EPOCH_DAYS
+    if _EPOCH_DAYS is None:
+        import matplotlib.dates as mdates
+        _EPOCH_DAYS = mdates.date2num(dt.datetime(1970, 1, 1, tzinfo=dt.timezone.utc))
+    return np.asarray(t, dtype=np.float64) / 86400.0 + _EPOCH_DAYS
+
+
+def _tz_label(night: Night) -> str:
+    off = night.local(night.t0).strftime("%z")
+    return f"local time ({night.tz}, UTC{off[:3]}:{off[3:]} at the start)"
+
+
+def _excess_limits(excess: np.ndarray) -> tuple[float, float]:
+    finite = excess[np.isfinite(excess)]
+    if finite.size == 0:
+        return -1.0, 3.0
+    lo, hi = np.percentile(finite, [1.0, 99.7])
+    return float(min(lo, -0.5)), float(max(hi, 3.0))
+
+
+def plot_overview(path: Path, night: Night, data: NightData, events: list[dict], summary: dict,
+                  dpi: int = 100) -> Path:
+    """The night at a glance: Sun/Jupiter/forecast bands, dynamic spectrum with boxes, hourly masking."""
+    mpl = _mpl()
+    import matplotlib.dates as mdates
+    from matplotlib.collections import PatchCollection
+    from matplotlib.figure import Figure
+    from matplotlib.patches import Rectangle
+    import matplotlib.patheffects as pe
+
+    fig = Figure(figsize=(13.0, 7.0), dpi=dpi)
+    left, width = 0.07, 0.83
+    ax_band = fig.add_axes((left, 0.81, width, 0.10))
+    ax = fig.add_axes((left, 0.31, width, 0.48), sharex=ax_band)
+    ax_q = fig.add_axes((left, 0.135, width, 0.13), sharex=ax_band)
+    cax = fig.add_axes((left + width + 0.012, 0.31, 0.015, 0.48))
+    x0, x1 = _dnum([night.t0, night.t1])
+
+    # Bands: when the Sun and Jupiter were above the horizon, and the forecast windows.
+    rows = [("Sun up", summary["sun_up"], "#E69F00"), ("Jupiter up", summary["jupiter_up"], "#0072B2"),
+            ("forecast", [(w["start"], w["end"]) for w in summary["forecast"]], "#CC79A7")]
+    for k, (name, spans, colour) in enumerate(rows):
+        y = len(rows) - 1 - k
+        xs = [(_dnum(a), _dnum(b) - _dnum(a)) for a, b in spans]
+        if xs:
+            ax_band.broken_barh(xs, (y + 0.15, 0.7), facecolors=colour)
+    ax_band.set_yticks([len(rows) - 1 - k + 0.5 for k in range(len(rows))], [r[0] for r in rows])
+    ax_band.set_ylim(0, len(rows))
+    ax_band.tick_params(axis="x", labelbottom=False)
+    ax_band.set_title(f"{summary['station']} — night of {night.name}: dynamic spectrum, "
+                      f"{summary['n_events']} events", loc="left", fontsize=12)
+    utc = ax_band.secondary_xaxis("top")
+    utc.xaxis.set_major_locator(mdates.HourLocator(interval=2, tz=dt.timezone.utc))
+    utc.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=dt.timezone.utc))
+    utc.set_xlabel("UTC", fontsize=9, labelpad=2)
+
+    excess = data.power - running_background(data.power)
+    vmin, vmax = _excess_limits(excess)
+    cmap = mpl.colormaps["viridis"].with_extremes(bad="#d0d0d0")
+    f0, f1 = data.f_edges_mhz[0], data.f_edges_mhz[-1]
+    im = ax.imshow(excess.T, origin="lower", aspect="auto", interpolation="nearest", cmap=cmap,
+                   vmin=vmin, vmax=vmax, extent=(x0, _dnum(data.t_edges[-1]), f0, f1))
+    cb = fig.colorbar(im, cax=cax)
+    cb.set_label("excess over background (dB)")
+    # Boxes sit one bin outside each event so the burst itself stays visible.
+    boxes, colours = [], []
+    bin_t = _dnum(data.t_edges[1]) - _dnum(data.t_edges[0])
+    bin_f = data.f_edges_mhz[1] - data.f_edges_mhz[0]
+    for e in events:
+        a, b = _dnum(parse_iso(e["start_utc"])) - bin_t, _dnum(parse_iso(e["end_utc"])) + bin_t
+        lo, hi = max(e["fmin_mhz"] - bin_f, f0), min(e["fmax_mhz"] + bin_f, f1)
+        boxes.append(Rectangle((a, lo), b - a, hi - lo))
+        colours.append(CLASS_COLOURS.get(e["class"], "#FFFFFF"))
+    if boxes:
+        pc = PatchCollection(boxes, facecolors="none", edgecolors=colours, linewidths=1.0)
+        pc.set_path_effects([pe.Stroke(linewidth=2.2, foreground="black"), pe.Normal()])
+        ax.add_collection(pc)
+    # Event numbers (as on the page) where they do not crowd each other.
+    last = -np.inf
+    for i, e in enumerate(events):
+        a = _dnum(parse_iso(e["start_utc"])) - bin_t
+        if a - last >= 0.012 * (x1 - x0):
+            ax.annotate(str(i + 1), (a, min(e["fmax_mhz"] + bin_f, f1)), fontsize=7, color="white",
+                        xytext=(1, 1), textcoords="offset points", annotation_clip=False,
+                        path_effects=[pe.withStroke(linewidth=2, foreground="black")])
+            last = a
+    present = sorted({e["class"] for e in events}, key=CLASSES.index)
+    if present:
+        handles = [Rectangle((0, 0), 1, 1, facecolor="#444444", edgecolor=CLASS_COLOURS[c], linewidth=2)
+                   for c in present]
+        fig.legend(handles, [f"{LABEL_NAMES[c]} ({c})" for c in present], loc="lower center",
+                   bbox_to_anchor=(left + width / 2, 0.0), fontsize=8, ncol=len(present), frameon=False,
+                   title="event boxes", title_fontsize=8)
+    ax.set_ylabel("frequency (MHz)")
+    ax.set_ylim(f0, f1)
+    ax.tick_params(axis="x", labelbottom=False)
+
+    # Hourly masked fraction.
+    hm = summary["hourly_masked"]
+    if hm:
+        hx = _dnum([h for h, _ in hm])
+        ax_q.bar(hx, [100 * m for _, m in hm], width=1 / 24, align="edge", color="#35608D",
+                 edgecolor="white", linewidth=0.5)
+    for a, b in summary["gaps"]:
+        ax_q.axvspan(_dnum(a), _dnum(b), color="#888888", alpha=0.35, linewidth=0)
+    ax_q.set_ylabel("masked (%)")
+    top = max([5.0] + [100 * m * 1.15 for _, m in hm])
+    ax_q.set_ylim(0, min(100.0, top))
+    ax_q.xaxis.set_major_locator(mdates.HourLocator(interval=2, tz=night.tz))
+    ax_q.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=night.tz))
+    ax_q.xaxis.set_minor_locator(mdates.HourLocator(tz=night.tz))
+    ax_q.set_xlabel(_tz_label(night) + "; grey: no recording", labelpad=2)
+    ax_band.set_xlim(x0, x1)
+    fig.savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
+    return path
+
+
+def _spans(lo: float, hi: float) -> list[tuple[float, float]]:
+    """An angle range on a 0..360 axis; a start above the end wraps through 0° into two spans."""
+    return [(lo, hi)] if lo <= hi else [(lo, 360.0), (0.0, hi)]
+
+
+def _region_boxes(region) -> list[tuple[float, float, float, float]]:
+    """A Region's (cml0, cml1, io0, io1) rectangles on 0..360 axes (Io range None: any phase)."""
+    io = [(0.0, 360.0)] if region.io_from is None else _spans(region.io_from, region.io_to)
+    return [(c0, c1, i0, i1) for c0, c1 in _spans(region.cml_from, region.cml_to) for i0, i1 in io]
+
+
+def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, dpi: int = 100) -> Path:
+    """The night's Jovian candidates (and Jupiter-up track) on the CML III–Io-phase plane over the source regions."""
+    _mpl()
+    from matplotlib.figure import Figure
+    from matplotlib.patches import Rectangle
+    from rxlog.ephemeris import regions_from_config
+
+    fig = Figure(figsize=(7.0, 6.2), dpi=dpi)
+    ax = fig.add_axes((0.11, 0.09, 0.62, 0.84))
+    fills = ["#56B4E9", "#009E73", "#E69F00", "#CC79A7", "#999999", "#F0E442", "#0072B2", "#D55E00"]
+    handles = []
+    for k, reg in enumerate(regions_from_config(cfg)):
+        colour = fills[k % len(fills)]
+        for c0, c1, i0, i1 in _region_boxes(reg):
+            ax.add_patch(Rectangle((c0, i0), c1 - c0, i1 - i0, facecolor=colour, alpha=0.22,
+                                   edgecolor=colour, linewidth=1.2))
+            ax.text(c0 + 3, i1 - 3, reg.name, fontsize=7, va="top", color="#333333")
+        handles.append(Rectangle((0, 0), 1, 1, facecolor=colour, alpha=0.4, edgecolor=colour, label=reg.name))
+    if track is not None and len(track[0]):
+        cml, io = np.asarray(track[0], float), np.asarray(track[1], float)
+        # Break the line where either angle wraps through 360°.
+        jump = np.flatnonzero((np.abs(np.diff(cml)) > 180) | (np.abs(np.diff(io)) > 180)) + 1
+        for seg_c, seg_i in zip(np.split(cml, jump), np.split(io, jump)):
+            ax.plot(seg_c, seg_i, color="#444444", linewidth=1.0, linestyle=(0, (4, 3)))
+        handles.append(ax.plot([], [], color="#444444", linewidth=1.0, linestyle=(0, (4, 3)),
+                               label="this night, Jupiter up")[0])
+    shown = set()
+    for i, e in events:
+        c, p = e.get("cml3_deg"), e.get("io_phase_deg")
+        if c is None or p is None:
+            continue
+        colour = CLASS_COLOURS[e["class"]]
+        cs, ce = e.get("cml3_start_deg"), e.get("cml3_end_deg")
+        ps, pe_ = e.get("io_phase_start_deg"), e.get("io_phase_end_deg")
+        if None not in (cs, ce, ps, pe_) and abs(ce - cs) < 180 and abs(pe_ - ps) < 180:
+            ax.plot([cs, ce], [ps, pe_], color=colour, linewidth=2.5, solid_capstyle="round",
+                    path_effects=None)
+        ax.scatter([c], [p], s=36, color=colour, edgecolors="black", linewidths=0.8, zorder=3,
+                   label=None if e["class"] in shown else LABEL_NAMES[e["class"]])
+        shown.add(e["class"])
+        ax.annotate(str(i + 1), (c, p), xytext=(4, 3), textcoords="offset points", fontsize=7)
+    for cls in sorted(shown, key=CLASSES.index):
+        handles.append(ax.scatter([], [], s=36, color=CLASS_COLOURS[cls], edgecolors="black",
+                                  linewidths=0.8, label=LABEL_NAMES[cls]))
+    ax.set_xlim(0, 360); ax.set_ylim(0, 360)
+    ax.set_xticks(range(0, 361, 60)); ax.set_yticks(range(0, 361, 60))
+    ax.set_xlabel("central meridian longitude, System III (deg)")
+    ax.set_ylabel("Io phase, geocentric (deg)")
+    ax.grid(True, color="#cccccc", linewidth=0.5)
+    n = sum(1 for _, e in events if e.get("cml3_deg") is not None)
+    ax.set_title(f"Jovian candidates, night of {night.name}: {n}", loc="left", fontsize=11)
+    ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), fontsize=8, frameon=False)
+    fig.savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
+    return path
+
+
+class ZoomPlotter:
+    """Draws event zooms on one reused figure.
+
+    The frame (axes, ticks, legend, colour-bar gradient) is rendered once per zoom
+    length and kept; each event restores its frame and redraws only what changes: the
+    image, the box, the light curves, the light-curve and colour-bar scales and two
+    texts. That is several times faster than a full redraw, which is what makes 500
+    zooms a minute's work.
+    """
+
+    def __init__(self, night: Night, f_edges_mhz: np.ndarray, dpi: int = 80):
+        mpl = _mpl()
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+        from matplotlib.patches import Rectangle
+        import matplotlib.patheffects as pe
+
+        self.night, self.dpi = night, dpi
+        self.fig = Figure(figsize=(7.0, 4.4), dpi=dpi)
+        self.canvas = FigureCanvasAgg(self.fig)
+        self.ax = self.fig.add_axes((0.10, 0.42, 0.76, 0.49))
+        self.lc = self.fig.add_axes((0.10, 0.12, 0.76, 0.25), sharex=self.ax)
+        self.cax = self.fig.add_axes((0.875, 0.42, 0.02, 0.49))
+        cmap = mpl.colormaps["viridis"].with_extremes(bad="#d0d0d0")
+        f0, f1 = float(f_edges_mhz[0]), float(f_edges_mhz[-1])
+        self.im = self.ax.imshow(np.zeros((2, 2)), origin="lower", aspect="auto", interpolation="nearest",
+                                 cmap=cmap, extent=(0, 1, f0, f1))
+        self.cb = self.fig.colorbar(self.im, cax=self.cax)
+        self.cb.set_label("excess (dB)", fontsize=8)
+        self.cax.tick_params(labelsize=7)
+        self.box = Rectangle((0, 0), 1, 1, facecolor="none", linewidth=1.4,
+                             path_effects=[pe.Stroke(linewidth=2.8, foreground="black"), pe.Normal()])
+        self.ax.add_patch(self.box)
+        self.ax.set_ylim(f0, f1)
+        self.ax.set_ylabel("frequency (MHz)", fontsize=8)
+        self.ax.tick_params(labelbottom=False, labelsize=7)
+        self.title = self.fig.text(0.10, 0.935, "", fontsize=9)
+        self.when = self.fig.text(0.48, 0.015, "", fontsize=8, ha="center")
+        self.span = Rectangle((0, 0), 1, 1, transform=self.lc.get_xaxis_transform(), facecolor="#E69F00",
+                              alpha=0.25, linewidth=0)
+        self.lc.add_patch(self.span)
+        (self.line_out,) = self.lc.plot([], [], color="#999999", linewidth=1.0, label="rest of band")
+        (self.line_in,) = self.lc.plot([], [], color="#0072B2", linewidth=1.3, label="event band")
+        self.lc.set_ylabel("excess (dB)", fontsize=8)
+        self.lc.tick_params(labelsize=7)
+        self.lc.grid(True, color="#dddddd", linewidth=0.5)
+        self.lc.legend(loc="upper right", fontsize=7, frameon=False, ncol=2)
+        # Drawn per event, in this order (grid lines under the curves, the box over the image).
+        self.dynamic = [self.im, self.box, self.cax.yaxis, self.lc.yaxis, self.span, self.line_out,
+                        self.line_in, self.title, self.when]
+        for a in self.dynamic:
+            a.set_animated(True)
+        self.frames: dict[float, object] = {}
+
+    def _frame(self, half: float):
+        """The drawn frame for a window of [-half, half] seconds (rendered on first use)."""
+        if half not in self.frames:
+            self.ax.set_xlim(-half, half)
+            self.lc.set_xlabel("seconds from the window centre", fontsize=8, labelpad=1)
+            self.canvas.draw()
+            self.frames[half] = self.canvas.copy_from_bbox(self.fig.bbox)
+        else:
+            self.ax.set_xlim(-half, half)
+        return self.frames[half]
+
+    def draw(self, path: Path, number: int, ev: dict, t_edges: np.ndarray, excess: np.ndarray,
+             source: str) -> Path:
+        """Render one event: ``excess`` is (n_time, n_freq) dB over background on the display channels."""
+        from PIL import Image
+
+        mid = 0.5 * (t_edges[0] + t_edges[-1])
+        half = round(0.5 * (t_edges[-1] - t_edges[0]), 3)
+        frame = self._frame(half)
+        start, end = parse_iso(ev["start_utc"]), parse_iso(ev["end_utc"])
+        x = t_edges - mid
+        f0, f1 = self.ax.get_ylim()
+        self.im.set_data(np.ma.masked_invalid(excess.T))
+        self.im.set_extent((x[0], x[-1], f0, f1))
+        self.im.set_clim(*_excess_limits(excess))
+        self.box.set_bounds(start - mid, ev["fmin_mhz"], max(end - start, 1e-3),
+                            max(ev["fmax_mhz"] - ev["fmin_mhz"], 0.02))
+        self.box.set_edgecolor(CLASS_COLOURS.get(ev["class"], "#FFFFFF"))
+        n_f = excess.shape[1]
+        fc = f0 + (f1 - f0) * (np.arange(n_f) + 0.5) / n_f
+        inside = (fc >= ev["fmin_mhz"]) & (fc <= ev["fmax_mhz"])
+        if not inside.any():
+            inside[np.argmin(np.abs(fc - 0.5 * (ev["fmin_mhz"] + ev["fmax_mhz"])))] = True
+        import warnings
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            lc_in = np.nanmean(excess[:, inside], axis=1)
+            lc_out = np.nanmean(excess[:, ~inside], axis=1) if (~inside).any() else np.full(len(x) - 1, np.nan)
+        xc = 0.5 * (x[:-1] + x[1:])
+        self.line_in.set_data(xc, lc_in)
+        self.line_out.set_data(xc, lc_out)
+        self.span.set_bounds(start - mid, 0, max(end - start, 1e-3), 1)
+        both = np.concatenate([lc_in, lc_out])
+        both = both[np.isfinite(both)]
+        if both.size:
+            lo, hi = float(both.min()), float(both.max())
+            pad = max(0.1 * (hi - lo), 0.2)
+            self.lc.set_ylim(lo - pad, hi + 2.5 * pad)   # head room for the legend
+        else:
+            self.lc.set_ylim(-1, 1)
+        self.when.set_text(f"centre {self.night.local(mid):%H:%M:%S} local = {iso(mid)[11:19]} UTC")
+        self.title.set_text(f"#{number}  {LABEL_NAMES.get(ev['class'], ev['class'])}  ({source})")
+        self.canvas.restore_region(frame)
+        for a in self.dynamic:
+            self.fig.draw_artist(a)
+        w, h = self.canvas.get_width_height()
+        Image.frombuffer("RGBA", (w, h), self.canvas.buffer_rgba(), "raw", "RGBA", 0, 1).convert("RGB") \
+            .save(path, format="PNG", compress_level=1)
+        return path
+
+
+# -- the page ---------------------------------------------------------------------------
+
+PAGE_CSS = """
+:root { --ink:#1d2327; --muted:#5b6770; --line:#d5dbe0; --panel:#f5f7f9; --sel:#0072B2; }
+* { box-sizing: border-box; }
+body { font: 15px/1.45 system-ui, -apple-system, "Segoe UI", sans-serif; color: var(--ink);
+       margin: 0; background: #fff; }
+header { padding: 14px 22px 10px; border-bottom: 1px solid var(--line); background: var(--panel); }
+header h1 { font-size: 20px; margin: 0 0 4px; }
+header .sub { color: var(--muted); }
+main { padding: 10px 22px 60px; max-width: 1400px; }
+h2 { font-size: 17px; margin: 26px 0 8px; border-bottom: 1px solid var(--line); padding-bottom: 3px; }
+.facts-grid { display: grid; grid-template-columns: repeat(auto-fill, minmax(230px, 1fr)); gap: 8px 18px; }
+.facts-grid div { background: var(--panel); border-radius: 6px; padding: 6px 10px; }
+.facts-grid b { display: block; font-size: 12px; color: var(--muted); font-weight: 600; }
+table { border-collapse: collapse; }
+td, th { padding: 3px 10px 3px 0; text-align: left; vertical-align: top; }
+th { font-size: 12px; color: var(--muted); font-weight: 600; }
+img.plot { max-width: 100%; height: auto; border: 1px solid var(--line); }
+.chip { display: inline-block; padding: 0 7px; border-radius: 9px; font-size: 12px; color: #fff;
+        background: #2b2f33; border: 2px solid var(--c, #888); margin: 1px 3px 1px 0; white-space: nowrap; }
+.event { border: 1px solid var(--line); border-radius: 8px; margin: 10px 0; padding: 8px 12px;
+         scroll-margin-top: 60px; }
+.event.current { border-color: var(--sel); box-shadow: 0 0 0 2px var(--sel); }
+.event h3 { font-size: 15px; margin: 0 0 6px; font-weight: 600; }
+.event .num { display: inline-block; min-width: 2.2em; color: var(--muted); }
+.event .body { display: flex; flex-wrap: wrap; gap: 14px; }
+.event .body img { width: 560px; max-width: 100%; height: auto; border: 1px solid var(--line); }
+.event table.ev td:first-child { color: var(--muted); font-size: 13px; }
+.labeller { min-width: 260px; flex: 1; }
+.labeller .buttons { display: flex; flex-wrap: wrap; gap: 4px; margin-bottom: 6px; }
+.labeller button { font: inherit; font-size: 13px; padding: 2px 8px; border-radius: 5px;
+                   border: 1px solid var(--line); background: #fff; cursor: pointer; }
+.labeller button kbd { font-size: 11px; color: var(--muted); margin-right: 4px; }
+.labeller button.on { background: var(--sel); color: #fff; border-color: var(--sel); }
+.labeller button.on kbd { color: #dde; }
+.labeller button:disabled { cursor: not-allowed; opacity: .55; }
+.labeller input.note { width: 100%; font: inherit; font-size: 13px; padding: 3px 6px; }
+.current-label { font-weight: 600; }
+.status { font-size: 12px; color: var(--muted); min-height: 1.2em; }
+.status.error { color: #b00020; }
+ol.history { font-size: 12px; color: var(--muted); margin: 4px 0 0; padding-left: 18px; }
+#toolbar { position: sticky; top: 0; z-index: 2; background: #fff; border-bottom: 1px solid var(--line);
+           padding: 6px 22px; display: flex; gap: 16px; align-items: center; flex-wrap: wrap; font-size: 13px; }
+#toolbar input { font: inherit; padding: 2px 6px; width: 12em; }
+#mode { color: var(--muted); }
+kbd { font-family: ui-monospace, monospace; border: 1px solid var(--line); border-radius: 3px; padding: 0 3px; }
+.muted { color: var(--muted); }
+"""
+
+PAGE_JS = r"""
+(function () {
+  const data = JSON.parse(document.getElementById('rxlog-data').textContent);
+  const token = document.querySelector('meta[name="rxlog-session"]').content;
+  const live = token !== '' && location.protocol.startsWith('http');
+  const cards = Array.from(document.querySelectorAll('section.event'));
+  const byKey = {};
+  data.labels.forEach(function (l) { byKey[l.key] = l.label; });
+  const who = document.getElementById('who');
+  const mode = document.getElementById('mode');
+  let cur = -1;
+
+  who.value = localStorage.getItem('rxlog-who') || '';
+  who.addEventListener('change', function () { localStorage.setItem('rxlog-who', who.value.trim()); });
+  if (live) {
+    mode.textContent = 'Labels save to the event store as you choose them.';
+  } else {
+    mode.textContent = 'Read-only copy: run "rxlog review --serve" to label.';
+    document.querySelectorAll('.labeller button, .labeller input').forEach(function (b) { b.disabled = true; });
+    who.disabled = true;
+  }
+
+  function card(id) { return cards.find(function (c) { return c.dataset.eventId === id; }); }
+
+  function showLabel(c, row) {
+    const text = c.querySelector('.current-label');
+    text.textContent = row && row.label ? data.names[row.label] + (row.label_who ? ' (' + row.label_who + ')' : '') : 'not labelled';
+    c.dataset.label = row && row.label ? row.label : '';
+    c.querySelectorAll('.labeller button').forEach(function (b) {
+      b.classList.toggle('on', !!row && b.dataset.label === row.label);
+    });
+    if (row && row.label_note !== undefined && row.label_note !== null && document.activeElement !== c.querySelector('.note')) {
+      c.querySelector('.note').value = row.label_note;
+    }
+  }
+
+  function showHistory(c, rows) {
+    const ol = c.querySelector('ol.history');
+    ol.textContent = '';
+    rows.forEach(function (h) {
+      const li = document.createElement('li');
+      li.textContent = h.created_utc.replace('T', ' ').slice(0, 19) + ' UTC: ' + data.names[h.label] +
+        (h.who ? ' by ' + h.who : '') + (h.note ? ' — ' + h.note : '');
+      ol.appendChild(li);
+    });
+  }
+
+  function status(c, text, bad) {
+    const s = c.querySelector('.status');
+    s.textContent = text;
+    s.classList.toggle('error', !!bad);
+  }
+
+  function api(path, body) {
+    const opts = body === undefined ? {} : {
+      method: 'POST', body: JSON.stringify(body),
+      headers: {'Content-Type': 'application/json', 'X-Rxlog-Token': token}
+    };
+    return fetch(path, opts).then(function (r) {
+      return r.json().then(function (j) { if (!r.ok) throw new Error(j.error || r.statusText); return j; });
+    });
+  }
+
+  function loadHistory(c) {
+    if (!live) return;
+    api('api/history?event=' + encodeURIComponent(c.dataset.eventId))
+      .then(function (j) { showHistory(c, j.history); })
+      .catch(function (e) { status(c, e.message, true); });
+  }
+
+  function select(i, scroll) {
+    if (!cards.length) return;
+    cur = Math.max(0, Math.min(cards.length - 1, i));
+    cards.forEach(function (c, k) { c.classList.toggle('current', k === cur); });
+    const c = cards[cur];
+    if (scroll !== false) c.scrollIntoView({block: 'start'});
+    history.replaceState(null, '', '#' + c.id);
+    loadHistory(c);
+  }
+
+  function save(c, label) {
+    if (!live) { status(c, 'Read-only copy: run "rxlog review --serve" to label.', true); return; }
+    status(c, 'saving…');
+    api('api/label', {event_id: c.dataset.eventId, label: label, note: c.querySelector('.note').value,
+                      who: who.value.trim()})
+      .then(function (j) {
+        showLabel(c, j.event); showHistory(c, j.history);
+        status(c, 'saved ' + data.names[label] + ' at ' + new Date().toLocaleTimeString());
+      })
+      .catch(function (e) { status(c, 'not saved: ' + e.message, true); });
+  }
+
+  cards.forEach(function (c, k) {
+    c.addEventListener('click', function () { if (cur !== k) select(k, false); });
+    c.querySelectorAll('.labeller button').forEach(function (b) {
+      b.addEventListener('click', function (ev) { ev.stopPropagation(); select(k, false); save(c, b.dataset.label); });
+    });
+    c.querySelector('.note').addEventListener('keydown', function (ev) {
+      if (ev.key === 'Enter') { ev.preventDefault(); this.blur(); }
+    });
+  });
+
+  document.addEventListener('keydown', function (ev) {
+    const t = ev.target;
+    if (t && (t.tagName === 'INPUT' || t.tagName === 'TEXTAREA' || t.tagName === 'SELECT')) {
+      if (ev.key === 'Escape') t.blur();
+      return;
+    }
+    if (ev.ctrlKey || ev.metaKey || ev.altKey) return;
+    const k = ev.key;
+    if (k === 'j' || k === 'ArrowDown') { select(cur + 1); }
+    else if (k === 'k' || k === 'ArrowUp') { select(cur < 0 ? 0 : cur - 1); }
+    else if (k === 'u') {
+      for (let i = cur + 1; i < cards.length; i++) { if (!cards[i].dataset.label) { select(i); break; } }
+    }
+    else if (k === 'n' && cur >= 0) { cards[cur].querySelector('.note').focus(); }
+    else if (k === '?') { document.getElementById('keys').scrollIntoView(); }
+    else if (byKey[k] && cur >= 0) { save(cards[cur], byKey[k]); }
+    else return;
+    ev.preventDefault();
+  });
+
+  if (live) {
+    api('api/events').then(function (j) {
+      j.events.forEach(function (row) { const c = card(row.event_id); if (c) showLabel(c, row); });
+    }).catch(function (e) { mode.textContent = 'Could not read current labels: ' + e.message; });
+  }
+  const start = cards.findIndex(function (c) { return '#' + c.id === location.hash; });
+  if (start >= 0) select(start);
+})();
+"""
+
+
+def _e(x) -> str:
+    return html.escape("" if x is None else str(x), quote=True)
+
+
+def _num(x, fmt="{:.1f}", unit=""):
+    return "—" if x is None else fmt.format(x) + unit
+
+
+def event_image_name(ev: dict) -> str:
+    return f"events/{ev['event_id']}.png"
+
+
+def _event_card(i: int, ev: dict, night: Night, zoom_source: str | None) -> str:
+    peak = parse_iso(ev["peak_utc"])
+    cls = ev["class"]
+    rel = urllib.parse.quote(event_image_name(ev))
+    img = (f'<a href="{rel}"><img src="{rel}" loading="lazy" width="560" height="352" '
+           f'alt="dynamic spectrum and light curve of event {i + 1}"></a>' if zoom_source
+           else '<p class="muted">No spectra for this event in the archive.</p>')
+    rows = [
+        ("peak", f"{night.local(peak):%Y-%m-%d %H:%M:%S} local · {ev['peak_utc'][:19].replace('T', ' ')} UTC"),
+        ("band", f"{ev['fmin_mhz']:.3f}–{ev['fmax_mhz']:.3f} MHz"),
+        ("duration", _num(ev.get("duration_s"), "{:.1f}", " s")),
+        ("peak excess · S/N", f"{_num(ev.get('peak_excess_db'), '{:.1f}', ' dB')} · {_num(ev.get('snr'), '{:.1f}')}"),
+        ("drift", _num(ev.get("drift_mhz_s"), "{:+.3f}", " MHz/s")
+         + (f" ± {ev['drift_err_mhz_s']:.3f}" if ev.get("drift_err_mhz_s") is not None else "")),
+        ("CML III · Io phase", f"{_num(ev.get('cml3_deg'), '{:.0f}', '°')} · {_num(ev.get('io_phase_deg'), '{:.0f}', '°')}"
+         + (f" · {ev['source_region']}" if ev.get("source_region") else "")),
+        ("Jupiter · Sun altitude", f"{_num(ev.get('jupiter_alt_deg'), '{:.0f}', '°')} · {_num(ev.get('sun_alt_deg'), '{:.0f}', '°')}"),
+        ("why", ev.get("reason") or "—"),
+        ("zoom from", zoom_source or "—"),
+        ("event id", ev["event_id"]),
+    ]
+    facts = "".join(f"<tr><td>{_e(k)}</td><td>{_e(v)}</td></tr>" for k, v in rows)
+    buttons = "".join(f'<button type="button" data-label="{lab}"{" class=on" if ev.get("label") == lab else ""}>'
+                      f'<kbd>{LABEL_KEYS[lab]}</kbd>{_e(LABEL_NAMES[lab])}</button>' for lab in LABELS)
+    label = (f"{LABEL_NAMES[ev['label']]}" + (f" ({ev['label_who']})" if ev.get("label_who") else "")
+             if ev.get("label") else "not labelled")
+    return f"""
+<section class="event" id="ev-{i + 1}" data-event-id="{_e(ev['event_id'])}" data-label="{_e(ev.get('label') or '')}">
+<h3><span class="num">#{i + 1}</span> {night.local(peak):%H:%M:%S} · <span class="chip" style="--c:{CLASS_COLOURS[cls]}">{_e(LABEL_NAMES[cls])} {ev.get('confidence') or 0:.2f}</span>
+label: <span class="current-label">{_e(label)}</span></h3>
+<div class="body">{img}
+<table class="ev">{facts}</table>
+<div class="labeller"><div class="buttons">{buttons}</div>
+<input class="note" type="text" maxlength="2000" placeholder="note (optional), saved with the label" value="{_e(ev.get('label_note') or '')}">
+<div class="status"></div><ol class="history"></ol></div>
+</div></section>"""
+
+
+def render_page(cfg, night: Night, summary: dict, events: list[dict], images: dict[str, str]) -> str:
+    """The review page as one HTML string (inline CSS and script, relative image links)."""
+    s = summary
+    st = cfg["station"]
+    gaps = s["gaps"]
+    facts = [
+        ("recording", f"{_fmt_hours(s['recorded_s'])} of {_fmt_hours(s['length_s'])} ({100 * s['uptime']:.0f} %)"),
+        ("gaps", (", ".join(_fmt_span(night, a, b) for a, b in gaps[:8]) + (" …" if len(gaps) > 8 else ""))
+         if gaps else "none"),
+        ("masked as interference", "—" if s["masked_fraction"] is None
+         else f"{100 * s['masked_fraction']:.1f} % (from {s['masked_source']})"),
+        ("events", f"{s['n_events']} ({s['n_labelled']} labelled when this page was made)"),
+        ("Jupiter up", ", ".join(_fmt_span(night, a, b) for a, b in s["jupiter_up"]) or "not up"),
+        ("Sun up", ", ".join(_fmt_span(night, a, b) for a, b in s["sun_up"]) or "not up"),
+    ]
+    facts_html = "".join(f"<div><b>{_e(k)}</b>{_e(v)}</div>" for k, v in facts)
+    chips = "".join(f'<span class="chip" style="--c:{CLASS_COLOURS[c]}">{_e(LABEL_NAMES[c])}: {n}</span>'
+                    for c, n in s["per_class"].items() if n) or '<span class="muted">no events</span>'
+    index = {e["event_id"]: i + 1 for i, e in enumerate(events)}
+    if s["forecast"]:
+        frows = "".join(
+            f"<tr><td>{_e(w['region'])}</td><td>{_e(_fmt_span(night, w['start'], w['end']))}</td>"
+            f"<td>{_num(w.get('max_jupiter_alt_deg'), '{:.0f}', '°')}</td>"
+            f"<td>{100 * w['recorded_fraction']:.0f} %</td><td>"
+            + (", ".join(f'<a href="#ev-{index[x]}">#{index[x]}</a>' for x in w["seen"]) or "nothing seen")
+            + "</td></tr>" for w in s["forecast"])
+        forecast = ("<table><tr><th>region</th><th>window (local)</th><th>Jupiter max alt</th>"
+                    f"<th>recorded</th><th>Jovian events seen</th></tr>{frows}</table>")
+    else:
+        forecast = '<p class="muted">No forecast windows fell in this night.</p>'
+    if s["jovian_outside_forecast"]:
+        forecast += ("<p>Jovian candidates outside the forecast windows: "
+                     + ", ".join(f'<a href="#ev-{index[x]}">#{index[x]}</a>' for x in s["jovian_outside_forecast"])
+                     + "</p>")
+    cards = "".join(_event_card(i, e, night, images.get(event_image_name(e))) for i, e in enumerate(events))
+    keys = "".join(f"<tr><td><kbd>{LABEL_KEYS[lab]}</kbd></td><td>{_e(LABEL_NAMES[lab])} "
+                   f"<span class='muted'>({lab})</span></td></tr>" for lab in LABELS)
+    payload = {"night": night.name, "station": st["name"],
+               "events": [e["event_id"] for e in events],
+               "labels": [{"key": LABEL_KEYS[lab], "label": lab} for lab in LABELS],
+               "names": LABEL_NAMES}
+    data_json = json.dumps(payload).replace("<", "\\u003c")
+    overview = '<img class="plot" src="overview.png" alt="dynamic spectrum of the night with event boxes">' \
+        if "overview.png" in images else '<p class="muted">No archived spectra for this night.</p>'
+    cml = '<img class="plot" src="cml_io.png" alt="Jovian candidates on the CML III and Io phase plane">' \
+        if "cml_io.png" in images else ""
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<meta name="rxlog-session" content="">
+<title>{_e(st['name'])} — night of {night.name}</title>
+<style>{PAGE_CSS}</style></head>
+<body>
+<header><h1>{_e(st['name'])} — night of {night.name}</h1>
+<div class="sub">{_fmt_local(night, night.t0)} {night.local(night.t0):%d %b} to {_fmt_local(night, night.t1)}
+{night.local(night.t1):%d %b} local time ({_e(night.tz)}) · {st['latitude_deg']:.3f}°, {st['longitude_deg']:.3f}° ·
+report made {s['generated_utc'][:16].replace('T', ' ')} UTC</div></header>
+<div id="toolbar"><label>your name <input id="who" type="text" maxlength="100" placeholder="optional"></label>
+<span><kbd>j</kbd>/<kbd>k</kbd> next/previous · <kbd>u</kbd> next unlabelled · <kbd>1</kbd>…<kbd>0</kbd> label · <kbd>n</kbd> note · <kbd>?</kbd> keys</span>
+<span id="mode"></span></div>
+<main>
+<h2>Summary</h2>
+<div class="facts-grid">{facts_html}</div>
+<p>{chips}</p>
+<h2>Overview</h2>
+{overview}
+<h2>Forecast windows and what was seen</h2>
+{forecast}
+<h2>CML III – Io phase</h2>
+{cml}
+<h2>Events ({len(events)})</h2>
+{cards or '<p class="muted">No events this night.</p>'}
+<h2 id="keys">Keys</h2>
+<table><tr><td><kbd>j</kbd> <kbd>↓</kbd></td><td>next event</td></tr>
+<tr><td><kbd>k</kbd> <kbd>↑</kbd></td><td>previous event</td></tr>
+<tr><td><kbd>u</kbd></td><td>next unlabelled event</td></tr>
+<tr><td><kbd>n</kbd></td><td>type a note (Enter or Esc to leave it), saved with the next label</td></tr>
+{keys}</table>
+</main>
+<script type="application/json" id="rxlog-data">{data_json}</script>
+<script data-rxlog-app>{PAGE_JS}</script>
+</body></html>
+"""
+
+
+# -- the report -------------------------------------------------------------------------
+
+def night_events(cfg, night: Night) -> list[dict]:
+    store = EventStore(cfg.store_path)
+    try:
+        return store.events(night.t0, night.t1, station=cfg["station"]["name"])
+    finally:
+        store.close()
+
+
+def _windows(windows) -> list[dict]:
+    """Forecast windows as plain dicts (start, end POSIX s; region; max_jupiter_alt_deg)."""
+    get = lambda w, k: w[k] if isinstance(w, dict) else getattr(w, k)
+    return [{"start": float(get(w, "start")), "end": float(get(w, "end")), "region": str(get(w, "region")),
+             "max_jupiter_alt_deg": get(w, "max_jupiter_alt_deg")} for w in windows]
+
+
+TRACK_STEP_S = 300.0   # sampling of the night's CML–Io-phase track
+
+
+def _jupiter_track(cfg, jupiter_up: list[tuple[float, float]]):
+    """(CML III, Io phase) every TRACK_STEP_S while Jupiter was up, NaN between the up intervals."""
+    from rxlog.ephemeris import station_tags
+
+    pieces = [np.append(np.arange(a, b, TRACK_STEP_S), np.nan) for a, b in jupiter_up if b > a]
+    if not pieces:
+        return None
+    t = np.concatenate(pieces)
+    ok = np.isfinite(t)
+    cml, io = np.full(t.shape, np.nan), np.full(t.shape, np.nan)
+    tags = station_tags(cfg, t[ok])
+    cml[ok], io[ok] = tags["cml3_deg"], tags["io_phase_deg"]
+    return cml, io
+
+
+CUTOUT_MAX_BINS = (720, 512)   # a cutout is shown at its own resolution up to this many (time, channel) bins
+
+
+def cutout_file(cfg, ev: dict) -> Path | None:
+    """Where an event's kept full-resolution cutout is (relative paths are under the storage root)."""
+    if not ev.get("cutout_path"):
+        return None
+    p = Path(ev["cutout_path"])
+    return p if p.is_absolute() else Path(cfg.storage_root) / p
+
+
+def read_cutout(cfg, ev: dict):
+    """An event's cutout as (t_edges, f_edges_mhz, excess) at its own resolution, or None when there is none.
+
+    Cutouts are dynamic spectra in the archive's FITS layout. The background is the
+    per-channel median over the cutout (its burst is brief against its length).
+    """
+    from rxlog.archive import read_spectrum_fits
+
+    path = cutout_file(cfg, ev)
+    if path is None or not path.is_file():
+        return None
+    try:
+        spec = read_spectrum_fits(path)
+    except (RxlogError, OSError, ValueError):
+        return None
+    n_t = min(spec.n_time, CUTOUT_MAX_BINS[0])
+    n_f = min(spec.n_chan, CUTOUT_MAX_BINS[1])
+    f = spec.freq_hz / 1e6
+    df = float(np.median(np.diff(f))) if f.size > 1 else 0.01
+    f_edges = np.linspace(f.min() - df / 2, f.max() + df / 2, n_f + 1)
+    t_edges = np.linspace(spec.t0, spec.t_end, n_t + 1)
+    chan_bin = np.clip(np.searchsorted(f_edges, f, side="right") - 1, 0, n_f - 1)
+    row_bin = np.floor((spec.times - spec.t0) / (t_edges[1] - t_edges[0])).astype(np.int64)
+    valid = np.isfinite(spec.power_db) & ((spec.flags & DISPLAY_FLAGS) == 0)
+    sums, counts = np.zeros((n_t, n_f)), np.zeros((n_t, n_f))
+    _accumulate(sums, counts, row_bin, chan_bin, spec.power_db, valid, n_t)
+    import warnings
+    with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        power = sums / counts
+        excess = power - np.nanmedian(power, axis=0)[None, :]
+    if not np.isfinite(excess).any():
+        return None
+    return t_edges, f_edges, excess
+
+
+def build_report(cfg, night: Night | str | dt.date | None = None, progress=None, now: float | None = None) -> Path:
+    """Write the report folder of one night (default: the latest complete night with data); return its index.html.
+
+    ``progress(done, total)`` is called as the archive is read.
+    """
+    if night is None:
+        night = default_night(cfg, now=now)
+    elif isinstance(night, str):
+        night = parse_night(cfg, night)
+    elif isinstance(night, dt.date):
+        night = night_starting(cfg, night)
+    out = report_dir(cfg, night)
+    (out / "events").mkdir(parents=True, exist_ok=True)
+    events = night_events(cfg, night)
+    store = EventStore(cfg.store_path)
+    try:
+        quality = store.quality(night.t0, night.t1)
+    finally:
+        store.close()
+
+    from rxlog.ephemeris import body_up_intervals
+    from rxlog.forecast import forecast_windows
+
+    jupiter_up = _intervals(body_up_intervals(cfg, night.t0, night.t1, body="jupiter"))
+    sun_up = _intervals(body_up_intervals(cfg, night.t0, night.t1, body="sun"))
+    forecast = [w for w in _windows(forecast_windows(cfg, night.t0, 1))
+                if _overlap(w["start"], w["end"], night.t0, night.t1) > 0]
+
+    images: dict[str, str] = {}   # file name -> what it was drawn from
+    zoomer = ZoomPlotter(night, _freq_bins(cfg))
+    cut_plotters: dict[tuple, ZoomPlotter] = {}
+
+    from_archive = []
+    for i, ev in enumerate(events):
+        cut = read_cutout(cfg, ev)
+        if cut is None:
+            from_archive.append(i)
+            continue
+        t_edges, f_edges, excess = cut
+        key = (round(float(f_edges[0]), 4), round(float(f_edges[-1]), 4))
+        plotter = cut_plotters.setdefault(key, ZoomPlotter(night, f_edges))
+        plotter.draw(out / event_image_name(ev), i + 1, ev, t_edges, excess, "full-resolution cutout")
+        images[event_image_name(ev)] = "full-resolution cutout"
+
+    def on_zoom(k, ev, t_edges, f_edges, power, bg):
+        if np.isfinite(power).any():
+            zoomer.draw(out / event_image_name(ev), from_archive[k] + 1, ev, t_edges, power - bg[None, :], "archive")
+            images[event_image_name(ev)] = "archive"
+
+    data = read_night(cfg, night, [events[i] for i in from_archive], on_zoom=on_zoom, progress=progress)
+    summary = night_summary(cfg, night, events, data, quality, jupiter_up, sun_up, forecast)
+    if data.covered:
+        plot_overview(out / "overview.png", night, data, events, summary)
+        images["overview.png"] = "archive"
+    plot_cml_io(out / "cml_io.png", cfg, night, [(i, e) for i, e in enumerate(events) if e["class"] in JOVIAN],
+                track=_jupiter_track(cfg, jupiter_up))
+    images["cml_io.png"] = "event store"
+    # Drop zooms of events that are no longer in the store (re-detection changed the ids).
+    for old in (out / "events").glob("*.png"):
+        if f"events/{old.name}" not in images:
+            old.unlink()
+    page = render_page(cfg, night, summary, events, images)
+    _write_atomic(out / "summary.txt", format_summary(summary, night) + "\n")
+    _write_atomic(out / "index.html", page)
+    return out / "index.html"
+
+
+def _write_atomic(path: Path, text: str):
+    tmp = path.with_name(path.name + ".tmp")
+    tmp.write_text(text, encoding="utf-8")
+    tmp.replace(path)
+
+
+# -- listings ---------------------------------------------------------------------------
+
+def list_events(cfg, night: str | Night | None = None, cls: str | None = None,
+                unlabelled: bool = False) -> list[dict]:
+    """This station's stored events (oldest first), optionally one night's, one class's, or only unlabelled ones."""
+    if isinstance(night, str):
+        night = parse_night(cfg, night)
+    t0, t1 = (night.t0, night.t1) if night is not None else (None, None)
+    store = EventStore(cfg.store_path)
+    try:
+        return store.events(t0, t1, cls=cls, unlabelled=unlabelled, station=cfg["station"]["name"])
+    finally:
+        store.close()
+
+
+def event_table(cfg, night: str | Night | None = None, cls: str | None = None, unlabelled: bool = False) -> str:
+    """``list_events`` as a plain-text table with local peak times."""
+    rows = list_events(cfg, night, cls, unlabelled)
+    if not rows:
+        return "no events match"
+    tz = ZoneInfo(cfg["station"]["timezone"])
+    head = ("event_id", "peak (local)", "class", "conf", "MHz", "dur s", "S/N", "region", "label")
+    body = []
+    for r in rows:
+        peak = dt.datetime.fromtimestamp(parse_iso(r["peak_utc"]), tz)
+        body.append((r["event_id"], f"{peak:%Y-%m-%d %H:%M:%S}", r["class"], f"{r.get('confidence') or 0:.2f}",
+                     f"{r['fmin_mhz']:.2f}-{r['fmax_mhz']:.2f}", _num(r.get("duration_s"), "{:.1f}"),
+                     _num(r.get("snr"), "{:.1f}"), r.get("source_region") or "-",
+                     (r["label"] + (f" ({r['label_who']})" if r.get("label_who") else "")) if r.get("label") else "-"))
+    widths = [max(len(str(x)) for x in col) for col in zip(head, *body)]
+    line = lambda cells: "  ".join(str(c).ljust(w) for c, w in zip(cells, widths)).rstrip()
+    return "\n".join([line(head), line(["-" * w for w in widths])] + [line(b) for b in body]
+                     + [f"{len(rows)} event{'s' if len(rows) != 1 else ''} ({tz})"])
