@@ -103,25 +103,28 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
     scatter = MAD_TO_SIGMA / np.sqrt(2.0) * nanmedian(diff, axis=0).astype(np.float64)
     scatter = np.where(np.isfinite(scatter), scatter, 0.0)
     degree = 2 if n >= 9 else (1 if n >= 4 else 0)
-    A = np.stack([tc ** k for k in range(degree + 1)], axis=1)          # (n, d+1)
+    d1 = degree + 1
+    powers = np.stack([tc ** k for k in range(2 * degree + 1)], axis=0)     # (2d+1, n)
+    A = powers[:d1].T                                                     # (n, d+1)
+    kl = np.add.outer(np.arange(d1), np.arange(d1))
     w = ok.astype(np.float64)
     thresh = np.maximum(reject_db, reject_sigma * scatter)[None, :]
-    coef = np.zeros((degree + 1, g))
+    keep_min = max(3, n // 3)
+    coef = np.zeros((d1, g))
     for _ in range(iterations):
-        M = np.einsum("nk,nl,ng->gkl", A, A, w)
-        v = np.einsum("nk,ng->gk", A, w * yy)
-        # Columns with too few points get a ridge towards the constant model.
-        M = M + 1e-9 * np.eye(degree + 1)[None]
-        coef = np.linalg.solve(M, v[..., None])[..., 0].T                # (d+1, g)
+        moments = powers @ w                                              # (2d+1, g)
+        M = np.moveaxis(moments[kl], -1, 0) + 1e-9 * np.eye(d1)[None]     # (g, d+1, d+1)
+        v = (A.T @ (w * yy)).T                                            # (g, d+1)
+        coef = np.linalg.solve(M, v[..., None])[..., 0].T                 # (d+1, g)
         resid = yy - A @ coef
         w_new = (ok & (np.abs(resid) <= thresh)).astype(np.float64)
         # Keep at least a third of the points: a window dominated by an event falls back
         # to its quietest cells rather than to nothing.
-        few = w_new.sum(axis=0) < max(3, n // 3)
+        few = w_new.sum(axis=0) < keep_min
         if np.any(few):
             r = np.where(ok, np.abs(resid), np.inf)[:, few]
-            k = max(3, n // 3)
-            cut = np.partition(r, min(k, n - 1), axis=0)[min(k, n - 1)]
+            k = min(keep_min, n - 1)
+            cut = np.partition(r, k, axis=0)[k]
             w_new[:, few] = (r <= cut).astype(np.float64)
         if np.array_equal(w_new, w):
             break

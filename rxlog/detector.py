@@ -850,6 +850,7 @@ class OnlineDetector:
         self._open: list[dict] = []   # open episodes
         self._touched: set[str] = set()
         self._quality: list[dict] = []
+        self._hours: dict[float, list[float]] = {}
 
     # -- feeding -----------------------------------------------------------------------
     def feed(self, spec: DynamicSpectrum) -> list[dict]:
@@ -866,6 +867,7 @@ class OnlineDetector:
 
     def flush(self) -> list[dict]:
         out = self._end_segment()
+        self._collect_quality(final=True)
         for ep in self._open:
             self._touched.add(ep["episode_id"])
         self._open = []
@@ -875,7 +877,11 @@ class OnlineDetector:
         if self.seg is None:
             return []
         out = self._events(self.seg.finish())
-        self._collect_quality(final=True)
+        seg_hours = self.seg.hours_before(math.inf)
+        for h, v in seg_hours:
+            acc = self._hours.setdefault(h, [0.0, 0.0, 0.0, 0.0])
+            for i in range(4):
+                acc[i] += v[i]
         self.seg = None
         return out
 
@@ -889,14 +895,22 @@ class OnlineDetector:
         return q
 
     def _collect_quality(self, final: bool):
+        """Move the segment's finished hours into the detector's sums; emit hours no
+        later row can touch (all of them when ``final``: the end of the data)."""
         seg = self.seg
-        if seg is None:
-            return
-        t = math.inf if final else seg.t0 + seg.next_m * seg.block_s
-        for h, (masked, cov, gap, covs) in sorted(seg.hours_before(t)):
-            self._quality.append({"station": self.s.station, "hour_utc": iso(h),
-                                  "masked_fraction": masked / cov if cov > 0 else None,
-                                  "gap_s": gap, "covered_s": covs})
+        now = -math.inf
+        if seg is not None:
+            now = seg.t0 + seg.next_m * seg.block_s
+            for h, v in seg.hours_before(math.inf if final else now):
+                acc = self._hours.setdefault(h, [0.0, 0.0, 0.0, 0.0])
+                for i in range(4):
+                    acc[i] += v[i]
+        for h in sorted(self._hours):
+            if final or h + 3600.0 <= now:
+                masked, cov, gap, covs = self._hours.pop(h)
+                self._quality.append({"station": self.s.station, "hour_utc": iso(h),
+                                      "masked_fraction": masked / cov if cov > 0 else None,
+                                      "gap_s": gap, "covered_s": covs})
 
     # -- events ----------------------------------------------------------------------------
     def _events(self, comps: list) -> list[dict]:
@@ -912,8 +926,10 @@ class OnlineDetector:
         events = []
         for i, f in enumerate(feats):
             ctx = {k: tags[k][i] for k in tags} if tags else {}
+            region = ctx.get("source_region")
+            region = None if region is None or str(region).lower() in ("", "none") else str(region)
             f.update(sun_alt=ctx.get("sun_alt_deg"), jupiter_alt=ctx.get("jupiter_alt_deg"),
-                     source_region=ctx.get("source_region") or None, band_mhz=seg.band_mhz(),
+                     source_region=region, band_mhz=seg.band_mhz(),
                      cadence_s=seg.cadence, chan_mhz=seg.chan_mhz)
             cls, conf, reason = classify(f, self.s)
             events.append(self._event_dict(f, ctx, cls, conf, reason))
@@ -1028,3 +1044,86 @@ def detect_spectrum(cfg, spec: DynamicSpectrum, tags_fn: TagsFn | None = None,
     events += det.flush()
     events.sort(key=lambda e: e["peak_utc"])
     return DetectionResult(events=events, episodes=det.pop_episodes(), quality_rows=det.pop_quality(), mask=mask)
+
+
+def detect_range(cfg, t0: float | None = None, t1: float | None = None,
+                 progress: Callable[[float, float], None] | None = None, tags_fn: TagsFn | None = None,
+                 hours_per_read: float = 1.0) -> dict:
+    """Re-run detection over the archive between t0 and t1 (default: all of it) into the store.
+
+    Reads the archive an hour at a time (bounded memory) from a little before t0, so the
+    background is settled when t0 arrives, to a little after t1, so events near t1
+    finish; then replaces the station's detections peaking in [t0, t1) in one
+    transaction (labels are kept apart and re-attach by overlap), the episodes starting
+    there, and the hourly quality rows. Running it twice gives the same store.
+    ``progress(done_s, total_s)`` is called with the seconds of archive read so far.
+    Returns a summary: t0, t1, events, by_class, episodes, hours, segments.
+    """
+    from rxlog.archive import archive_extent, read_archive
+    from rxlog.errors import RxlogError
+    from rxlog.store import EventStore
+
+    extent = archive_extent(cfg.archive_dir)
+    if extent is None:
+        raise RxlogError(f"{cfg.archive_dir}: the archive holds no spectra yet; record some first "
+                         "(rxlog run) or ingest FITS dynamic spectra (rxlog ingest)")
+    t0 = extent[0] if t0 is None else float(t0)
+    t1 = extent[1] if t1 is None else float(t1)
+    if not t1 > t0:
+        raise RxlogError(f"--end ({iso(t1)}) must be after --start ({iso(t0)})")
+    s = Settings.from_config(cfg)
+    margin = s.slow_window_s / 2 + s.fast_window_s + 3 * s.block_s
+    a = max(extent[0], t0 - margin)
+    b = min(extent[1], t1 + margin)
+    det = OnlineDetector(cfg, tags_fn=tags_fn, settings=s)
+    events, segments = [], set()
+    step = 3600.0 * hours_per_read
+    cursor = math.floor(a / step) * step
+    gaps: list[tuple[float, float]] = []
+    while cursor < b:
+        lo, hi = max(cursor, a), min(cursor + step, b)
+        got = read_archive(cfg.archive_dir, lo, hi)
+        gaps += got.gaps
+        for spec in got.segments:
+            segments.add(spec.segment)
+            events += det.feed(spec)
+        if progress is not None:
+            progress(min(max(hi - a, 0.0), b - a), b - a)
+        cursor += step
+    events += det.flush()
+    keep = [e for e in events if t0 <= _unix(e["peak_utc"]) < t1]
+    episodes = [ep for ep in det.pop_episodes() if t0 <= _unix(ep["start_utc"]) < t1]
+    quality = _with_gaps([q for q in det.pop_quality() if t0 - 3600.0 < _unix(q["hour_utc"]) < t1],
+                         gaps, s.station, t0, t1)
+    store = EventStore(cfg.store_path)
+    try:
+        store.replace_events(s.station, t0, t1, keep, episodes)
+        store.record_quality(quality)
+    finally:
+        store.close()
+    by_class: dict[str, int] = {}
+    for e in keep:
+        by_class[e["class"]] = by_class.get(e["class"], 0) + 1
+    return {"t0": t0, "t1": t1, "events": len(keep), "by_class": dict(sorted(by_class.items())),
+            "episodes": len(episodes), "hours": len(quality), "segments": len(segments)}
+
+
+def _unix(text: str) -> float:
+    from rxlog.timeutil import parse_iso
+    return parse_iso(text)
+
+
+def _with_gaps(rows: list[dict], gaps: list[tuple[float, float]], station: str, t0: float, t1: float) -> list[dict]:
+    """Add the archive's gaps (stretches without any segment) to the hourly gap seconds."""
+    by_hour = {r["hour_utc"]: dict(r) for r in rows}
+    for a, b in gaps:
+        a, b = max(a, t0), min(b, t1)
+        h = math.floor(a / 3600.0) * 3600.0
+        while h < b:
+            part = min(b, h + 3600.0) - max(a, h)
+            if part > 0:
+                r = by_hour.setdefault(iso(h), {"station": station, "hour_utc": iso(h), "masked_fraction": None,
+                                                "gap_s": 0.0, "covered_s": 0.0})
+                r["gap_s"] = float(r["gap_s"] or 0.0) + part
+            h += 3600.0
+    return [by_hour[k] for k in sorted(by_hour)]

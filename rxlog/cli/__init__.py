@@ -2,7 +2,9 @@
 
 from rxlog.cli.base import main
 from rxlog.cli import station  # noqa: F401  (config check, prune, demo)
+from rxlog.cli import service  # noqa: F401  (run, status, service)
 from rxlog.cli import archive  # noqa: F401  (prune, ingest of FITS dynamic spectra)
+from rxlog.cli import detect  # noqa: F401  (detect)
 from rxlog.cli import review  # noqa: F401  (review, events, label)
 
 __all__ = ["main"]
