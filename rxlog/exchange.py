@@ -22,6 +22,7 @@ nothing usable left is refused with an ``RxlogError``.
 from __future__ import annotations
 
 import csv
+import datetime as _dt
 import io
 import json
 import math
@@ -98,6 +99,8 @@ HEADER = {
 }
 
 STATION_NAME = re.compile(r"[A-Za-z0-9_-]{1,40}")
+# Times as rxlog writes them (rxlog.timeutil.iso); others are rewritten in this form.
+CANONICAL_TIME = re.compile(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d\.\d{3}Z")
 
 # Limits that keep a hostile or broken file from exhausting memory (our own choice: a
 # year of events of a busy station is a few MB).
@@ -503,12 +506,15 @@ def _short(v) -> str:
 
 def _convert(value, kind: str):
     """A cell (text from CSV, a JSON value, a VOTable value) -> typed value or None; ValueError if wrong."""
-    if value is None or (isinstance(value, np.ma.core.MaskedConstant)):
+    if value is None:
         return None
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, bytes):
-        value = value.decode("utf-8", errors="strict")
+    if not isinstance(value, (str, float, int)):
+        if isinstance(value, np.ma.core.MaskedConstant):
+            return None
+        if isinstance(value, np.generic):
+            value = value.item()
+        if isinstance(value, bytes):
+            value = value.decode("utf-8", errors="strict")
     if kind in ("str", "time"):
         if not isinstance(value, str):
             raise ValueError(f"expected text, got {_short(value)}")
@@ -517,7 +523,8 @@ def _convert(value, kind: str):
             return None
         if kind == "time":
             try:
-                return iso(parse_iso(v))
+                t = parse_iso(v)
+                return v if CANONICAL_TIME.fullmatch(v) else iso(t)
             except (ValueError, OverflowError):
                 raise ValueError(f"not an ISO 8601 UTC time: {_short(value)} "
                                  "(expected e.g. 2026-12-01T22:10:00.123Z)") from None
@@ -550,12 +557,36 @@ def _convert(value, kind: str):
     return x
 
 
+def _cell(v, kind: str):
+    """_convert with a fast path for the common case: well-formed CSV text."""
+    if v.__class__ is str:
+        v = v.strip()
+        if not v:
+            return None
+        if kind == "str":
+            return v
+        if kind == "float":
+            try:
+                x = float(v)
+            except ValueError:
+                x = math.nan  # _convert gives the message
+            if math.isfinite(x):
+                return x
+        elif kind == "time" and CANONICAL_TIME.fullmatch(v):
+            try:
+                _dt.datetime.fromisoformat(v)  # a real date and time?
+                return v
+            except ValueError:
+                pass  # _convert gives the message
+    return _convert(v, kind)
+
+
 def _event(cells: dict) -> dict:
     """Typed, checked event from raw cells of the known columns; ValueError names the problem."""
     ev = {}
-    for name in COLUMN_NAMES:
+    for name, kind in KIND.items():
         try:
-            ev[name] = _convert(cells.get(name), KIND[name])
+            ev[name] = _cell(cells.get(name), kind)
         except ValueError as e:
             raise ValueError(f"{name}: {e}") from None
     for name in REQUIRED:
@@ -565,10 +596,13 @@ def _event(cells: dict) -> dict:
         raise ValueError(f"class: unknown class {_short(ev['class'])}; expected one of {', '.join(CLASSES)}")
     if ev["label"] is not None and ev["label"] not in LABELS:
         raise ValueError(f"label: unknown label {_short(ev['label'])}; expected one of {', '.join(LABELS)}")
-    t0, t1, tp = (parse_iso(ev[k]) for k in ("start_utc", "end_utc", "peak_utc"))
+    t0, t1, tp = (ev[k] for k in ("start_utc", "end_utc", "peak_utc"))
+    if not all(CANONICAL_TIME.fullmatch(t) for t in (t0, t1, tp)):  # years outside 1000-9999
+        t0, t1, tp = (parse_iso(t) for t in (t0, t1, tp))
+    # Canonical times (same width, zero-padded) sort as text in time order.
     if t1 < t0:
         raise ValueError(f"end_utc {ev['end_utc']} is before start_utc {ev['start_utc']}")
-    if not t0 - 0.0015 <= tp <= t1 + 0.0015:
+    if not t0 <= tp <= t1:
         raise ValueError(f"peak_utc {ev['peak_utc']} is outside start_utc..end_utc")
     if not 0 < ev["fmin_mhz"] <= ev["fmax_mhz"]:
         raise ValueError(f"fmin_mhz {ev['fmin_mhz']} and fmax_mhz {ev['fmax_mhz']}: expected 0 < fmin <= fmax")

@@ -6,5 +6,6 @@ from rxlog.cli import service  # noqa: F401  (run, status, service)
 from rxlog.cli import archive  # noqa: F401  (prune, ingest of FITS dynamic spectra)
 from rxlog.cli import detect  # noqa: F401  (detect)
 from rxlog.cli import review  # noqa: F401  (review, events, label)
+from rxlog.cli import exchange  # noqa: F401  (export, compare)
 
 __all__ = ["main"]
