@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sys
+
 import click
 
 from rxlog.cli.base import UserError, station_command
@@ -56,7 +58,7 @@ def ingest_command(cfg, paths):
         raise UserError(f"{not_fits[0]}: not a FITS file (it does not start with 'SIMPLE  ='); "
                         "expected a FITS dynamic spectrum")
     done = []
-    with click.progressbar(paths, label="ingesting", file=click.get_text_stream("stderr")) as bar:
+    with click.progressbar(paths, label="ingesting", file=sys.stderr) as bar:
         for p in bar:
             done.append(ingest_fits(cfg, p))
     for s in done:

@@ -1,0 +1,116 @@
+"""Ingesting foreign FITS dynamic spectra: a segment of its own with its own grid and
+cadence, uncovered channels masked (never zero), idempotent, block size invariant; and
+the `rxlog ingest` command."""
+
+import numpy as np
+import pytest
+from astropy.io import fits
+from astropy.time import Time
+from click.testing import CliRunner
+
+from rxlog.archive import ArchiveWriter, ingest_fits, read_archive
+from rxlog.cli import main
+from rxlog.config import config_from_text
+from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED
+
+from archive_helpers import STATION, noisy_spectrum
+
+REF = Time("2026-12-01T21:55:00", scale="utc")      # astropy.time gives the expected epoch
+N_TIME, N_CHAN, CADENCE = 1200, 24, 0.5             # 10 minutes across 22:00 UTC
+
+
+@pytest.fixture
+def cfg(tmp_path):
+    return config_from_text(
+        '[station]\nname = "test-station"\nlatitude_deg = 47.5\nlongitude_deg = 8.7\n'
+        '[storage]\nroot = "data"\n', tmp_path / "station.toml")
+
+
+def foreign(path, power=None):
+    """A partner's file: time on NAXIS1 from MJDREF, 18-24 MHz in MHz, dB, its own site."""
+    if power is None:
+        rng = np.random.default_rng(5)
+        power = (3.0 + rng.normal(0.0, 0.3, (N_TIME, N_CHAN))).astype(np.float32)
+        power[:, 4] = np.nan                          # a channel the partner's receiver lacks
+        power[100:103, 10] = np.nan                   # a short dropout in one channel
+    h = fits.Header()
+    h.update({"CTYPE1": "TIME", "CUNIT1": "s", "CRPIX1": 1.0, "CRVAL1": CADENCE / 2, "CDELT1": CADENCE,
+              "CTYPE2": "FREQ", "CUNIT2": "MHz", "CRPIX2": 1.0, "CRVAL2": 18.125, "CDELT2": 0.25,
+              "MJDREF": REF.mjd, "TIMESYS": "UTC", "BUNIT": "dB",
+              "OBSGEO-B": 44.0, "OBSGEO-L": 5.5, "OBSGEO-H": 600.0, "TELESCOP": "partner"})
+    fits.PrimaryHDU(power.T.copy(), header=h).writeto(path)
+    return path, power
+
+
+def test_ingested_file_is_a_segment_of_its_own(tmp_path, cfg):
+    station = noisy_spectrum(900, 64, t0=REF.unix - 100, segment="station")
+    with ArchiveWriter(cfg.archive_dir, STATION) as w:
+        w.write(station)
+    path, power = foreign(tmp_path / "partner.fits")
+    summary = ingest_fits(cfg, path)
+    assert summary.n_time == N_TIME and summary.cadence_s == CADENCE
+    got = read_archive(cfg.archive_dir, REF.unix - 100, REF.unix + 800)
+    [theirs] = [s for s in got.segments if s.segment == summary.segment]
+    ours = [s for s in got.segments if s.segment == "station"]
+    assert len(ours) == 1 and ours[0].n_chan == 64 and ours[0].n_time == 900
+    # its own grid and cadence, not resampled onto the station's
+    assert theirs.n_chan == N_CHAN and theirs.cadence_s == CADENCE and theirs.n_time == N_TIME
+    assert np.allclose(theirs.freq_hz, 18.125e6 + 0.25e6 * np.arange(N_CHAN))
+    assert theirs.t0 == pytest.approx(REF.unix, abs=1e-3)
+    ok = np.isfinite(power)
+    assert np.max(np.abs(theirs.power_db[ok] - power[ok])) <= 0.02
+    # uncovered channel masked with NaN, never zero; a dropout is a gap
+    assert np.isnan(theirs.power_db[:, 4]).all() and (theirs.flags[:, 4] == FLAG_UNCOVERED).all()
+    assert np.isnan(theirs.power_db[100:103, 10]).all() and (theirs.flags[100:103, 10] == FLAG_GAP).all()
+    # the partner's site is kept with the segment
+    assert (theirs.meta["site_latitude_deg"], theirs.meta["site_longitude_deg"]) == (44.0, 5.5)
+    assert theirs.meta["source_telescope"] == "partner"
+
+
+def test_ingesting_twice_stores_the_file_once(tmp_path, cfg):
+    path, _ = foreign(tmp_path / "partner.fits")
+    a = ingest_fits(cfg, path)
+    b = ingest_fits(cfg, path)
+    assert a.segment == b.segment
+    got = read_archive(cfg.archive_dir, REF.unix, REF.unix + N_TIME * CADENCE)
+    assert [(s.segment, s.n_time) for s in got.segments] == [(a.segment, N_TIME)]
+
+
+def test_block_size_does_not_change_what_is_stored(tmp_path, cfg):
+    """Reading in small blocks (bounded memory) stores the same as one block; a channel
+    without data only in the first block is a gap there, not uncovered."""
+    rng = np.random.default_rng(9)
+    power = (rng.normal(0.0, 1.0, (N_TIME, N_CHAN))).astype(np.float32)
+    power[:50, 7] = np.nan
+    path, _ = foreign(tmp_path / "p.fits", power)
+    results = []
+    for block_s, sub in ((20.0, "small"), (3600.0, "large")):
+        c = config_from_text(f'[station]\nname = "s"\nlatitude_deg = 1\nlongitude_deg = 2\n'
+                             f'[storage]\nroot = "{sub}"\n', tmp_path / f"{sub}.toml")
+        ingest_fits(c, path, block_s=block_s)
+        [seg] = read_archive(c.archive_dir, REF.unix, REF.unix + 1e4).segments
+        results.append(seg)
+    assert np.array_equal(results[0].power_db, results[1].power_db, equal_nan=True)
+    assert np.array_equal(results[0].flags, results[1].flags)
+    assert (results[0].flags[:50, 7] == FLAG_GAP).all() and (results[0].flags[50:, 7] == 0).all()
+
+
+def test_ingest_command(tmp_path, cfg):
+    path, _ = foreign(tmp_path / "partner.fits")
+    r = CliRunner().invoke(main, ["ingest", "--config", str(cfg.path), str(path)])
+    assert r.exit_code == 0, r.output
+    assert "partner.fits: segment fits-" in r.output and "1200 spectra every 0.5 s" in r.output
+    assert "2026-12-01T21:55:00.000Z" in r.output
+
+
+def test_ingest_command_refuses_bad_files_cleanly(tmp_path, cfg):
+    text = tmp_path / "notes.txt"
+    text.write_text("not a spectrum")
+    r = CliRunner().invoke(main, ["ingest", "--config", str(cfg.path), str(text)])
+    assert r.exit_code == 2 and "notes.txt: not a FITS file" in r.output and "Traceback" not in r.output
+    path, _ = foreign(tmp_path / "partner.fits")
+    with fits.open(path, mode="update") as hdul:
+        del hdul[0].header["MJDREF"]
+    r = CliRunner().invoke(main, ["ingest", "--config", str(cfg.path), str(path)])
+    assert r.exit_code == 2 and "partner.fits" in r.output and "MJDREF" in r.output
+    assert not list(cfg.archive_dir.rglob("*.fits"))            # nothing half-stored
