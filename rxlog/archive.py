@@ -22,9 +22,9 @@ sits at ``times[i] + cadence/2``. Keywords beyond the standard ones start with `
 Power is stored in dB either quantised (int16 in steps of ``QUANT_STEP_DB`` through
 BSCALE, NaN as BLANK, lossless HCOMPRESS of the integers) or, in lossless mode, as
 float32 with GZIP_2 byte-shuffle compression. Measured on noise of 0.11 dB per cell at
-1024 channels and 1 s (``python -m benchmarks``): ~46 MB/day quantised, ~220 MB/day
-lossless. Time along NAXIS1 compresses best because each channel's time series is
-smooth apart from the radiometer noise.
+1024 channels and 1 s, with carriers and impulsive interference (``python -m benchmarks
+archive``): ~49 MB/day quantised, ~200 MB/day lossless. Time along NAXIS1 compresses
+best because each channel's time series is smooth apart from the radiometer noise.
 
 Crash safety: every file is written under a temporary name, fsynced, renamed and its
 directory fsynced, so a reader sees either the old file or the new one. A writer killed
