@@ -929,7 +929,8 @@ def read_archive(root, t0: float, t1: float, fill_gaps_up_to_s: float = DEFAULT_
     for attempt in range(3):                  # a writer may consolidate chunks while we read
         try:
             pieces = []
-            for path, _name, _hour, _chunk in _archive_files(root, _hour_index(t0), _hour_index(t1)):
+            last_hour = math.ceil(t1 / _HOUR) - 1           # rows start before t1
+            for path, _name, _hour, _chunk in _archive_files(root, _hour_index(t0), last_hour):
                 for spec, lossless in _read_file(path):
                     clipped = _clip(spec, t0, t1)
                     if clipped is not None:
