@@ -105,7 +105,31 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "retention_days": Key(NUMBER, 90, min=0.01, help="Delete archived spectra older than this many days"),
         "lossless": Key(bool, False, help="Store float32 power exactly (~200 MB/day) instead of 0.0399-dB steps (~49 MB/day)"),
     },
-    "sweep": {},
+    "sweep": {
+        "mode": Key(str, "sweep", choices=("sweep", "single"),
+                    help="sweep: step tunings across the band; single: one fixed window, highest time resolution"),
+        "tunings_hz": Key(list, [], help="Window centres, Hz (empty: evenly spaced windows covering the band)",
+                          check=lambda v: [] if all(isinstance(f, (int, float)) and not isinstance(f, bool)
+                                                    and 1e5 <= f <= 2e9 for f in v)
+                          else ["expected a list of centre frequencies in Hz, e.g. [17e6, 19e6]"]),
+        "step_hz": Key(NUMBER, 0.0, min=0, help="Spacing of automatic tunings, Hz (0: as few windows as cover the band)"),
+        "center_hz": Key(NUMBER, 0.0, min=0, help="single: window centre, Hz (0: the middle of the band)"),
+        "cycle_s": Key(NUMBER, 1.0, min=0.01, max=600, help="sweep: seconds per pass over all tunings"),
+        "discard_s": Key(NUMBER, 0.01, min=0, max=10, help="Samples thrown away after each retune, seconds (rounded up to buffers)"),
+        "buffer_samples": Key(int, 16384, min=256, max=1 << 22,
+                              help="Samples per synchronous read (a multiple of 256: librtlsdr reads whole 512-byte USB packets)",
+                              check=lambda v: [] if v % 256 == 0 else ["expected a multiple of 256"]),
+        "usable_fraction": Key(NUMBER, 0.8, min=0.1, max=1.0, help="Middle part of each window used (the edges roll off)"),
+        "dc_cut_hz": Key(NUMBER, 3000.0, min=0, max=1e6, help="FFT bins this close to the window centre are not used (DC spike)"),
+        "fft_size": Key(int, 1024, min=64, max=65536, help="Samples per FFT frame (a power of two)",
+                        check=lambda v: [] if v & (v - 1) == 0 else ["expected a power of two"]),
+        "window": Key(str, "hann", choices=("hann", "hamming", "blackman", "blackmanharris", "boxcar"),
+                      help="FFT window"),
+        "overlap": Key(NUMBER, 0.0, choices=(0, 0.0, 0.5, 0.75), help="Overlap of FFT frames: 0, 0.5 or 0.75"),
+        "kurtosis": Key(bool, True, help="Compute spectral kurtosis per cell (for the RFI mask)"),
+        "ring_s": Key(NUMBER, 120.0, min=0, max=3600, help="Seconds of full-resolution spectra kept in memory for cutouts (0: none)"),
+        "ring_resolution_s": Key(NUMBER, 0.002, min=1e-5, max=60, help="single: time step of the full-resolution spectra, seconds"),
+    },
     "rfi": {
         # Defaults: ITU Radio Regulations allocations in and near 16-24 MHz (from memory), see rxlog/rfi.py
         "static_ranges": Key(list, _rfi.DEFAULT_STATIC_RANGES, check=_rfi.check_static_ranges,

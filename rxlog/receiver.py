@@ -143,8 +143,12 @@ class ClockDiscipline:
     that were lost keep every later read late. The decision for a read is therefore made
     on the smallest ``d`` among it and the ``lookahead`` reads after it: above
     ``tolerance_s`` means that many seconds of samples (rounded to whole samples) were
-    lost just before it. USB synchronous reads need no look-ahead (a late read there *is*
-    a lost read: the dongle does not queue); rtl_tcp does (the server queues).
+    lost just before it. USB synchronous reads need little look-ahead (the dongle queues
+    only a few ms, so a host that falls behind loses samples at the next read); rtl_tcp
+    needs more (the server and TCP queue, and the network stalls). A read only a few ms
+    late whose successors are later still is taken as late, and the loss put before the
+    next read. ``pop_ready(flush=True)`` decides what is pending on the reads there are
+    (before a retune, say).
 
     Steering. The time track (the time of the next sample) follows the fitted line with
     a bounded slew of ``max_slew`` (1000 ppm: a 10 ms correction takes 10 s) so block
@@ -157,7 +161,7 @@ class ClockDiscipline:
     """
 
     def __init__(self, rate_hz: float, *, monotonic=time.monotonic, realtime=time.time,
-                 lookahead: int = 0, tolerance_s: float = 0.003, fit_interval_s: float = 5.0,
+                 lookahead: int = 0, tolerance_s: float = 0.004, fit_interval_s: float = 5.0,
                  fit_span_s: float = 600.0, max_slew: float = 1e-3, step_s: float = 0.25):
         self.rate_nominal = float(rate_hz)
         self.monotonic, self.realtime = monotonic, realtime
@@ -181,6 +185,11 @@ class ClockDiscipline:
     def rate_hz(self) -> float:
         """Current estimate of the true sample rate (samples per CLOCK_MONOTONIC second)."""
         return 1.0 / self.s
+
+    @property
+    def pending_samples(self) -> int:
+        """Samples read but not yet handed out (waiting for their look-ahead)."""
+        return sum(q[0] for q in self._queue)
 
     def push(self, n_samples: int, item=None) -> None:
         """Record that a read of ``n_samples`` has just returned (reads both clocks now)."""
@@ -208,12 +217,17 @@ class ClockDiscipline:
             self.a = m - (self.count + n) * self.s
             self.track = self.a + self.count * self.s
         # residuals of this read and the look-ahead reads, assuming nothing lost after it
-        excess, e = math.inf, self.count
+        d, e = [], self.count
         for k, (nk, mk, _, _) in enumerate(self._queue):
             if k > self.lookahead:
                 break
             e += nk
-            excess = min(excess, mk - (self.a + e * self.s))
+            d.append(mk - (self.a + e * self.s))
+        excess = min(d)
+        # A read a few ms late followed by a loss (later reads later still) is a late read:
+        # a host that falls behind loses samples at its *next* read, so the loss goes there.
+        if len(d) > 1 and excess == d[0] and excess < 3 * self.tolerance_s and min(d[1:]) - d[0] > self.tolerance_s:
+            excess = 0.0
         dropped = 0
         if excess > self.tolerance_s:
             dropped = int(round(excess / self.s))
@@ -281,7 +295,7 @@ def open_source(cfg, **kwargs):
         return open_recording(rx["recording_path"] and _config_relative(cfg, rx["recording_path"]),
                               fmt=rx["recording_format"], rate_hz=rx["sample_rate_hz"],
                               center_hz=rx["recording_center_hz"],
-                              start=rx["recording_start_utc"] or None, **kwargs)
+                              start=rx["recording_start_utc"] or None)
     raise RxlogError(f"[receiver] kind: unknown receiver kind {kind!r}")
 
 
@@ -289,3 +303,707 @@ def _config_relative(cfg, p: str) -> Path:
     path = Path(os.path.expanduser(p))
     base = getattr(cfg, "path", None)
     return path if path.is_absolute() or base is None else Path(base).parent / path
+
+
+# ---------------------------------------------------------------------------- live sources
+
+# librtlsdr's resampler accepts these rates (rtlsdr_set_sample_rate in librtlsdr.c rejects
+# <= 225 kS/s, 300-900 kS/s and > 3.2 MS/s with -EINVAL).
+RTL_RATE_RANGES = ((225_001, 300_000), (900_001, 3_200_000))
+
+# rtl_tcp commands: 1-byte id, big-endian u32 argument (rtl_tcp.c in the osmocom rtl-sdr
+# sources; the set is also mirrored by other servers of the protocol).
+TCP_SET_FREQ, TCP_SET_SAMPLE_RATE, TCP_SET_GAIN_MODE, TCP_SET_GAIN = 0x01, 0x02, 0x03, 0x04
+TCP_SET_FREQ_CORRECTION, TCP_SET_AGC_MODE, TCP_SET_DIRECT_SAMPLING = 0x05, 0x08, 0x09
+TCP_SET_BIAS_TEE = 0x0E
+DIRECT_SAMPLING = {"off": 0, "i": 1, "q": 2}
+
+
+RTL_RATE_TEXT = ("librtlsdr accepts 225001-300000 or 900001-3200000 samples/s "
+                 "(2400000 is the highest that runs without drops on most hosts)")
+
+
+def rtl_rate_problems(rate_hz: float) -> list[str]:
+    """Why librtlsdr would refuse ``rate_hz`` (empty when it accepts it)."""
+    if any(lo <= rate_hz <= hi for lo, hi in RTL_RATE_RANGES):
+        return []
+    return [f"{RTL_RATE_TEXT}, got {rate_hz:g}"]
+
+
+class _LiveSource:
+    """Shared by live receivers: settings, segments, and counted samples disciplined to UTC.
+
+    Subclasses provide ``_connect()``, ``_disconnect()``, ``_set_center(hz)`` (sky hz) and
+    ``_read_raw(n) -> complex64``.
+    """
+
+    kind = "live"
+    lookahead = 0
+
+    def __init__(self, *, rate_hz: float = 2_400_000, gain_db: float = 30.0, ppm: int = 0,
+                 direct_sampling: str = "off", upconverter_lo_hz: float = 0.0,
+                 bias_tee: bool = False, agc: bool = False, center_hz: float | None = None,
+                 monotonic=time.monotonic, realtime=time.time, tolerance_s: float | None = None):
+        if agc:
+            raise RxlogError("[receiver] agc: automatic gain control refused: it changes the gain "
+                             "while the logger runs, so background and burst levels stop being "
+                             "comparable; set agc = false and a fixed gain_db")
+        if direct_sampling not in DIRECT_SAMPLING:
+            raise RxlogError(f"[receiver] direct_sampling: expected 'off', 'i' or 'q', got {direct_sampling!r}")
+        self.rate_hz = float(rate_hz)
+        self.requested_gain_db = float(gain_db)
+        self.gain_db = float(gain_db)
+        self.ppm = int(ppm)
+        self.direct_sampling = direct_sampling
+        self.upconverter_lo_hz = float(upconverter_lo_hz)
+        self.bias_tee = bool(bias_tee)
+        self.center_hz = float(center_hz) if center_hz else 20e6
+        self.monotonic, self.realtime = monotonic, realtime
+        self.tolerance_s = tolerance_s
+        self.segment = ""
+        self._n_segments = 0
+        self._clock: ClockDiscipline | None = None
+        self._ready: collections.deque = collections.deque()
+        self.is_open = False
+
+    @classmethod
+    def _settings(cls, rx: dict) -> dict:
+        return dict(rate_hz=rx["sample_rate_hz"], gain_db=rx["gain_db"], ppm=rx["ppm"],
+                    direct_sampling=rx["direct_sampling"], upconverter_lo_hz=rx["upconverter_lo_hz"],
+                    bias_tee=rx["bias_tee"], agc=rx["agc"])
+
+    # -- the interface
+    def open(self) -> None:
+        self._connect()
+        self.is_open = True
+        self._clock = ClockDiscipline(self.rate_hz, monotonic=self.monotonic, realtime=self.realtime,
+                                      lookahead=self.lookahead,
+                                      **({} if self.tolerance_s is None else {"tolerance_s": self.tolerance_s}))
+        self._ready.clear()
+        self._new_segment()
+
+    def close(self) -> None:
+        if self.is_open:
+            self.is_open = False
+            self._disconnect()
+
+    def tune(self, center_hz: float) -> None:
+        """Retune to the sky frequency ``center_hz``; starts a new segment.
+
+        Reads still pending in the clock's look-ahead come out first, with the old
+        segment. The first buffers after a retune hold stale samples (queued in the
+        dongle, the USB stack or the rtl_tcp server): the sweeper throws them away.
+        """
+        self._set_center(float(center_hz))
+        self.center_hz = float(center_hz)
+        self._new_segment()
+
+    def read(self, n_samples: int) -> SampleBlock:
+        if not self.is_open:
+            raise RxlogError("receiver: read() before open()")
+        while not self._ready:
+            x = self._read_raw(int(n_samples))
+            self._clock.push(x.size, (x, self.segment, self.center_hz, self.gain_db))
+            self._ready.extend(self._clock.pop_ready())
+        return self._block(self._ready.popleft())
+
+    def drain(self) -> list[SampleBlock]:
+        """Hand out every read still waiting for its look-ahead (decided on the reads there are).
+
+        The sweeper calls it at the end of a dwell, before retuning, so no samples of the
+        dwell stay behind.
+        """
+        if self._clock is not None:
+            self._ready.extend(self._clock.pop_ready(flush=True))
+        out = [self._block(r) for r in self._ready]
+        self._ready.clear()
+        return out
+
+    @property
+    def pending_samples(self) -> int:
+        """Samples read from the receiver but not handed out yet."""
+        if self._clock is None:
+            return 0
+        return self._clock.pending_samples + sum(r[0][0].size for r in self._ready)
+
+    def _block(self, ready) -> SampleBlock:
+        (x, seg, center, gain), t0, dropped = ready
+        return SampleBlock(x, t0, center, self.rate_hz, gain, seg, dropped)
+
+    @property
+    def samples_received(self) -> int:
+        return 0 if self._clock is None else self._clock.received_total
+
+    @property
+    def samples_dropped(self) -> int:
+        return 0 if self._clock is None else self._clock.dropped_total
+
+    def meta(self) -> dict:
+        """Receiver settings for spectrum headers (header-safe scalars)."""
+        return {"receiver": self.kind, "rate_hz": self.rate_hz, "gain_db": self.gain_db, "ppm": self.ppm,
+                "direct_sampling": self.direct_sampling, "upconverter_lo_hz": self.upconverter_lo_hz,
+                "bias_tee": self.bias_tee}
+
+    def _new_segment(self) -> None:
+        self._n_segments += 1
+        self.segment = _segment_id(self.kind, self.realtime(), self._n_segments)
+
+    def _tuned_hz(self, sky_hz: float) -> float:
+        """Frequency the receiver is set to for a sky frequency (an upconverter adds its LO)."""
+        return sky_hz + self.upconverter_lo_hz
+
+    def __enter__(self):
+        self.open()
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def _load_pyrtlsdr():
+    """Import pyrtlsdr only when a dongle is wanted, so rxlog runs without librtlsdr."""
+    try:
+        import rtlsdr
+    except ImportError as e:
+        raise RxlogError(f"receiver: cannot load pyrtlsdr/librtlsdr ({e}); install the C library with "
+                         "`pip install 'pyrtlsdr[lib]'` or Debian's `apt install librtlsdr0`") from None
+    if getattr(rtlsdr, "RtlSdr", None) is None:      # pyrtlsdr in client-only mode
+        raise RxlogError("receiver: pyrtlsdr has no USB support here ($RTLSDR_CLIENT_MODE is set, or "
+                         "librtlsdr is missing); unset it, or use kind = \"rtltcp\"")
+    return rtlsdr
+
+
+# libusb error numbers that pyrtlsdr passes on in LibUSBError.errno (libusb.h)
+_LIBUSB_ACCESS, _LIBUSB_NO_DEVICE, _LIBUSB_BUSY = -3, -4, -6
+
+
+class RtlSdrSource(_LiveSource):
+    """An RTL2832U dongle on USB through pyrtlsdr, read synchronously in small buffers.
+
+    Manual gain only (tuner AGC and the RTL2832 digital AGC off). ``direct_sampling``
+    'q' (or 'i') feeds HF straight into the ADC, or ``upconverter_lo_hz`` is added to
+    every tuning. ``device_class`` stands in for ``rtlsdr.RtlSdr`` (tests pass a fake
+    device; everything after it is this code).
+    """
+
+    kind = "rtlsdr"
+    lookahead = 2      # host jitter is ms; a host that falls further behind loses samples at the next read
+
+    def __init__(self, *, device_index: int = 0, serial: str = "", device_class=None, **settings):
+        super().__init__(**settings)
+        problems = rtl_rate_problems(self.rate_hz)
+        if problems:
+            raise RxlogError(f"[receiver] sample_rate_hz: {problems[0]}")
+        self.device_index = int(device_index)
+        self.serial = str(serial or "")
+        self.device_class = device_class
+        self.dev = None
+
+    @classmethod
+    def from_config(cls, cfg, **kwargs):
+        rx = cfg["receiver"]
+        return cls(device_index=rx["device_index"], serial=rx["serial"], **cls._settings(rx), **kwargs)
+
+    def _name(self) -> str:
+        return f"RTL-SDR serial {self.serial!r}" if self.serial else f"RTL-SDR #{self.device_index}"
+
+    def _connect(self) -> None:
+        cls = self.device_class or _load_pyrtlsdr().RtlSdr
+        try:
+            serials = list(cls.get_device_serial_addresses())
+        except OSError as e:
+            raise RxlogError(f"receiver: cannot list RTL-SDR devices ({e})") from None
+        if not serials:
+            raise RxlogError("receiver: no RTL-SDR found on USB; check the cable and `lsusb` "
+                             "(a Realtek 0bda:2838 or similar device should be listed)")
+        if self.serial and self.serial not in serials:
+            raise RxlogError(f"receiver: no RTL-SDR with serial {self.serial!r} "
+                             f"(found: {', '.join(map(repr, serials))}); fix [receiver] serial")
+        if not self.serial and self.device_index >= len(serials):
+            raise RxlogError(f"receiver: [receiver] device_index = {self.device_index} but only "
+                             f"{len(serials)} RTL-SDR found (indices 0-{len(serials) - 1})")
+        try:
+            if self.serial:
+                self.dev = cls(serial_number=self.serial)
+            else:
+                self.dev = cls(device_index=self.device_index)
+        except OSError as e:
+            code = getattr(e, "errno", None)
+            if code == _LIBUSB_BUSY:
+                raise RxlogError(f"receiver: {self._name()} is busy: another program has it open, or "
+                                 "the kernel's DVB driver (dvb_usb_rtl28xxu) claimed it; stop that "
+                                 "program or blacklist the driver") from None
+            if code == _LIBUSB_ACCESS:
+                raise RxlogError(f"receiver: no permission to open {self._name()}; install rxlog's udev "
+                                 "rule (rxlog units) or add this user to the device's group") from None
+            if code == _LIBUSB_NO_DEVICE:
+                raise RxlogError(f"receiver: {self._name()} disappeared while opening it (USB reset?)") from None
+            raise RxlogError(f"receiver: cannot open {self._name()} ({e})") from None
+        try:
+            self._configure()
+        except RxlogError:
+            self._disconnect()
+            raise
+        except OSError as e:
+            self._disconnect()
+            raise RxlogError(f"receiver: {self._name()} refused a setting ({e})") from None
+
+    def _configure(self) -> None:
+        dev = self.dev
+        try:
+            dev.set_sample_rate(int(self.rate_hz))
+        except OSError:
+            raise RxlogError(f"receiver: {self._name()} refused sample rate {self.rate_hz:g} "
+                             f"samples/s; {RTL_RATE_TEXT}") from None
+        dev.set_direct_sampling(DIRECT_SAMPLING[self.direct_sampling])
+        if self.ppm:        # librtlsdr reports an error when the correction is unchanged, so skip 0
+            dev.set_freq_correction(self.ppm)
+        dev.set_agc_mode(False)                 # RTL2832 digital AGC off
+        dev.set_manual_gain_enabled(True)       # tuner AGC off
+        dev.set_gain(self.requested_gain_db)    # librtlsdr picks the nearest gain the tuner has
+        self.gain_db = float(dev.get_gain())
+        if self.bias_tee:
+            try:
+                dev.set_bias_tee(True)
+            except AttributeError:
+                raise RxlogError("receiver: this librtlsdr has no bias-tee support; "
+                                 "set bias_tee = false or update librtlsdr") from None
+        self._set_center(self.center_hz)
+
+    def _disconnect(self) -> None:
+        if self.dev is not None:
+            try:
+                self.dev.close()
+            finally:
+                self.dev = None
+
+    def _set_center(self, sky_hz: float) -> None:
+        try:
+            self.dev.set_center_freq(int(round(self._tuned_hz(sky_hz))))
+        except OSError as e:
+            raise RxlogError(f"receiver: {self._name()} cannot tune to {self._tuned_hz(sky_hz) / 1e6:.4f} MHz "
+                             f"({e}); below ~24 MHz use direct_sampling or an upconverter") from None
+
+    def _read_raw(self, n: int) -> np.ndarray:
+        try:
+            buf = self.dev.read_bytes(2 * n)
+        except (OSError, AttributeError) as e:       # AttributeError: pyrtlsdr closed the device itself
+            raise ReceiverLost(f"receiver: {self._name()} stopped delivering samples ({e}); "
+                               "unplugged or reset") from None
+        return to_complex64(np.frombuffer(buf, dtype=np.uint8), "cu8")
+
+
+class RtlTcpSource(_LiveSource):
+    """A dongle served by rtl_tcp over TCP, on our own implementation of its wire protocol.
+
+    The server opens with a 12-byte header (b"RTL0", tuner type and gain count as
+    big-endian u32) and then streams cu8 samples; the client sends 5-byte commands
+    (1-byte id, big-endian u32). A lost connection is retried with a doubling wait for
+    up to ``reconnect_max_s``; the settings are sent again and the clock discipline sees
+    the missing time as a gap in the count.
+    """
+
+    kind = "rtltcp"
+    lookahead = 64     # the server and TCP queue samples: a late read is usually a stall (up to ~0.4 s), not a loss
+
+    def __init__(self, *, host: str = "127.0.0.1", port: int = 1234, reconnect_max_s: float = 60.0,
+                 timeout_s: float = 5.0, sleep=time.sleep, **settings):
+        super().__init__(**settings)
+        self.host, self.port = host, int(port)
+        self.reconnect_max_s = float(reconnect_max_s)
+        self.timeout_s = float(timeout_s)
+        self.sleep = sleep
+        self.sock: socket.socket | None = None
+        self.tuner_type = None
+        self.gain_count = None
+        self.reconnects = 0
+
+    @classmethod
+    def from_config(cls, cfg, **kwargs):
+        rx = cfg["receiver"]
+        return cls(host=rx["host"], port=rx["port"], reconnect_max_s=rx["reconnect_max_s"],
+                   **cls._settings(rx), **kwargs)
+
+    def _connect(self) -> None:
+        where = f"rtl_tcp at {self.host}:{self.port}"
+        try:
+            sock = socket.create_connection((self.host, self.port), timeout=self.timeout_s)
+        except OSError as e:
+            raise RxlogError(f"receiver: cannot connect to {where} ({e.strerror or e}); is rtl_tcp "
+                             "running there and listening on that address (rtl_tcp -a ADDRESS)?") from None
+        try:
+            header = self._recv_exact(sock, 12)
+        except OSError as e:
+            sock.close()
+            raise RxlogError(f"receiver: {where} sent no header ({e})") from None
+        if header[:4] != b"RTL0":
+            sock.close()
+            raise RxlogError(f"receiver: {where} is not an rtl_tcp server (header {header[:4]!r}, expected b'RTL0')")
+        self.tuner_type, self.gain_count = struct.unpack(">II", header[4:12])
+        self.sock = sock
+        self._send(TCP_SET_SAMPLE_RATE, int(self.rate_hz))
+        self._send(TCP_SET_DIRECT_SAMPLING, DIRECT_SAMPLING[self.direct_sampling])
+        self._send(TCP_SET_FREQ_CORRECTION, self.ppm)
+        self._send(TCP_SET_AGC_MODE, 0)
+        self._send(TCP_SET_GAIN_MODE, 1)                       # manual
+        self._send(TCP_SET_GAIN, int(round(self.requested_gain_db * 10)))   # tenths of dB
+        if self.bias_tee:
+            self._send(TCP_SET_BIAS_TEE, 1)
+        self._send(TCP_SET_FREQ, int(round(self._tuned_hz(self.center_hz))))
+
+    def _disconnect(self) -> None:
+        if self.sock is not None:
+            try:
+                self.sock.close()
+            finally:
+                self.sock = None
+
+    def _send(self, cmd: int, value: int) -> None:
+        self.sock.sendall(struct.pack(">BI", cmd, int(value) & 0xFFFFFFFF))
+
+    def _set_center(self, sky_hz: float) -> None:
+        try:
+            self._send(TCP_SET_FREQ, int(round(self._tuned_hz(sky_hz))))
+        except OSError:
+            self._reconnect()      # settings (with the new centre) go out again on reconnect
+
+    @staticmethod
+    def _recv_exact(sock: socket.socket, nbytes: int) -> bytearray:
+        buf = bytearray(nbytes)
+        view = memoryview(buf)
+        got = 0
+        while got < nbytes:
+            k = sock.recv_into(view[got:])
+            if k == 0:
+                raise ConnectionError("connection closed by the server")
+            got += k
+        return buf
+
+    def _read_raw(self, n: int) -> np.ndarray:
+        while True:
+            try:
+                if self.sock is None:
+                    raise ConnectionError("not connected")
+                buf = self._recv_exact(self.sock, 2 * n)
+                return to_complex64(np.frombuffer(buf, dtype=np.uint8), "cu8")
+            except OSError as e:
+                log.warning("rtl_tcp %s:%d: connection lost (%s)", self.host, self.port, e)
+                self._reconnect()
+
+    def _reconnect(self) -> None:
+        """Reconnect with a doubling wait; the missing time becomes a gap in the count.
+
+        After ``reconnect_max_s`` of failed attempts it gives up with ``ReceiverLost``
+        (the logger then closes the source and reopens it on its own schedule).
+        """
+        self._disconnect()
+        lost_at = self.monotonic()
+        wait = 0.5
+        while True:
+            self.sleep(wait)
+            try:
+                self._connect()
+            except RxlogError as e:
+                if self.monotonic() - lost_at + 2 * wait > self.reconnect_max_s:
+                    raise ReceiverLost(f"{e} (gave up reconnecting after "
+                                       f"{self.monotonic() - lost_at:.0f} s)") from None
+                log.warning("rtl_tcp: %s; next try in %.1f s", e, 2 * wait)
+                wait *= 2
+                continue
+            self.reconnects += 1
+            log.warning("rtl_tcp %s:%d: reconnected after %.1f s; the samples in between are a gap",
+                        self.host, self.port, self.monotonic() - lost_at)
+            return
+
+
+# ---------------------------------------------------------------------------- recordings
+
+@dataclass
+class Capture:
+    """One stretch of a recording with unchanged tuning (a SigMF capture)."""
+
+    sample_start: int        # first sample (index in the file's samples)
+    n_samples: int
+    byte_offset: int         # where sample_start begins in the data file
+    center_hz: float
+    t0: float                # POSIX seconds UTC of sample_start
+    segment: str
+    dropped_before: int = 0  # samples missing before this capture (from its start time)
+
+
+@dataclass
+class RawChunk:
+    """Samples as stored in the file (interleaved I/Q components), with their time."""
+
+    data: np.ndarray         # (2n,) components in the file's dtype (a mapped view: use, then drop)
+    fmt: str
+    t0: float
+    center_hz: float
+    rate_hz: float
+    segment: str
+    dropped_before: int
+
+    @property
+    def n(self) -> int:
+        return self.data.size // 2
+
+
+class RecordingSource:
+    """A recording replayed as a source: SigMF or raw interleaved I/Q, read in bounded chunks.
+
+    The data file is mapped (numpy memmap) one chunk at a time and unmapped after it,
+    so memory stays flat however large the file. Samples come as fast as they can be
+    read; times come from the recording (``core:datetime`` or the given start).
+    """
+
+    kind = "recording"
+
+    def __init__(self, data_path, fmt: str, rate_hz: float, captures: list[Capture], gain_db: float = math.nan):
+        if fmt not in FORMATS:
+            raise RxlogError(f"{data_path}: sample format {fmt!r} not supported; expected one of "
+                             f"{', '.join(FORMATS)}")
+        self.data_path = Path(data_path)
+        self.fmt = fmt
+        self.rate_hz = float(rate_hz)
+        self.captures = captures
+        self.gain_db = float(gain_db)
+        self._dtype = FORMATS[fmt][0]
+        self._k = 0          # capture being read
+        self._pos = 0        # samples read within it
+        self.is_open = False
+
+    @property
+    def bytes_per_sample(self) -> int:
+        return 2 * self._dtype.itemsize
+
+    @property
+    def n_samples(self) -> int:
+        return sum(c.n_samples for c in self.captures)
+
+    @property
+    def center_hz(self) -> float:
+        return self.captures[min(self._k, len(self.captures) - 1)].center_hz
+
+    @property
+    def segment(self) -> str:
+        return self.captures[min(self._k, len(self.captures) - 1)].segment
+
+    @property
+    def t0(self) -> float:
+        return self.captures[0].t0
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_samples / self.rate_hz
+
+    def open(self) -> None:
+        if not self.data_path.is_file():
+            raise RxlogError(f"{self.data_path}: recording data file not found")
+        self._k, self._pos = 0, 0
+        self.is_open = True
+
+    def close(self) -> None:
+        self.is_open = False
+
+    def tune(self, center_hz: float) -> None:
+        raise RxlogError(f"{self.data_path}: a recording cannot be retuned; use [sweep] mode = \"single\"")
+
+    def read_raw(self, n_samples: int) -> RawChunk:
+        """Up to ``n_samples`` samples as stored, never across a capture boundary."""
+        while self._k < len(self.captures) and self._pos >= self.captures[self._k].n_samples:
+            self._k += 1
+            self._pos = 0
+        if self._k >= len(self.captures):
+            raise EndOfStream(str(self.data_path))
+        cap = self.captures[self._k]
+        n = int(min(n_samples, cap.n_samples - self._pos))
+        offset = cap.byte_offset + self._pos * self.bytes_per_sample
+        data = np.memmap(self.data_path, dtype=self._dtype, mode="r", offset=offset, shape=(2 * n,))
+        chunk = RawChunk(data, self.fmt, cap.t0 + self._pos / self.rate_hz, cap.center_hz, self.rate_hz,
+                         cap.segment, cap.dropped_before if self._pos == 0 else 0)
+        self._pos += n
+        return chunk
+
+    def read(self, n_samples: int) -> SampleBlock:
+        c = self.read_raw(n_samples)
+        x = to_complex64(c.data, c.fmt)
+        return SampleBlock(x, c.t0, c.center_hz, c.rate_hz, self.gain_db, c.segment, c.dropped_before)
+
+    def meta(self) -> dict:
+        return {"receiver": "recording", "recording": self.data_path.name, "rate_hz": self.rate_hz,
+                "sample_format": self.fmt}
+
+    def __enter__(self):
+        self.open()
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def _sigmf_paths(path: Path) -> tuple[Path, Path] | None:
+    name = path.name
+    for suffix in (".sigmf-meta", ".sigmf-data", ".sigmf"):
+        if name.endswith(suffix):
+            base = path.with_name(name[: -len(suffix)])
+            return base.with_name(base.name + ".sigmf-meta"), base.with_name(base.name + ".sigmf-data")
+    meta = path.with_name(name + ".sigmf-meta")
+    if meta.is_file():
+        return meta, path.with_name(name + ".sigmf-data")
+    return None
+
+
+def open_recording(path, fmt: str | None = None, rate_hz: float | None = None,
+                   center_hz: float | None = None, start=None) -> RecordingSource:
+    """A SigMF recording (``x.sigmf-meta`` / ``x.sigmf-data``) or a raw I/Q file.
+
+    Raw files need ``fmt`` (cu8, ci8, ci16_le, cf32_le), ``rate_hz``, ``center_hz`` and
+    ``start`` (ISO 8601 UTC text or POSIX seconds). For SigMF, ``start`` (if given)
+    overrides the first capture's ``core:datetime``.
+    """
+    path = Path(path)
+    if fmt in (None, "", "sigmf"):
+        paths = _sigmf_paths(path)
+        if paths is not None:
+            return _open_sigmf(*paths, start=start)
+        if fmt == "sigmf":
+            raise RxlogError(f"{path}: no SigMF metadata ({path.name}.sigmf-meta) found")
+    missing = [opt for opt, v in (("--format", fmt), ("--rate", rate_hz), ("--center", center_hz),
+                                  ("--start", start)) if v in (None, "")]
+    if missing:
+        raise RxlogError(f"{path}: a raw recording (not SigMF) needs {', '.join(missing)} "
+                         "(sample format, sample rate in Hz, centre frequency in Hz, start time in UTC)")
+    if fmt not in FORMATS:
+        raise RxlogError(f"{path}: --format {fmt!r} not supported; expected one of {', '.join(FORMATS)}")
+    if not path.is_file():
+        raise RxlogError(f"{path}: recording not found")
+    t0 = _start_time(start, f"{path}: --start")
+    bps = 2 * FORMATS[fmt][0].itemsize
+    n = path.stat().st_size // bps
+    if n == 0:
+        raise RxlogError(f"{path}: no complete {fmt} sample in the file")
+    if not rate_hz or rate_hz <= 0:
+        raise RxlogError(f"{path}: --rate must be a positive sample rate in Hz, got {rate_hz!r}")
+    cap = Capture(0, n, 0, float(center_hz), t0, f"rec-{path.stem}-0")
+    return RecordingSource(path, fmt, float(rate_hz), [cap])
+
+
+def _start_time(start, what: str) -> float:
+    if isinstance(start, (int, float)):
+        return float(start)
+    try:
+        return parse_iso(start)
+    except ValueError as e:
+        raise RxlogError(f"{what}: {e}") from None
+
+
+def _open_sigmf(meta_path: Path, data_path: Path, start=None) -> RecordingSource:
+    """Read SigMF metadata (core namespace) into captures. The sigmf package is not needed."""
+    where = str(meta_path)
+    try:
+        meta = json.loads(meta_path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise RxlogError(f"{where}: SigMF metadata file not found") from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as e:
+        raise RxlogError(f"{where}: unreadable SigMF metadata ({e})") from None
+    g = meta.get("global")
+    if not isinstance(g, dict):
+        raise RxlogError(f"{where}: no 'global' object; expected SigMF metadata")
+    dtype = g.get("core:datatype")
+    if dtype not in FORMATS:
+        raise RxlogError(f"{where}: global core:datatype {dtype!r} not supported; expected one of "
+                         f"{', '.join(FORMATS)} (complex samples)")
+    rate = g.get("core:sample_rate")
+    if not isinstance(rate, (int, float)) or isinstance(rate, bool) or rate <= 0:
+        raise RxlogError(f"{where}: global core:sample_rate missing or not a positive number")
+    if g.get("core:num_channels", 1) != 1:
+        raise RxlogError(f"{where}: core:num_channels = {g['core:num_channels']}; rxlog reads one channel")
+    caps = meta.get("captures")
+    if not isinstance(caps, list) or not caps:
+        raise RxlogError(f"{where}: no captures; expected at least one with core:frequency")
+    if not data_path.is_file():
+        raise RxlogError(f"{data_path}: SigMF data file not found beside {meta_path.name}")
+    bps = 2 * FORMATS[dtype][0].itemsize
+    size = data_path.stat().st_size - int(g.get("core:trailing_bytes", 0) or 0)
+    starts, headers = [], 0
+    byte_offsets = []
+    for i, c in enumerate(caps):
+        s = c.get("core:sample_start", 0 if i == 0 else None)
+        if not isinstance(s, int) or s < 0:
+            raise RxlogError(f"{where}: captures[{i}] core:sample_start missing or not a whole number")
+        if starts and s < starts[-1]:
+            raise RxlogError(f"{where}: captures[{i}] core:sample_start goes backwards")
+        if "core:frequency" not in c:
+            raise RxlogError(f"{where}: captures[{i}] has no core:frequency (centre frequency in Hz)")
+        headers += int(c.get("core:header_bytes", 0) or 0)
+        starts.append(s)
+        byte_offsets.append(headers + s * bps)
+    total = (size - headers) // bps
+    captures: list[Capture] = []
+    stem = data_path.name[: -len(".sigmf-data")] if data_path.name.endswith(".sigmf-data") else data_path.stem
+    for i, c in enumerate(caps):
+        end = starts[i + 1] if i + 1 < len(caps) else total
+        n = end - starts[i]
+        if n <= 0:
+            continue
+        when = c.get("core:datetime")
+        if i == 0 and start not in (None, ""):
+            t0 = _start_time(start, f"{where}: --start")
+        elif when is not None:
+            try:
+                t0 = parse_iso(when)
+            except (TypeError, ValueError):
+                raise RxlogError(f"{where}: captures[{i}] core:datetime {when!r} is not ISO 8601 UTC") from None
+        elif captures:
+            prev = captures[-1]
+            t0 = prev.t0 + (starts[i] - prev.sample_start) / rate
+        else:
+            raise RxlogError(f"{where}: captures[0] has no core:datetime; give the start time (--start)")
+        freq = float(c["core:frequency"])
+        dropped, segment = 0, f"rec-{stem}-{len(captures)}"
+        if captures:
+            prev = captures[-1]
+            expected = prev.t0 + prev.n_samples / rate
+            gap = int(round((t0 - expected) * rate))
+            dropped = max(0, gap)
+            if freq == prev.center_hz and gap >= 0:
+                segment = prev.segment          # same tuning: one segment, with a gap if any
+        captures.append(Capture(starts[i], n, byte_offsets[i], freq, t0, segment, dropped))
+    if not captures:
+        raise RxlogError(f"{data_path}: no samples in the data file")
+    return RecordingSource(data_path, dtype, float(rate), captures)
+
+
+# ---------------------------------------------------------------------------- config checks
+
+def config_problems(cfg: dict, at) -> list[str]:
+    """Cross-key checks of ``[receiver]`` (one line per problem, naming the key)."""
+    rx, sp = cfg.get("receiver", {}), cfg.get("spectra", {})
+    problems = []
+    if rx.get("agc"):
+        problems.append(f"{at('receiver', 'agc')}: automatic gain control is refused: it changes the gain "
+                        "during the night, so background and burst levels stop being comparable; "
+                        "expected agc = false and a fixed gain_db")
+    kind = rx.get("kind")
+    if kind in ("rtlsdr", "rtltcp") and "sample_rate_hz" in rx:
+        problems += [f"{at('receiver', 'sample_rate_hz')}: {p}" for p in rtl_rate_problems(rx["sample_rate_hz"])]
+    if kind in ("rtlsdr", "rtltcp") and {"direct_sampling", "upconverter_lo_hz"} <= rx.keys():
+        if rx["direct_sampling"] != "off" and rx["upconverter_lo_hz"]:
+            problems.append(f"{at('receiver', 'upconverter_lo_hz')}: direct sampling and an upconverter "
+                            "exclude each other; expected direct_sampling = \"off\" or upconverter_lo_hz = 0")
+        elif rx["direct_sampling"] == "off" and not rx["upconverter_lo_hz"] and sp.get("fmin_mhz", 99) < 24:
+            problems.append(f"{at('receiver', 'direct_sampling')}: R820T/R828D tuners start near 24 MHz, below "
+                            "the band; expected direct_sampling = \"q\" (or \"i\") or an upconverter_lo_hz")
+    if kind == "recording" and {"recording_path", "recording_format"} <= rx.keys():
+        if not rx["recording_path"]:
+            problems.append(f"{at('receiver', 'recording_path')}: kind = \"recording\" needs the file to replay")
+        if rx["recording_format"] != "sigmf":
+            if not rx.get("recording_center_hz"):
+                problems.append(f"{at('receiver', 'recording_center_hz')}: a raw recording needs its centre "
+                                "frequency in Hz")
+            try:
+                parse_iso(rx.get("recording_start_utc", ""))
+            except ValueError:
+                problems.append(f"{at('receiver', 'recording_start_utc')}: a raw recording needs the UTC time "
+                                "of its first sample, e.g. \"2026-12-01T22:00:00Z\"")
+    return problems
