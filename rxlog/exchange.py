@@ -480,18 +480,22 @@ def read_event_list(path) -> EventList:
 
 
 def _sniff(p: Path, data: bytes) -> str:
+    """The format from the first line; binary data is refused here, bad later lines row by row."""
     if not data.strip():
         raise RxlogError(f"{p}: empty file; expected an event list (CSV, JSON or VOTable)")
-    head = data[:8192]
+    start = len(data) - len(data.lstrip())
+    end = data.find(b"\n", start)
+    head = data[start:end if 0 <= end < start + 4096 else start + 4096]
     if b"\x00" in head:
         raise RxlogError(f"{p}: binary data, not an event list; expected CSV, JSON or VOTable text")
-    cut = head.rfind(b"\n") if len(data) > len(head) else len(head)
     try:
-        text = head[:cut if cut > 0 else len(head)].decode("utf-8-sig")
+        text = head.decode("utf-8-sig")
     except UnicodeDecodeError as e:
-        raise RxlogError(f"{p}: not UTF-8 text (byte {e.start}); expected an event list "
-                         "(CSV, JSON or VOTable)") from None
-    first = text.lstrip()[:1]
+        if e.start < len(head) - 3:  # not just a character cut at the 4096-byte mark
+            raise RxlogError(f"{p}: not UTF-8 text (byte {start + e.start}); expected an event list "
+                             "(CSV, JSON or VOTable)") from None
+        text = head[:e.start].decode("utf-8-sig")
+    first = text.lstrip("\ufeff")[:1]
     if first in "{[":
         return "json"
     if first == "<":
@@ -727,7 +731,9 @@ def check_xml_safe(data: bytes, where: str):
 
     Runs the stdlib expat parser with handlers that stop at any DOCTYPE or ENTITY
     declaration and never fetches external entities, before a full XML library sees
-    the data (the same defence as defusedxml).
+    the data (the same defence as defusedxml). astropy's VOTable parser (8.0) left an
+    external file entity unexpanded when we tried, but documents no guarantee, and a
+    VOTable never needs a DTD: refusing them up front is the simple safe rule.
     """
     parser = xml.parsers.expat.ParserCreate()
 
