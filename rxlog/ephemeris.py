@@ -24,8 +24,9 @@ Definitions and sources
   B1950 equinox along the B1950 ecliptic to the node of Jupiter's orbit, along the
   orbit to the node of Jupiter's equator, then along the equator.
 - Topocentric altitude/azimuth: the apparent (aberrated, light-time corrected) place
-  from ERFA's ``apco13``/``atciqz``/``atioq`` chain, airless unless refraction is asked
-  for. Polar motion (< 0.5 arcsec) is ignored. Azimuth is from north through east.
+  from ERFA's ``apco``/``atciqz``/``atioq`` chain (nutation IAU 2000B, ~1 mas), airless
+  unless refraction is asked for. Polar motion (< 0.5 arcsec) is ignored. Azimuth is
+  from north through east.
 - DE: jovicentric declination of the Earth, from the same IAU pole. Elongation: the
   angle Sun-Earth-Jupiter. Distance and light time: Earth centre to Jupiter at the
   light-departure time.
@@ -257,7 +258,7 @@ def _tables():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # a stale bundled file is reported below instead
         update_leap_seconds()            # bring ERFA's leap-second table up to the bundled one
-        eop = iers.IERS_Auto.open()
+        eop = iers.IERS_A.open(iers.IERS_A_FILE)  # bundled finals2000A (IERS Bulletins A and B)
     leap = erfa.leap_seconds.get()
     starts = np.array([f"{y:04d}-{m:02d}-01" for y, m in zip(leap["year"], leap["month"])],
                       dtype="datetime64[s]")
@@ -281,19 +282,6 @@ def _tai_minus_utc(t: np.ndarray, tb) -> np.ndarray:
         _warn_once("leap", "rxlog ephemeris: leap-second table expires "
                    f"{_day(tb['leap_expires_unix'])}; later times assume no new leap second")
     return tb["leap_tai_utc"][np.clip(i, 0, None)]
-
-
-def _erfa_utc_days(t: np.ndarray, tb) -> np.ndarray:
-    """POSIX seconds -> ERFA's quasi-JD UTC (days from J2000, second part).
-
-    ERFA counts a day that ends in a leap second as 86401 s long, POSIX as 86400 s: on
-    such days the fraction is scaled, or UT1 would be up to 1 s off by midnight.
-    """
-    day0 = np.floor(t / 86400.0) * 86400.0
-    steps = np.diff(tb["leap_tai_utc"], prepend=tb["leap_tai_utc"][0])
-    leap_days = tb["leap_unix"][steps == 1.0] - 86400.0
-    length = np.where(np.isin(day0, leap_days), 86401.0, 86400.0)
-    return (day0 - J2000_UNIX) / 86400.0 + (t - day0) / length
 
 
 def _ut1_minus_utc(t: np.ndarray, tai_utc: np.ndarray, tb) -> np.ndarray:
@@ -393,42 +381,35 @@ def _exact(t: np.ndarray, lat_deg: float, lon_deg: float, elev_m: float) -> dict
     tai_utc = _tai_minus_utc(t, tb)
     dut1 = _ut1_minus_utc(t, tai_utc, tb)
     d_tt = _tt_days(t, tai_utc)
-    d_utc = _erfa_utc_days(t, tb)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)  # "dubious year": reported by _warn_once
         tdb_tt = erfa.dtdb(J2000_JD, d_tt, 0.0, 0.0, 0.0, 0.0)
         d_tdb = d_tt + tdb_tt / 86400.0
         pvh, pvb = erfa.epv00(J2000_JD, d_tdb)
-        earth = pvb["p"]
-        astrom, _eo = erfa.apco13(J2000_JD, d_utc, dut1, math.radians(lon_deg), math.radians(lat_deg),
-                                  elev_m, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0)
+        # CIP X, Y and CIO locator s by IAU 2000B (~1 mas), Earth rotation angle from UT1;
+        # polar motion and s' (< 0.5 arcsec) left out.
+        x, y, s = erfa.xys00b(J2000_JD, d_tt)
+        era = erfa.era00(J2000_JD, (t - J2000_UNIX + dut1) / 86400.0)
+        astrom = erfa.apco(J2000_JD, d_tdb, pvb, pvh["p"], x, y, s, era, math.radians(lon_deg),
+                           math.radians(lat_deg), elev_m, 0.0, 0.0, 0.0, 0.0, 0.0)
+    earth = pvb["p"]
+    # The Sun's barycentric motion (~13 m/s) over a light time moves it < 40 km (< 0.01
+    # arcsec as seen from here), so the Sun is taken at t for every light path.
+    sun = pvb["p"] - pvh["p"]
     observer = astrom["eb"]
 
-    def sun_bary(days):
-        h, b = erfa.epv00(J2000_JD, days)
-        return b["p"] - h["p"]
-
-    def jup_bary(days):
-        return erfa.plan94(J2000_JD, days, 5)["p"] + sun_bary(days)
-
-    def retarded(body, origin):
-        """Position of body (barycentric) when the light reaching origin now left it."""
-        tau = np.zeros_like(d_tdb)
-        for _ in range(3):  # converges to far below a microsecond
-            pos = body(d_tdb - tau / 86400.0)
-            tau = np.linalg.norm(pos - origin, axis=-1) * AU_LIGHT_S
-        return pos, tau
-
+    tau = np.zeros_like(d_tdb)
+    for _ in range(3):  # Jupiter's light time from the geocentre; converges far below 1 us
+        jup_geo = erfa.plan94(J2000_JD, d_tdb - tau / 86400.0, 5)["p"] + sun
+        tau = np.linalg.norm(jup_geo - earth, axis=-1) * AU_LIGHT_S
+    local = {}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
-        jup_geo, tau = retarded(jup_bary, earth)
-        sun_geo, _ = retarded(sun_bary, earth)
-        local = {}
-        for name, body in (("jup", jup_bary), ("sun", sun_bary)):
-            pos, _ = retarded(body, observer)
+        # topocentric light time differs by < 21 ms: Jupiter moves < 0.3 km meanwhile
+        for name, pos in (("jup", jup_geo), ("sun", sun)):
             ra, dec = erfa.c2s(pos - observer)
-            ri, di = erfa.atciqz(ra, dec, astrom)
-            az, zd, _h, _d, _r = erfa.atioq(ri, di, astrom)
+            ri, di = erfa.atciqz(ra, dec, astrom)          # light deflection, aberration, bias-precession-nutation
+            az, zd, _h, _d, _r = erfa.atioq(ri, di, astrom)  # Earth rotation, diurnal aberration; no refraction
             local[name] = np.stack([np.sin(zd) * np.sin(az), np.sin(zd) * np.cos(az), np.cos(zd)], axis=-1)
 
     r = jup_geo - earth
@@ -443,7 +424,7 @@ def _exact(t: np.ndarray, lat_deg: float, lon_deg: float, elev_m: float) -> dict
     v = e_hat @ _e5_equator_to_icrs()           # Earth's direction in E5's equator frame
     lam_e5 = math.radians(E5_PSI) + np.arctan2(v[:, 1], v[:, 0])
 
-    elong = np.arccos(np.clip(_dot(_unit(sun_geo - earth), r / dist[:, None]), -1.0, 1.0))
+    elong = np.arccos(np.clip(_dot(_unit(sun - earth), r / dist[:, None]), -1.0, 1.0))
     return {"tau": tau, "dist_au": dist, "theta": theta, "lam_e5": lam_e5, "de": de,
             "elong": elong, "tdb_tt": tdb_tt, "jup_enu": local["jup"], "sun_enu": local["sun"]}
 
@@ -577,3 +558,66 @@ def _site(cfg) -> tuple[float, float, float]:
 def station_tags(cfg, times_unix, *, refraction: bool = False) -> dict[str, np.ndarray]:
     """``compute_tags`` for the configured station and region table."""
     return compute_tags(times_unix, *_site(cfg), regions=regions_from_config(cfg), refraction=refraction)
+
+
+MAX_TABLE_ROWS = 1_000_000
+
+
+def tag_table(cfg, start_unix: float, end_unix: float | None = None, step_s: float = 600.0, *,
+              refraction: bool = False) -> dict[str, np.ndarray]:
+    """Station tags from start to end (inclusive) every step_s seconds, plus ``time_unix``.
+
+    One row when ``end_unix`` is None. RxlogError for a bad range or step.
+    """
+    if end_unix is None:
+        end_unix = start_unix
+    if not (math.isfinite(step_s) and step_s > 0):
+        raise RxlogError(f"step: expected a positive number of seconds, got {step_s!r}")
+    if end_unix < start_unix:
+        raise RxlogError(f"end: expected a time at or after the start, got end {end_unix:.0f} "
+                         f"before start {start_unix:.0f}")
+    n = int(math.floor((end_unix - start_unix) / step_s + 1e-9)) + 1
+    if n > MAX_TABLE_ROWS:
+        raise RxlogError(f"step: {n} rows from start to end; expected at most {MAX_TABLE_ROWS} "
+                         "(use a longer step or a shorter range)")
+    t = start_unix + step_s * np.arange(n)
+    return {"time_unix": t, **station_tags(cfg, t, refraction=refraction)}
+
+
+BODIES = ("jupiter", "sun")
+UP_STEP_S = 120.0  # altitude samples for rise/set: linear interpolation is good to ~0.2 s
+
+
+def body_up_intervals(cfg, t0: float, t1: float, body: str = "jupiter", min_alt_deg: float = 0.0,
+                      ) -> list[tuple[float, float]]:
+    """(start, end) POSIX intervals within [t0, t1] when ``body`` is at or above min_alt_deg.
+
+    Airless altitude for the configured station; edges found by linear interpolation
+    between 2-minute samples (error well under a second).
+    """
+    if body not in BODIES:
+        raise RxlogError(f"body: expected one of {', '.join(BODIES)}, got {body!r}")
+    if not t1 >= t0:
+        raise RxlogError(f"body_up_intervals: expected t1 >= t0, got {t0!r}..{t1!r}")
+    n = int(math.ceil((t1 - t0) / UP_STEP_S)) + 1
+    t = np.minimum(t0 + UP_STEP_S * np.arange(n), t1)
+    alt = station_tags(cfg, t)[f"{body}_alt_deg"] - min_alt_deg
+    return _above_zero_intervals(t, alt)
+
+
+def _above_zero_intervals(t: np.ndarray, f: np.ndarray) -> list[tuple[float, float]]:
+    """Intervals where f >= 0, edges at the zero crossings of f linearly interpolated."""
+    up = f >= 0
+    if t.size == 0:
+        return []
+    change = np.flatnonzero(up[1:] != up[:-1])
+    a, b = f[change], f[change + 1]
+    frac = np.where(b != a, a / (a - b), 0.5)
+    edges = t[change] + frac * (t[change + 1] - t[change])
+    bounds = list(edges)
+    if up[0]:
+        bounds.insert(0, float(t[0]))
+    if up[-1]:
+        bounds.append(float(t[-1]))
+    return [(float(bounds[i]), float(bounds[i + 1])) for i in range(0, len(bounds), 2)
+            if bounds[i + 1] > bounds[i]]

@@ -1,0 +1,317 @@
+"""Observing forecasts: when Jupiter is up, the Sun low and CML / Io phase in a source region.
+
+``forecast_windows`` samples the station's ephemeris tags every ``step_s`` seconds, marks
+each sample with the region it lies in (or nothing, when Jupiter is too low, the Sun too
+high or no box contains the point), and returns the runs of one region as windows. Each
+edge is then found by bisection on the same test, to better than 0.1 s, so a window's
+start and end agree with the tags computed at those instants.
+
+``write_ics`` writes the windows as an iCalendar file (RFC 5545) that calendar programs
+import; ``plot_forecast`` draws the CML III / Io-phase plane with the region boxes and
+the observable part of each night's track; ``format_forecast`` is the text table.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import os
+import tempfile
+import zoneinfo
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from rxlog.ephemeris import regions_from_config, station_tags
+from rxlog.errors import RxlogError
+from rxlog.timeutil import iso
+
+# Defaults (common practice): Jupiter at least 10 deg up, since low sources suffer most
+# from the ionosphere and local horizons; the Sun below -6 deg (end of civil twilight),
+# since daytime D-layer absorption mutes the band.
+MIN_JUPITER_ALT_DEG = 10.0
+MAX_SUN_ALT_DEG = -6.0
+MAX_DAYS = 400
+CHUNK_SAMPLES = 20_160   # two weeks at 1-minute steps per ephemeris pass
+EDGE_ITERATIONS = 12     # bisection: a 60-s step is cut to 0.015 s
+
+
+def _check(days, step_s, min_jupiter_alt_deg, max_sun_alt_deg):
+    if not (isinstance(days, (int, float)) and math.isfinite(days) and 0 < days <= MAX_DAYS):
+        raise RxlogError(f"days: expected a number of days above 0 and at most {MAX_DAYS}, got {days!r}")
+    if not (isinstance(step_s, (int, float)) and math.isfinite(step_s) and 1 <= step_s <= 3600):
+        raise RxlogError(f"step: expected 1 to 3600 seconds, got {step_s!r}")
+    if not -5.0 <= min_jupiter_alt_deg <= 89.0:
+        raise RxlogError(f"min Jupiter altitude: expected -5 to 89 degrees, got {min_jupiter_alt_deg!r}")
+    if not -90.0 <= max_sun_alt_deg <= 90.0:
+        raise RxlogError(f"max Sun altitude: expected -90 to 90 degrees, got {max_sun_alt_deg!r}")
+
+
+def _labeller(cfg, min_jupiter_alt_deg, max_sun_alt_deg):
+    """times -> (code, tags): code 0 = no window, k = the k-th region (1-based)."""
+    regions = regions_from_config(cfg)
+    names = [r.name for r in regions]
+
+    def label(t):
+        tags = station_tags(cfg, t)
+        code = np.zeros(t.shape, dtype=np.int16)
+        ok = (tags["jupiter_alt_deg"] >= min_jupiter_alt_deg) & (tags["sun_alt_deg"] <= max_sun_alt_deg)
+        for k, name in enumerate(names, start=1):
+            code[ok & (tags["source_region"] == name)] = k
+        return code, tags
+
+    return label, names
+
+
+def forecast_windows(cfg, start_unix: float, days: float, min_jupiter_alt_deg: float = MIN_JUPITER_ALT_DEG,
+                     max_sun_alt_deg: float = MAX_SUN_ALT_DEG, step_s: float = 60.0,
+                     progress: Callable[[int], None] | None = None) -> list[dict]:
+    """Observing windows from ``start_unix`` for ``days`` days at the configured station.
+
+    Each window is a dict: start_utc, end_utc (ISO 8601), start, end (POSIX s), region,
+    max_jupiter_alt_deg, duration_min, cml3_start_deg, cml3_end_deg,
+    io_phase_start_deg, io_phase_end_deg. A window cut by the start or end of the
+    period begins or ends there. Windows shorter than about one step may be missed.
+    ``progress`` is called with the number of samples done after each pass.
+    """
+    _check(days, step_s, min_jupiter_alt_deg, max_sun_alt_deg)
+    label, names = _labeller(cfg, min_jupiter_alt_deg, max_sun_alt_deg)
+    start = float(start_unix)
+    end = start + float(days) * 86400.0
+    n = int(math.ceil((end - start) / step_s)) + 1
+    codes = np.empty(n, dtype=np.int16)
+    alt = np.empty(n, dtype=np.float32)
+    for a in range(0, n, CHUNK_SAMPLES):
+        t = np.minimum(start + step_s * np.arange(a, min(a + CHUNK_SAMPLES, n)), end)
+        codes[a:a + t.size], tags = label(t)
+        alt[a:a + t.size] = tags["jupiter_alt_deg"]
+        if progress is not None:
+            progress(t.size)
+    times = np.minimum(start + step_s * np.arange(n), end)
+
+    # refine every change of code between neighbouring samples by bisection
+    change = np.flatnonzero(codes[1:] != codes[:-1])
+    lo, hi = times[change].copy(), times[change + 1].copy()
+    left_code = codes[change]
+    for _ in range(EDGE_ITERATIONS if change.size else 0):
+        mid = 0.5 * (lo + hi)
+        same = label(mid)[0] == left_code
+        lo, hi = np.where(same, mid, lo), np.where(same, hi, mid)
+    edges = 0.5 * (lo + hi)
+
+    bounds = np.concatenate([[start], edges, [end]])
+    run_codes = np.concatenate([[codes[0]], codes[change + 1]])
+    run_first = np.concatenate([[0], change + 1])                  # first sample of each run
+    run_last = np.concatenate([change, [n - 1]])
+    keep = np.flatnonzero(run_codes > 0)
+    if keep.size == 0:
+        return []
+    w0, w1 = bounds[keep], bounds[keep + 1]
+    edge_tags = station_tags(cfg, np.concatenate([w0, w1]))
+    k = keep.size
+    windows = []
+    for j, r in enumerate(keep):
+        inside = alt[run_first[r]:run_last[r] + 1]
+        peak = max(float(inside.max()) if inside.size else -90.0,
+                   float(edge_tags["jupiter_alt_deg"][j]), float(edge_tags["jupiter_alt_deg"][k + j]))
+        windows.append({
+            "start_utc": iso(w0[j]), "end_utc": iso(w1[j]), "start": float(w0[j]), "end": float(w1[j]),
+            "region": names[run_codes[r] - 1], "max_jupiter_alt_deg": round(peak, 2),
+            "duration_min": round((w1[j] - w0[j]) / 60.0, 1),
+            "cml3_start_deg": round(float(edge_tags["cml3_deg"][j]), 2),
+            "cml3_end_deg": round(float(edge_tags["cml3_deg"][k + j]), 2),
+            "io_phase_start_deg": round(float(edge_tags["io_phase_deg"][j]), 2),
+            "io_phase_end_deg": round(float(edge_tags["io_phase_deg"][k + j]), 2),
+        })
+    return windows
+
+
+# --- text ----------------------------------------------------------------------------
+
+def _local(t: float, tz: zoneinfo.ZoneInfo) -> str:
+    return dt.datetime.fromtimestamp(t, tz=tz).strftime("%a %Y-%m-%d %H:%M")
+
+
+def format_forecast(windows: list[dict], timezone: str = "UTC") -> str:
+    """The windows as an aligned text table, local time (``timezone``) and UTC."""
+    tz = zoneinfo.ZoneInfo(timezone)
+    head = (f"{'start (' + timezone + ')':<22} {'end':>5}  {'start UTC':<17} {'end UTC':<17} "
+            f"{'region':<10} {'max alt':>7}  {'CML III':>11}  {'Io phase':>11}")
+    lines = [head]
+    for w in windows:
+        end_local = dt.datetime.fromtimestamp(w["end"], tz=tz).strftime("%H:%M")
+        lines.append(
+            f"{_local(w['start'], tz):<22} {end_local:>5}  {w['start_utc'][:16].replace('T', ' '):<17} "
+            f"{w['end_utc'][:16].replace('T', ' '):<17} {w['region']:<10} {w['max_jupiter_alt_deg']:>6.1f}°  "
+            f"{w['cml3_start_deg']:>5.1f}-{w['cml3_end_deg']:<5.1f}  {w['io_phase_start_deg']:>5.1f}-{w['io_phase_end_deg']:<5.1f}")
+    if not windows:
+        lines.append("(no windows: Jupiter never up in a source region with the Sun low enough)")
+    return "\n".join(lines)
+
+
+# --- iCalendar (RFC 5545) ------------------------------------------------------------
+
+def _ics_text(s: str) -> str:
+    """RFC 5545 3.3.11 TEXT escaping."""
+    return s.replace("\\", "\\\\").replace(";", "\\;").replace(",", "\\,").replace("\n", "\\n")
+
+
+def _fold(line: str) -> list[str]:
+    """RFC 5545 3.1: lines of at most 75 octets, continued with a leading space."""
+    out, cur, size = [], "", 0
+    limit = 75
+    for ch in line:
+        n = len(ch.encode("utf-8"))
+        if size + n > limit:
+            out.append(cur)
+            cur, size, limit = " ", 1, 75
+        cur += ch
+        size += n
+    out.append(cur)
+    return out
+
+
+def _ics_time(t: float) -> str:
+    return dt.datetime.fromtimestamp(round(t), tz=dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+
+
+def write_ics(windows: list[dict], path, station, stamp_unix: float | None = None) -> Path:
+    """Write the windows as an iCalendar file (RFC 5545), one VEVENT each, times in UTC.
+
+    ``station`` is the ``[station]`` table (name, latitude_deg, longitude_deg) or a name.
+    The file is written to a temporary name and renamed, so an existing file is never
+    left half-written.
+    """
+    st = station if isinstance(station, dict) else {"name": str(station)}
+    name = st.get("name", "station")
+    stamp = _ics_time(dt.datetime.now(dt.timezone.utc).timestamp() if stamp_unix is None else stamp_unix)
+    lines = ["BEGIN:VCALENDAR", "VERSION:2.0", "PRODID:-//rxlog//Jupiter decametric forecast//EN",
+             "CALSCALE:GREGORIAN", "METHOD:PUBLISH", "X-WR-CALNAME:" + _ics_text(f"rxlog forecast, {name}")]
+    for w in windows:
+        desc = (f"Jupiter decametric window at station {name}: {w['region']}. "
+                f"CML III {w['cml3_start_deg']:.1f}-{w['cml3_end_deg']:.1f} deg, Io phase "
+                f"{w['io_phase_start_deg']:.1f}-{w['io_phase_end_deg']:.1f} deg, Jupiter up to "
+                f"{w['max_jupiter_alt_deg']:.1f} deg altitude. Forecast by rxlog.")
+        summary = f"Jupiter {w['region']} (max alt {w['max_jupiter_alt_deg']:.0f}°)"
+        ev = ["BEGIN:VEVENT",
+              f"UID:{_ics_time(w['start'])}-{_ics_text(w['region'])}-{_ics_text(name)}@rxlog",
+              f"DTSTAMP:{stamp}", f"DTSTART:{_ics_time(w['start'])}", f"DTEND:{_ics_time(w['end'])}",
+              f"SUMMARY:{_ics_text(summary)}",
+              f"DESCRIPTION:{_ics_text(desc)}", f"LOCATION:{_ics_text(name)}",
+              f"CATEGORIES:{_ics_text('Jupiter')},{_ics_text(w['region'])}", "TRANSP:TRANSPARENT"]
+        if "latitude_deg" in st and "longitude_deg" in st:
+            ev.append(f"GEO:{float(st['latitude_deg']):.6f};{float(st['longitude_deg']):.6f}")
+        lines += ev + ["END:VEVENT"]
+    lines.append("END:VCALENDAR")
+    text = "".join(part + "\r\n" for line in lines for part in _fold(line))
+    return _atomic_write(Path(path), text.encode("utf-8"))
+
+
+def _atomic_write(path: Path, data: bytes) -> Path:
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise RxlogError(f"{path}: folder {folder} does not exist; expected an existing folder")
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=folder)
+    try:
+        with os.fdopen(fd, "wb") as f:
+            f.write(data)
+        os.replace(tmp, path)
+    except OSError as e:
+        Path(tmp).unlink(missing_ok=True)
+        raise RxlogError(f"{path}: cannot write ({e.strerror or e})") from None
+    return path
+
+
+# --- the CML-Io phase plot -----------------------------------------------------------
+
+PLOT_STEP_S = 300.0
+REGION_COLOURS = ["#56B4E9", "#009E73", "#E69F00", "#CC79A7", "#999999", "#F0E442", "#0072B2", "#D55E00"]
+
+
+def _spans(lo: float, hi: float) -> list[tuple[float, float]]:
+    """A degree range as one or two non-wrapping spans."""
+    if hi - lo >= 360.0:
+        return [(0.0, 360.0)]
+    return [(lo, hi)] if lo <= hi else [(lo, 360.0), (0.0, hi)]
+
+
+def _break_wraps(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Insert NaN where a track jumps across 0/360 so lines do not streak across the plot."""
+    jump = np.flatnonzero((np.abs(np.diff(x)) > 180.0) | (np.abs(np.diff(y)) > 180.0)) + 1
+    return np.insert(x, jump, np.nan), np.insert(y, jump, np.nan)
+
+
+def plot_forecast(cfg, start_unix: float, days: float, path, windows: list[dict] | None = None,
+                  min_jupiter_alt_deg: float = MIN_JUPITER_ALT_DEG, max_sun_alt_deg: float = MAX_SUN_ALT_DEG,
+                  dpi: int = 100) -> Path:
+    """PNG of the CML III / Io-phase plane: region boxes, and each night's observable track.
+
+    The track is drawn where Jupiter is at least min_jupiter_alt_deg up and the Sun at
+    most max_sun_alt_deg, one colour per night; ``windows`` (from forecast_windows) are
+    drawn thick over it.
+    """
+    _check(days, PLOT_STEP_S, min_jupiter_alt_deg, max_sun_alt_deg)
+    import matplotlib
+    matplotlib.use("Agg", force=False)
+    from matplotlib import colormaps
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.patches import Rectangle
+
+    tz = zoneinfo.ZoneInfo(cfg["station"].get("timezone", "UTC"))
+    t = float(start_unix) + np.arange(0.0, float(days) * 86400.0 + 1.0, PLOT_STEP_S)
+    tags = station_tags(cfg, t)
+    ok = (tags["jupiter_alt_deg"] >= min_jupiter_alt_deg) & (tags["sun_alt_deg"] <= max_sun_alt_deg)
+
+    fig = Figure(figsize=(8.0, 6.4), dpi=dpi)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes((0.09, 0.09, 0.66, 0.83))
+    handles = []
+    for k, reg in enumerate(regions_from_config(cfg)):
+        colour = REGION_COLOURS[k % len(REGION_COLOURS)]
+        io = [(0.0, 360.0)] if reg.io_from is None else _spans(reg.io_from, reg.io_to)
+        for c0, c1 in _spans(reg.cml_from, reg.cml_to):
+            for i0, i1 in io:
+                ax.add_patch(Rectangle((c0, i0), c1 - c0, i1 - i0, facecolor=colour, alpha=0.18,
+                                       edgecolor=colour, linewidth=1.0))
+        handles.append(Rectangle((0, 0), 1, 1, facecolor=colour, alpha=0.4, edgecolor=colour, label=reg.name))
+
+    # one track per local night: samples grouped by the local date 12 hours earlier
+    offset = np.array([dt.datetime.fromtimestamp(x, tz=tz).utcoffset().total_seconds() for x in t])
+    night = np.floor((t + offset - 43200.0) / 86400.0).astype(np.int64)
+    nights = np.unique(night[ok])
+    cmap = colormaps["viridis"]
+    for j, nd in enumerate(nights):
+        sel = ok & (night == nd)
+        x = np.where(sel, tags["cml3_deg"], np.nan)
+        y = np.where(sel, tags["io_phase_deg"], np.nan)
+        x, y = _break_wraps(x, y)
+        label = (dt.date(1970, 1, 1) + dt.timedelta(days=int(nd))).strftime("%a %m-%d")
+        ax.plot(x, y, color=cmap(j / max(1, len(nights) - 1)), linewidth=1.2, label=label)
+    for w in windows or []:
+        tw = np.linspace(w["start"], w["end"], 20)
+        tw_tags = station_tags(cfg, tw)
+        x, y = _break_wraps(tw_tags["cml3_deg"], tw_tags["io_phase_deg"])
+        ax.plot(x, y, color="black", linewidth=3.0, solid_capstyle="round")
+
+    ax.set_xlim(0, 360)
+    ax.set_ylim(0, 360)
+    ax.set_xticks(range(0, 361, 60))
+    ax.set_yticks(range(0, 361, 60))
+    ax.set_xlabel("CML System III (deg)")
+    ax.set_ylabel("Io phase (deg)")
+    ax.grid(True, color="#dddddd", linewidth=0.6)
+    name = cfg["station"].get("name", "")
+    first = dt.datetime.fromtimestamp(float(start_unix), tz=tz).strftime("%Y-%m-%d")
+    ax.set_title(f"{name}: Jupiter observable from {first}, {days:g} days "
+                 f"(alt >= {min_jupiter_alt_deg:g}°, Sun <= {max_sun_alt_deg:g}°)", fontsize=9)
+    track_handles = ax.get_legend_handles_labels()[0]
+    fig.legend(handles=handles + track_handles, loc="upper left", bbox_to_anchor=(0.77, 0.92),
+               fontsize=7, frameon=False, title="regions / nights", title_fontsize=8)
+    path = Path(path)
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise RxlogError(f"{path}: folder {folder} does not exist; expected an existing folder")
+    fig.savefig(path, format="png")
+    return path
