@@ -197,7 +197,7 @@ def _hdu_set(spec: DynamicSpectrum, station: dict, lossless: bool, ver: int) -> 
     h["BUNIT"] = ("dB", "log power, arbitrary reference")
     for key, value, comment in wcs:
         h[key] = (value, comment)
-    h["RXSEG"] = (spec.segment, "data segment id")
+    h["RXSEG"] = (_ascii(spec.segment), "data segment id")
     h["RXVERS"] = (__version__, "rxlog version")
     h["RXQSTEP"] = (0.0 if lossless else QUANT_STEP_DB, "[dB] quantisation step, 0 = lossless float32")
     for key, value in spec.meta.items():
@@ -206,7 +206,7 @@ def _hdu_set(spec: DynamicSpectrum, station: dict, lossless: bool, ver: int) -> 
         if not _META_KEY_RE.match(str(key)) or not isinstance(value, (str, int, float, bool)):
             raise ValueError(f"spectrum meta {key!r}={value!r} is not header-safe "
                              "(keys: letters, digits, _ . -; values: str, int, float, bool)")
-        h[f"HIERARCH RXMETA {key}"] = value
+        h[f"HIERARCH RXMETA {key}"] = _ascii(value) if isinstance(value, str) else value
 
     hf = fits.CompImageHDU(np.ascontiguousarray(spec.flags.T), compression_type="GZIP_2",
                            tile_shape=_tiles(*power.shape))
@@ -229,13 +229,18 @@ def _hdu_set(spec: DynamicSpectrum, station: dict, lossless: bool, ver: int) -> 
     return [hp, hf, ht]
 
 
+def _ascii(text: str) -> str:
+    """FITS header values are printable ASCII (FITS Standard 4.0 §4.2.1)."""
+    return "".join(c if " " <= c <= "~" else "?" for c in str(text))
+
+
 def _primary(station: dict, kind: str) -> fits.PrimaryHDU:
     p = fits.PrimaryHDU()
     h = p.header
     h["RXFORMAT"] = (FORMAT, "rxlog dynamic spectra: POWER/FLAGS/CHANNELS sets")
     h["RXKIND"] = (kind, "hour, chunk or spectrum")
     h["RXVERS"] = (__version__, "rxlog version")
-    h["TELESCOP"] = (str(station.get("name", "")), "station")
+    h["TELESCOP"] = (_ascii(station.get("name", "")), "station")
     h["DATE"] = (dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S"), "file written (UTC)")
     return p
 
@@ -320,7 +325,7 @@ def _own_sets(hdul, path) -> list[tuple[DynamicSpectrum, bool]]:
         table = hdul["CHANNELS", ver].data
         t = _time_axis(h, 1, path)
         meta = {k[len("RXMETA "):]: v for k, v in h.items() if k.startswith("RXMETA ")}
-        meta.update(_site_meta(h))
+        meta.update(_site_meta(h, path))
         spec = DynamicSpectrum(power_db=power, t0=t["t0"], cadence_s=t["cadence"],
                                freq_hz=np.array(table["FREQ"], dtype=np.float64),
                                flags=flags, chan_offset_s=np.array(table["CHAN_OFFSET"], dtype=np.float32),
@@ -345,19 +350,23 @@ _FREQ_UNITS = {"HZ": 1.0, "KHZ": 1e3, "MHZ": 1e6, "GHZ": 1e9}
 _TIME_UNITS = {"S": 1.0, "MIN": 60.0, "H": 3600.0, "D": 86400.0}
 
 
+def _opt_float(h, key: str, default: float, path) -> float:
+    return _header_float(h, key, path) if key in h else default
+
+
 def _axis_scale(h, i: int, path) -> float:
     """Pixel spacing of axis i: CDi_i, or CDELTi times PCi_i; off-diagonal terms must be 0."""
     j = 3 - i
     if any(k in h for k in (f"CD{i}_{i}", f"CD{i}_{j}", f"CD{j}_{i}", f"CD{j}_{j}")):
-        if float(h.get(f"CD{i}_{j}", 0.0)) != 0.0 or float(h.get(f"CD{j}_{i}", 0.0)) != 0.0:
+        if _opt_float(h, f"CD{i}_{j}", 0.0, path) != 0.0 or _opt_float(h, f"CD{j}_{i}", 0.0, path) != 0.0:
             raise RxlogError(f"{path}: keyword CD{i}_{j}/CD{j}_{i}: rotated axes are not supported; "
                              "expected time and frequency along the image axes")
         scale = _header_float(h, f"CD{i}_{i}", path)
     else:
-        if float(h.get(f"PC{i}_{j}", 0.0)) != 0.0 or float(h.get(f"PC{j}_{i}", 0.0)) != 0.0:
+        if _opt_float(h, f"PC{i}_{j}", 0.0, path) != 0.0 or _opt_float(h, f"PC{j}_{i}", 0.0, path) != 0.0:
             raise RxlogError(f"{path}: keyword PC{i}_{j}/PC{j}_{i}: rotated axes are not supported; "
                              "expected time and frequency along the image axes")
-        scale = _header_float(h, f"CDELT{i}", path) * float(h.get(f"PC{i}_{i}", 1.0))
+        scale = _header_float(h, f"CDELT{i}", path) * _opt_float(h, f"PC{i}_{i}", 1.0, path)
     if scale == 0.0:
         raise RxlogError(f"{path}: keyword CDELT{i} is 0; expected the pixel spacing")
     return scale
@@ -433,20 +442,23 @@ def _time_axis(h, i: int, path) -> dict:
     """Time axis i of a header -> {'t0': start of the first pixel's bin (POSIX UTC),
     'cadence': s (negative if the axis runs backwards), 'origin': keyword used}."""
     ctype = str(h.get(f"CTYPE{i}", "")).strip().upper()
-    unit_name = str(h.get(f"CUNIT{i}", "s")).strip()
+    unit_name = str(h.get(f"CUNIT{i}", "s")).strip()            # Paper VII: seconds by default
     unit = _TIME_UNITS.get(unit_name.upper())
     if unit is None:
         raise RxlogError(f"{path}: keyword CUNIT{i} = {unit_name!r}: expected 's' for the time axis")
+    tunit_name = str(h.get("TIMEUNIT", "s")).strip()
+    tunit = _TIME_UNITS.get(tunit_name.upper())
+    if tunit is None:
+        raise RxlogError(f"{path}: keyword TIMEUNIT = {tunit_name!r}: expected 's'")
     crpix = _header_float(h, f"CRPIX{i}", path)
     crval = _header_float(h, f"CRVAL{i}", path)
     step = _axis_scale(h, i, path) * unit
     ref, origin = _time_origin(h, path)
-    tunit = _TIME_UNITS.get(str(h.get("TIMEUNIT", "s")).strip().upper(), 1.0)
-    offs = float(h.get("TIMEOFFS", 0.0)) * tunit          # Paper VII clock correction
+    offs = _opt_float(h, "TIMEOFFS", 0.0, path) * tunit           # Paper VII clock correction
     scale = ctype if ctype != "TIME" else str(h.get("TIMESYS", "UTC")).strip().upper()
-    first = ref + offs + (crval + (1.0 - crpix) * _axis_scale(h, i, path)) * unit
+    first = ref + offs + crval * unit + (1.0 - crpix) * step        # world time of pixel 1
     first += _to_utc_offset(scale, ref, path, "TIMESYS" if ctype == "TIME" else f"CTYPE{i}")
-    pixr = float(h.get("TIMEPIXR", 0.5))                  # where in the bin the pixel time sits
+    pixr = _opt_float(h, "TIMEPIXR", 0.5, path)                    # where in its bin a pixel's time sits
     return {"t0": first - pixr * abs(step), "cadence": step, "origin": origin}
 
 
@@ -465,16 +477,18 @@ def _freq_axis(h, i: int, n: int, path) -> np.ndarray:
     return f
 
 
-def _site_meta(h) -> dict:
+def _site_meta(h, path) -> dict:
+    """The observing site from OBSGEO-B/L/H, else OBSGEO-X/Y/Z (Paper VII §4.1.3)."""
     if all(k in h for k in ("OBSGEO-B", "OBSGEO-L", "OBSGEO-H")):
-        return {"site_latitude_deg": float(h["OBSGEO-B"]), "site_longitude_deg": float(h["OBSGEO-L"]),
-                "site_elevation_m": float(h["OBSGEO-H"])}
+        return {"site_latitude_deg": _header_float(h, "OBSGEO-B", path),
+                "site_longitude_deg": _header_float(h, "OBSGEO-L", path),
+                "site_elevation_m": _header_float(h, "OBSGEO-H", path)}
     if all(k in h for k in ("OBSGEO-X", "OBSGEO-Y", "OBSGEO-Z")):
         from astropy import units as u
         from astropy.coordinates import EarthLocation
 
-        loc = EarthLocation.from_geocentric(float(h["OBSGEO-X"]), float(h["OBSGEO-Y"]),
-                                            float(h["OBSGEO-Z"]), unit=u.m)
+        loc = EarthLocation.from_geocentric(*(_header_float(h, k, path) for k in ("OBSGEO-X", "OBSGEO-Y", "OBSGEO-Z")),
+                                            unit=u.m)
         return {"site_latitude_deg": float(loc.lat.deg), "site_longitude_deg": float(loc.lon.deg),
                 "site_elevation_m": float(loc.height.to_value(u.m))}
     return {}
@@ -524,13 +538,13 @@ class _ForeignImage:
         bunit = str(h.get("BUNIT", "")).strip()
         self.log_power = bunit.lower().startswith("db")
         self.segment = f"fits-{_file_digest(path)}"
-        self.meta = {"source_file": path.name, "source_bunit": bunit or "(none)",
+        self.meta = {"source_file": _ascii(path.name), "source_bunit": bunit or "(none)",
                      "source_time_origin": t["origin"]}
         for key, name in (("TELESCOP", "source_telescope"), ("INSTRUME", "source_instrument"),
                           ("OBSERVER", "source_observer")):
             if key in h:
                 self.meta[name] = str(h[key])
-        self.meta.update(_site_meta(h))
+        self.meta.update(_site_meta(h, path))
         self._uncovered = None
 
     def _power(self, i0: int, i1: int) -> np.ndarray:
@@ -586,6 +600,15 @@ def _open_foreign(path: Path):
 
 # --------------------------------------------------------------------------- single-file API
 
+def _is_own(path: Path) -> bool:
+    """Is this a file in rxlog's own layout (RXFORMAT in the primary header)?"""
+    try:
+        with fits.open(path, memmap=True) as hdul:
+            return hdul[0].header.get("RXFORMAT") == FORMAT
+    except (OSError, ValueError) as e:
+        raise RxlogError(f"{path}: cannot open as FITS ({e})") from None
+
+
 def write_spectrum_fits(spec: DynamicSpectrum, path, station: dict, lossless: bool = False) -> Path:
     """Write one self-contained FITS file with the archive's layout (one POWER/FLAGS/CHANNELS
     set), atomically. ``station`` gives the site and name (``cfg['station']``)."""
@@ -602,12 +625,7 @@ def read_spectrum_fits(path) -> DynamicSpectrum:
     converted to dB (zero or negative values become NaN with FLAG_GAP). OBSGEO-B/L/H (or -X/Y/Z)
     give the site in ``meta``. Raises RxlogError naming the file and keyword when it cannot."""
     path = Path(path)
-    try:
-        with fits.open(path, memmap=True) as hdul:
-            own = hdul[0].header.get("RXFORMAT") == FORMAT
-    except (OSError, ValueError) as e:
-        raise RxlogError(f"{path}: cannot open as FITS ({e})") from None
-    if own:
+    if _is_own(path):
         sets = _read_file(path)
         if len(sets) != 1:
             raise RxlogError(f"{path}: holds {len(sets)} segments; read it with read_archive")
@@ -1041,22 +1059,36 @@ class IngestSummary:
     fmax_hz: float
 
 
-def ingest_fits(cfg, path, block_s: float = _HOUR) -> IngestSummary:
-    """Store a foreign FITS dynamic spectrum in the station archive as a segment of its own.
+def ingest_fits(cfg, path, block_s: float = _HOUR) -> list[IngestSummary]:
+    """Store a FITS dynamic spectrum from elsewhere in the station archive as a segment of its own.
 
     It keeps its own channel grid and cadence (never resampled onto the station grid);
     cells without data are NaN with FLAG_GAP and channels without any data in the file are
-    flagged FLAG_UNCOVERED, never zero. The file is read in blocks of ``block_s`` so memory
-    stays bounded. The segment id comes from the file's content, so ingesting a file twice
-    stores it once.
+    flagged FLAG_UNCOVERED, never zero. A foreign file is read in blocks of ``block_s`` so
+    memory stays bounded. A file in rxlog's own layout (from a partner station) keeps its
+    flags, channel table and segments. Segment ids start with the file's content hash, so
+    ingesting a file twice stores it once. Returns one summary per stored segment.
     """
     path = Path(path)
+    station, lossless = cfg["station"], cfg["storage"]["lossless"]
+    if _is_own(path):
+        digest = _file_digest(path)
+        sets = [spec for spec, _l in _read_file(path)]
+        with ArchiveWriter(cfg.archive_dir, station, lossless=lossless) as w:
+            for spec in sets:
+                spec.segment = f"fits-{digest}:{spec.segment}"
+                spec.meta["source_file"] = _ascii(path.name)
+                w.write(spec)
+        return [_summary(path, s.segment, s.t0, s.cadence_s, s.n_time, s.freq_hz) for s in sets]
     with _open_foreign(path) as img:
         rows = max(1, int(block_s / img.cadence))
-        with ArchiveWriter(cfg.archive_dir, cfg["station"], lossless=cfg["storage"]["lossless"]) as w:
+        with ArchiveWriter(cfg.archive_dir, station, lossless=lossless) as w:
             for i0 in range(0, img.n_time, rows):
                 w.write(img.block(i0, min(img.n_time, i0 + rows)))
-        return IngestSummary(path=path, segment=img.segment, t0=img.t0,
-                             t_end=img.t0 + img.n_time * img.cadence, cadence_s=img.cadence,
-                             n_time=img.n_time, n_chan=img.freq_hz.size,
-                             fmin_hz=float(img.freq_hz[0]), fmax_hz=float(img.freq_hz[-1]))
+        return [_summary(path, img.segment, img.t0, img.cadence, img.n_time, img.freq_hz)]
+
+
+def _summary(path, segment, t0, cadence, n_time, freq_hz) -> IngestSummary:
+    return IngestSummary(path=path, segment=segment, t0=t0, t_end=t0 + n_time * cadence, cadence_s=cadence,
+                         n_time=n_time, n_chan=freq_hz.size, fmin_hz=float(freq_hz[0]),
+                         fmax_hz=float(freq_hz[-1]))

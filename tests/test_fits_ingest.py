@@ -47,7 +47,7 @@ def test_ingested_file_is_a_segment_of_its_own(tmp_path, cfg):
     with ArchiveWriter(cfg.archive_dir, STATION) as w:
         w.write(station)
     path, power = foreign(tmp_path / "partner.fits")
-    summary = ingest_fits(cfg, path)
+    [summary] = ingest_fits(cfg, path)
     assert summary.n_time == N_TIME and summary.cadence_s == CADENCE
     got = read_archive(cfg.archive_dir, REF.unix - 100, REF.unix + 800)
     [theirs] = [s for s in got.segments if s.segment == summary.segment]
@@ -69,8 +69,8 @@ def test_ingested_file_is_a_segment_of_its_own(tmp_path, cfg):
 
 def test_ingesting_twice_stores_the_file_once(tmp_path, cfg):
     path, _ = foreign(tmp_path / "partner.fits")
-    a = ingest_fits(cfg, path)
-    b = ingest_fits(cfg, path)
+    [a] = ingest_fits(cfg, path)
+    [b] = ingest_fits(cfg, path)
     assert a.segment == b.segment
     got = read_archive(cfg.archive_dir, REF.unix, REF.unix + N_TIME * CADENCE)
     assert [(s.segment, s.n_time) for s in got.segments] == [(a.segment, N_TIME)]
@@ -93,6 +93,26 @@ def test_block_size_does_not_change_what_is_stored(tmp_path, cfg):
     assert np.array_equal(results[0].power_db, results[1].power_db, equal_nan=True)
     assert np.array_equal(results[0].flags, results[1].flags)
     assert (results[0].flags[:50, 7] == FLAG_GAP).all() and (results[0].flags[50:, 7] == 0).all()
+
+
+def test_partner_rxlog_hour_file_keeps_its_segments_and_flags(tmp_path, cfg):
+    partner = {"name": "partner", "latitude_deg": 44.0, "longitude_deg": 5.5, "elevation_m": 600.0}
+    a = noisy_spectrum(100, 32, t0=REF.unix + 300, segment="0")       # same id as a station might use
+    b = noisy_spectrum(50, 16, t0=REF.unix + 400, segment="1", cadence=0.5)
+    with ArchiveWriter(tmp_path / "partner", partner) as w:
+        w.write(a)
+        w.write(b)
+    [hour_file] = (tmp_path / "partner").rglob("*.fits")
+    done = ingest_fits(cfg, hour_file)
+    assert [s.segment.split(":")[1] for s in done] == ["0", "1"]
+    got = read_archive(cfg.archive_dir, REF.unix, REF.unix + 3600).segments
+    assert [s.segment for s in got] == [d.segment for d in done]
+    for want, seg in zip((a, b), got):
+        assert np.array_equal(seg.flags, want.flags) and np.array_equal(seg.chan_offset_s, want.chan_offset_s)
+        assert np.nanmax(np.abs(seg.power_db - want.power_db)) <= 0.02
+        assert seg.meta["site_latitude_deg"] == 44.0 and seg.meta["gain_db"] == want.meta["gain_db"]
+    assert len(ingest_fits(cfg, hour_file)) == 2
+    assert len(read_archive(cfg.archive_dir, REF.unix, REF.unix + 3600).segments) == 2
 
 
 def test_ingest_command(tmp_path, cfg):

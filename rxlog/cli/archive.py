@@ -40,11 +40,12 @@ def ingest_command(cfg, paths):
     """Store FITS dynamic spectra from elsewhere in the station archive.
 
     Each file becomes a segment of its own with its own channel grid and cadence
-    (never resampled); channels it does not cover stay masked. The image needs
-    standard WCS: one axis CTYPE 'FREQ' (CUNIT Hz, kHz or MHz), the other 'TIME' or
-    'UTC' (CUNIT s) with its origin in MJDREF, MJDREFI + MJDREFF, JDREF or DATEREF
-    (DATE-OBS is the fallback); BUNIT 'dB' for log power, anything else is linear.
-    Ingesting the same file again stores it once.
+    (never resampled); channels it does not cover stay masked. Files written by
+    rxlog at a partner station keep their flags and segments. Other files need a
+    2-D image with standard WCS: one axis CTYPE 'FREQ' (CUNIT Hz, kHz or MHz), the
+    other 'TIME' or 'UTC' (CUNIT s) with its origin in MJDREF, MJDREFI + MJDREFF,
+    JDREF or DATEREF (DATE-OBS is the fallback); BUNIT 'dB' for log power, anything
+    else is linear. Ingesting the same file again stores it once.
 
     \b
     Example:
@@ -60,7 +61,7 @@ def ingest_command(cfg, paths):
     done = []
     with click.progressbar(paths, label="ingesting", file=sys.stderr) as bar:
         for p in bar:
-            done.append(ingest_fits(cfg, p))
+            done += ingest_fits(cfg, p)
     for s in done:
         click.echo(f"{s.path}: segment {s.segment}, {iso(s.t0)} to {iso(s.t_end)}, {s.n_time} spectra "
                    f"every {s.cadence_s:g} s, {s.n_chan} channels {s.fmin_hz / 1e6:.3f}-{s.fmax_hz / 1e6:.3f} MHz")
