@@ -184,9 +184,11 @@ SCHEMA: dict[str, dict[str, Key]] = {
                      help="Io-source boxes in the CML III / Io-phase plane, in order of precedence"),
     },
     "service": {
-        "feed": Key(str, "iq", choices=("iq", "spectra"),
-                    help="Simulated receiver only: 'iq' runs samples through the channelizer, "
-                         "'spectra' takes spectra straight from the sky model (fast dry runs)"),
+        "sim_feed": Key(str, "iq", choices=("iq", "spectra"),
+                        help="Simulated receiver only: 'iq' runs samples through the channelizer, "
+                             "'spectra' takes spectra straight from the sky model (light on CPU)"),
+        "sim_realtime": Key(bool, True, help="Simulated receiver only: deliver data at real time like a "
+                                             "dongle (false: as fast as they can be made)"),
         "chunk_s": Key(NUMBER, 60.0, min=0.5, max=60,
                        help="Seconds of spectra per crash-safe archive flush (a power cut loses at most this)"),
         "health_interval_s": Key(NUMBER, 60.0, min=0.5, max=3600, help="Seconds between health rows in the event store"),
