@@ -8,7 +8,6 @@ the spectrum says it holds.
 
 import warnings
 
-import numpy as np
 import pytest
 from astropy import units as u
 from astropy.io import fits

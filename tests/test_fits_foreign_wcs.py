@@ -146,7 +146,6 @@ def test_scaled_integers_with_blank(tmp_path):
     power = _power_db()
     q = np.round(power / 0.01).astype(np.int16)
     q[2, 2] = -32768
-    h = fits.Header()
     path = _write(tmp_path / "i.fits", power, 1, "MJDREF")
     with fits.open(path) as hdul:
         h = hdul[0].header.copy()
