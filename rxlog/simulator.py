@@ -45,6 +45,7 @@ TRUTH_FIELDS = ("station", "event_id", "class", "start_utc", "end_utc", "peak_ut
                 "peak_excess_db", "drift_mhz_s", "source_region", "reason")
 MIN_TRUTH_DB = 0.01
 IQ_BLOCK = 8192             # samples per generated block (frequency-domain synthesis)
+IQ_BATCH = 8                # blocks per FFT call
 IQ_PSD_BLOCKS = 32          # blocks between evaluations of the sky's spectrum (~0.11 s at 2.4 MS/s)
 DC_OFFSET = 0.006 + 0.004j  # full scale: the RTL2832U's residual DC at the tuned centre (common practice)
 
@@ -120,43 +121,10 @@ class SpectralRun:
         self._calibrate_injections()
 
     def grid(self, i0: int, i1: int) -> sky.Grid:
-        t = self.start + self.cadence * np.arange(i0, i1, dtype=np.float64)
-        return sky.Grid(t, self.freq, self.layout.mid_s, self.layout.dwell_s, self.df)
+        return _grid(self.model, self.layout, self.start, self.cadence, i0, i1)
 
     def _calibrate_injections(self):
-        """Scale each injected event so its peak excess on this grid is what was asked."""
-        for e in self.model.events:
-            target = e.params.get("target_db")
-            if target is None:
-                continue
-            i0 = max(0, int(math.floor((e.r_t0 - self.start) / self.cadence)) - 2)
-            i1 = min(self.n_rows, int(math.ceil((e.r_t1 - self.start) / self.cadence)) + 2)
-            if e.cls == "fadeout":
-                ip = int(round((e.params["t0"] + e.params["rise"] - self.start) / self.cadence))
-                i0, i1 = max(0, ip - 3), min(self.n_rows, ip + 4)
-            if i0 >= i1:
-                raise RxlogError(f"inject {e.cls} at {iso(e.t_start)}: outside the simulated span")
-            others = [x for x in self.model.events if x.cls == "fadeout" and x is not e]
-            if e.cls == "fadeout":
-                lo, hi = 0.0, 1.0
-                while self._peak(e, i0, i1, hi, others) > target:
-                    lo, hi = hi, hi * 2
-                for _ in range(50):
-                    mid = 0.5 * (lo + hi)
-                    lo, hi = (mid, hi) if self._peak(e, i0, i1, mid, others) > target else (lo, mid)
-                e.scale = 0.5 * (lo + hi)
-            else:
-                r = 10 ** (self._peak(e, i0, i1, 1.0, others) / 10) - 1
-                if r <= 0:
-                    raise RxlogError(f"inject {e.cls} at {iso(e.t_start)}: not visible on the archive grid")
-                e.scale = (10 ** (target / 10) - 1) / r
-
-    def _peak(self, e, i0, i1, scale, others):
-        e.scale = scale
-        peaks: dict = {}
-        for a in range(i0, i1, 2048):
-            sky.render(self.model, self.grid(a, min(i1, a + 2048)), peaks, events=[e] + others)
-        return 10 * math.log10(peaks[id(e)][0]) if id(e) in peaks else -math.inf
+        calibrate_injections(self.model, self.layout, self.start, self.cadence, self.n_rows)
 
     def __iter__(self):
         for i0 in range(0, self.n_rows, self.chunk_rows):
@@ -205,6 +173,48 @@ class SpectralRun:
                 sky.render(self.model, self.grid(i0, i1), self.peaks)
                 self._covered = i1
         return truth_rows(self.model, self.peaks, self.start, self.end)
+
+
+def _grid(model, layout: CellLayout, start: float, cadence: float, i0: int, i1: int) -> sky.Grid:
+    t = start + cadence * np.arange(i0, i1, dtype=np.float64)
+    f = model.freq_hz
+    return sky.Grid(t, f, layout.mid_s, layout.dwell_s, float(f[1] - f[0]))
+
+
+def calibrate_injections(model, layout: CellLayout, start: float, cadence: float, n_rows: int) -> None:
+    """Scale each injected event so its peak excess on the archive grid is what was asked."""
+    def peak(e, i0, i1, scale, others):
+        e.scale = scale
+        peaks: dict = {}
+        for a in range(i0, i1, 2048):
+            sky.render(model, _grid(model, layout, start, cadence, a, min(i1, a + 2048)), peaks, events=[e] + others)
+        return 10 * math.log10(peaks[id(e)][0]) if id(e) in peaks else -math.inf
+
+    for e in model.events:
+        target = e.params.get("target_db")
+        if target is None:
+            continue
+        i0 = max(0, int(math.floor((e.r_t0 - start) / cadence)) - 2)
+        i1 = min(n_rows, int(math.ceil((e.r_t1 - start) / cadence)) + 2)
+        if e.cls == "fadeout":
+            ip = int(round((e.params["t0"] + e.params["rise"] - start) / cadence))
+            i0, i1 = max(0, ip - 3), min(n_rows, ip + 4)
+        if i0 >= i1:
+            raise RxlogError(f"inject {e.cls} at {iso(e.t_start)}: outside the simulated span")
+        others = [x for x in model.events if x.cls == "fadeout" and x is not e]
+        if e.cls == "fadeout":
+            lo, hi = 0.0, 1.0
+            while peak(e, i0, i1, hi, others) > target:
+                lo, hi = hi, hi * 2
+            for _ in range(50):
+                mid = 0.5 * (lo + hi)
+                lo, hi = (mid, hi) if peak(e, i0, i1, mid, others) > target else (lo, mid)
+            e.scale = 0.5 * (lo + hi)
+        else:
+            r = 10 ** (peak(e, i0, i1, 1.0, others) / 10) - 1
+            if r <= 0:
+                raise RxlogError(f"inject {e.cls} at {iso(e.t_start)}: not visible on the archive grid")
+            e.scale = (10 ** (target / 10) - 1) / r
 
 
 def truth_rows(model: sky.SkyModel, peaks: dict, start: float, end: float) -> list[dict]:
@@ -288,3 +298,335 @@ def write_truth_csv(rows: list[dict], path) -> Path:
             w.writerow({k: ("" if r.get(k) is None else r.get(k)) for k in TRUTH_FIELDS})
     tmp.replace(p)
     return p
+
+
+# --- IQ domain ---------------------------------------------------------------------------
+
+_GAUSS_TABLE: np.ndarray | None = None
+
+
+def _gauss_table() -> np.ndarray:
+    """Standard normal quantiles at the midpoints of 65536 equal-probability bins, times
+    sqrt(1/2) (one component of a unit complex Gaussian). Drawing from it by random 16-bit
+    index is inverse-transform sampling; the tails beyond 4.3 sigma it cannot reach are
+    restored by the inverse FFT, which sums 8192 such values into each sample."""
+    global _GAUSS_TABLE
+    if _GAUSS_TABLE is None:
+        from scipy.special import ndtri
+        _GAUSS_TABLE = (ndtri((np.arange(65536) + 0.5) / 65536) * math.sqrt(0.5)).astype(np.float32)
+    return _GAUSS_TABLE
+
+
+class IQGenerator:
+    """Complex samples of a SkyModel's sky at one tuning, as the receiver's ADC sees them.
+
+    Block by block (``IQ_BLOCK`` samples): the sky's power spectrum at the block's time
+    (re-evaluated every ``IQ_PSD_BLOCKS`` blocks on the fine frequency grid of the block)
+    gives each frequency bin a complex Gaussian amplitude; the inverse FFT makes the
+    samples. Impulsive interference is added in the time domain (pulses of its own
+    width). ``cu8``: quantised like an RTL2832U: 127.5 for zero, clipped at 0 and 255.
+    """
+
+    def __init__(self, model: sky.SkyModel, t0: float, center_hz: float, rate_hz: float, psd_per_k: float,
+                 seed: int = 0, cu8: bool = True):
+        import scipy.fft
+        self._fft = scipy.fft
+        self.model, self.t0, self.rate, self.psd_per_k = model, float(t0), float(rate_hz), float(psd_per_k)
+        self.seed, self.cu8 = int(seed), bool(cu8)
+        self.n = IQ_BLOCK
+        self._zeros = np.zeros(self.n)
+        self.count = 0                    # samples handed out since t0
+        self.count_made = 0               # samples generated since t0 (a retune drops the rest of a batch)
+        self._block = 0                   # blocks generated (seeds the noise)
+        self._buf = None
+        self._events = [e for e in model.events if not isinstance(e, sky.Impulses)]
+        self._impulses = [e for e in model.events if isinstance(e, sky.Impulses)]
+        self.tune(center_hz)
+
+    def tune(self, center_hz: float) -> None:
+        self.center = float(center_hz)
+        self.freq = self.center + (np.arange(self.n) - self.n // 2) * (self.rate / self.n)
+        self._amp = None
+        self._amp_block = -1
+        self._buf = None                  # a retune drops the rest of the batch in progress
+        self.count_made = self.count
+
+    def _amplitudes(self, t_mid: float) -> np.ndarray:
+        frame = IQ_PSD_BLOCKS * self.n / self.rate
+        g = sky.Grid(np.array([t_mid]), self.freq, self._zeros, frame, self.rate / self.n)
+        total, _ = sky.render(self.model, g, events=self._events)
+        p = total[0].astype(np.float64) * self.psd_per_k * self.rate      # variance per bin
+        a = np.sqrt(self.n * p) * (127.5 if self.cu8 else 1.0)
+        return np.fft.ifftshift(a).astype(np.float32)
+
+    def _next_block(self) -> np.ndarray:
+        """The next IQ_BATCH blocks of samples (one FFT call; noise seeded per batch)."""
+        t_start = self.t0 + self.count_made / self.rate
+        if self._amp is None or self._block - self._amp_block >= IQ_PSD_BLOCKS:
+            self._amp = self._amplitudes(t_start + 0.5 * IQ_PSD_BLOCKS * self.n / self.rate)
+            self._amp_block = self._block
+        rng = np.random.default_rng([self.seed, self.model.sid, 9, self._block])
+        idx = rng.integers(0, 65536, size=(IQ_BATCH, 2 * self.n), dtype=np.uint16)
+        x = np.take(_gauss_table(), idx).view(np.complex64)
+        x *= self._amp
+        dc = DC_OFFSET * (127.5 if self.cu8 else 1.0) + (128.0 + 128.0j if self.cu8 else 0.0)
+        x[:, 0] += np.complex64(self.n * dc)
+        y = self._fft.ifft(x, axis=-1, overwrite_x=True, workers=1).reshape(-1)
+        self._add_impulses(y, t_start, rng)
+        self._block += IQ_BATCH
+        self.count_made += y.size
+        if not self.cu8:
+            return y
+        v = y.view(np.float32)
+        np.clip(v, 0.0, 255.999, out=v)
+        return v.astype(np.uint8)
+
+    def _add_impulses(self, y, t_start, rng):
+        t_end = t_start + y.size / self.rate
+        h = float(np.mean(self.model.bandpass(self.freq)))
+        for e in self._impulses:
+            if e.r_t1 < t_start or e.r_t0 > t_end:
+                continue
+            times = e.params["times"]
+            a, b = np.searchsorted(times, [t_start, t_end])
+            if a == b:
+                continue
+            w = max(1, int(round(e.params["width"] * self.rate)))
+            sigma = math.sqrt(h * e.scale * e.params["t_imp"] * self.psd_per_k * self.rate * 0.5) * \
+                (127.5 if self.cu8 else 1.0)
+            for tp in times[a:b]:                  # a few pulses per block at most
+                i = int((tp - t_start) * self.rate)
+                seg = y[i:i + w]
+                seg += (rng.standard_normal(seg.size) + 1j * rng.standard_normal(seg.size)).astype(np.complex64) * sigma
+
+    def read(self, n: int) -> np.ndarray:
+        """The next ``n`` samples: uint8 interleaved I/Q (cu8) or complex64 (full scale 1)."""
+        parts, have = [], 0
+        width = 2 if self.cu8 else 1
+        while have < n:
+            if self._buf is None or self._buf.size == 0:
+                self._buf = self._next_block()
+            take = min(n - have, self._buf.size // width)
+            parts.append(self._buf[:take * width])
+            self._buf = self._buf[take * width:]
+            have += take
+        self.count += n
+        return np.concatenate(parts) if len(parts) > 1 else parts[0].copy()
+
+
+def simulate_iq(cfg, start_unix: float, seconds: float, center_hz: float, rate_hz: float, seed: int = 0,
+                cu8: bool = True, rfi: str = "rural", include=None, inject=None, jupiter_schedule=None,
+                event_rate: float = 1.0) -> np.ndarray:
+    """``seconds`` of samples at one tuning: uint8 interleaved I/Q (``cu8``) or complex64."""
+    n = int(round(seconds * rate_hz))
+    if n <= 0:
+        raise RxlogError(f"seconds: expected a positive duration, got {seconds!r}")
+    model = sky.SkyModel(cfg, start_unix, start_unix + n / rate_hz + 1.0, seed=seed, rfi=rfi,
+                         jupiter_schedule=jupiter_schedule, include=include, inject=inject, event_rate=event_rate)
+    cadence = float(cfg["spectra"]["cadence_s"])
+    calibrate_injections(model, cell_layout(cfg), start_unix, cadence, max(1, math.ceil(n / rate_hz / cadence)))
+    gen = IQGenerator(model, start_unix, center_hz, rate_hz, system_psd_per_kelvin(cfg), seed=seed, cu8=cu8)
+    return gen.read(n)
+
+
+def write_sigmf(samples: np.ndarray, path, rate_hz: float, center_hz: float, start_unix: float,
+                description: str = "") -> tuple[Path, Path]:
+    """A SigMF recording (``path.sigmf-meta`` + ``path.sigmf-data``) of cu8 or complex64 samples."""
+    import json
+
+    base = Path(path)
+    for suffix in (".sigmf-meta", ".sigmf-data", ".sigmf"):
+        if base.name.endswith(suffix):
+            base = base.with_name(base.name[: -len(suffix)])
+    base.parent.mkdir(parents=True, exist_ok=True)
+    meta_p, data_p = base.with_name(base.name + ".sigmf-meta"), base.with_name(base.name + ".sigmf-data")
+    dtype = "cu8" if samples.dtype == np.uint8 else "cf32_le"
+    data = samples if dtype == "cu8" else np.asarray(samples, dtype=np.complex64).view("<f4")
+    data.tofile(data_p)
+    meta = {"global": {"core:datatype": dtype, "core:sample_rate": float(rate_hz), "core:version": "1.0.0",
+                       "core:recorder": "rxlog simulator", "core:description": description},
+            "captures": [{"core:sample_start": 0, "core:frequency": float(center_hz),
+                          "core:datetime": iso(start_unix)}],
+            "annotations": []}
+    meta_p.write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
+    return meta_p, data_p
+
+
+class SimulatedReceiver:
+    """The ``simulated`` receiver kind: the receiver-source interface over IQGenerator.
+
+    ``start_unix`` (default: the time of ``open()``) is the sky time of the first sample.
+    ``realtime``: reads wait for the wall clock like a dongle; otherwise they return as
+    fast as samples can be made. ``hours``: a finite simulation (then ``EndOfStream``).
+    The sky model is planned a day at a time, so a receiver can run for weeks.
+    ``truth_rows()`` lists what the sky held so far, measured on the archive grid.
+    """
+
+    kind = "simulated"
+    paced = True
+
+    def __init__(self, cfg, start_unix: float | None = None, seed: int = 0, realtime: bool = True,
+                 cu8: bool = True, rfi: str = "rural", hours: float | None = None, include=None, inject=None,
+                 jupiter_schedule=None, event_rate: float = 1.0, clock=time.time, sleep=time.sleep):
+        from rxlog import receiver
+
+        self._receiver = receiver
+        self.cfg = cfg
+        self.start_unix = None if start_unix is None else float(start_unix)
+        self.seed, self.realtime, self.cu8 = int(seed), bool(realtime), bool(cu8)
+        self.paced = self.realtime
+        self.rfi = sky.check_rfi_category(rfi)
+        self.hours = hours
+        self.options = dict(include=include, inject=inject, jupiter_schedule=jupiter_schedule, event_rate=event_rate)
+        self.clock, self.sleep = clock, sleep
+        self.rate_hz = float(cfg["receiver"]["sample_rate_hz"])
+        self.gain_db = float(cfg["receiver"]["gain_db"])
+        sp = cfg["spectra"]
+        self.center_hz = 0.5 * (sp["fmin_mhz"] + sp["fmax_mhz"]) * 1e6
+        self.samples_received = 0
+        self.samples_dropped = 0
+        self._gen = None
+        self._n_segments = 0
+        self.segment = ""
+
+    # -- the source contract
+    def open(self) -> None:
+        if self.start_unix is None:
+            self.start_unix = float(self.clock())
+        self._wall0 = float(self.clock())
+        self._count = 0
+        self._model_for(self.start_unix)
+        self._new_segment()
+
+    def close(self) -> None:
+        self._gen = None
+
+    def __enter__(self):
+        self.open()
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    def tune(self, center_hz: float) -> None:
+        self.center_hz = float(center_hz)
+        if self._gen is not None:
+            self._gen.tune(self.center_hz)
+            self._new_segment()
+
+    def read(self, n_samples: int):
+        if self._gen is None:
+            raise RxlogError("simulated receiver: read() before open()")
+        n = int(n_samples)
+        if self.hours is not None:
+            left = int(round(self.hours * 3600 * self.rate_hz)) - self._count
+            if left <= 0:
+                raise self._receiver.EndOfStream("simulation finished")
+            n = min(n, left)
+        t0 = self.start_unix + self._count / self.rate_hz
+        if t0 + n / self.rate_hz > self._gen.model.end - 60.0:
+            self._model_for(t0)
+        if self.realtime:
+            due = self._wall0 + (self._count + n) / self.rate_hz
+            wait = due - float(self.clock())
+            if wait > 0:
+                self.sleep(wait)
+        raw = self._gen.read(n)
+        x = self._receiver.to_complex64(raw, "cu8") if self.cu8 else raw
+        self._count += n
+        self.samples_received += n
+        return self._receiver.SampleBlock(x, t0, self.center_hz, self.rate_hz, self.gain_db, self.segment, 0)
+
+    # -- truth and internals
+    def truth_rows(self) -> list[dict]:
+        """Truth rows for the sky simulated so far (archive grid, noise-free)."""
+        if not self._count:
+            return []
+        run = SpectralRun(self.cfg, self.start_unix, self._count / self.rate_hz / 3600.0, seed=self.seed,
+                          rfi=self.rfi, noise=False, **self.options)
+        return run.truth_rows()
+
+    def _new_segment(self) -> None:
+        self._n_segments += 1
+        t = self.start_unix + self._count / self.rate_hz
+        self.segment = self._receiver._segment_id("sim", t, self._n_segments)
+
+    def _model_for(self, t: float) -> None:
+        """A sky model for the day ahead from ``t`` (events are planned per UTC day, so
+        consecutive models agree where they meet)."""
+        span = 86400.0 if self.hours is None else self.hours * 3600.0 + 60.0
+        model = sky.SkyModel(self.cfg, t, t + span + 120.0, seed=self.seed, rfi=self.rfi, **self.options)
+        cad = float(self.cfg["spectra"]["cadence_s"])
+        calibrate_injections(model, cell_layout(self.cfg), self.start_unix, cad,
+                             int((t + span - self.start_unix) / cad) + 1)
+        psd = system_psd_per_kelvin(self.cfg)
+        gen = IQGenerator(model, self.start_unix, self.center_hz, self.rate_hz, psd, seed=self.seed, cu8=self.cu8)
+        if self._gen is not None:
+            gen.count = gen.count_made = self._gen.count
+            gen._block = self._gen._block
+        self._gen = gen
+
+
+def write_simulation(cfg, start_unix: float, hours: float, out, iq: bool = False, seed: int = 0,
+                     rfi: str = "rural", center_hz: float | None = None, progress=None) -> dict:
+    """Simulate and write: FITS spectra (one file for ``out`` ending in .fits, else the
+    archive's layout under the folder ``out``) or a SigMF recording (``iq``), plus the
+    truth CSV beside it. ``progress(done, total)`` is called per chunk. Returns a summary
+    (paths, rows or samples, truth rows)."""
+    out = Path(out)
+    sky.check_rfi_category(rfi)
+    if iq:
+        return _write_iq(cfg, start_unix, hours, out, seed, rfi, center_hz, progress)
+    from rxlog import archive
+
+    run = iter_spectra(cfg, start_unix, hours, seed=seed, rfi=rfi)
+    station = cfg["station"]
+    lossless = cfg["storage"]["lossless"]
+    done = 0
+    if out.suffix.lower() in (".fits", ".fit", ".fts"):
+        spec, truth = simulate_spectra(cfg, start_unix, hours, seed=seed, rfi=rfi)
+        path = archive.write_spectrum_fits(spec, out, station, lossless=lossless)
+        truth_path = out.with_name(out.stem + ".truth.csv")
+        done = spec.n_time
+        if progress:
+            progress(done, done)
+    else:
+        path = out
+        with archive.ArchiveWriter(out, station, lossless=lossless) as w:
+            for spec in run:
+                w.write(spec)
+                done += spec.n_time
+                if progress:
+                    progress(done, run.n_rows)
+        truth = run.truth_rows()
+        truth_path = out / "truth.csv"
+    write_truth_csv(truth, truth_path)
+    return {"path": path, "truth_path": truth_path, "rows": done, "truth_rows": len(truth)}
+
+
+def _write_iq(cfg, start_unix, hours, out, seed, rfi, center_hz, progress):
+    rate = float(cfg["receiver"]["sample_rate_hz"])
+    sp = cfg["spectra"]
+    center = 0.5 * (sp["fmin_mhz"] + sp["fmax_mhz"]) * 1e6 if center_hz is None else float(center_hz)
+    total = int(round(hours * 3600 * rate))
+    if total <= 0:
+        raise RxlogError(f"hours: {hours!r} gives no samples at {rate:.0f} samples/s")
+    rx = SimulatedReceiver(cfg, start_unix=start_unix, seed=seed, realtime=False, rfi=rfi, hours=hours)
+    rx.center_hz = center
+    rx.open()
+    gen = rx._gen
+    meta_p, data_p = write_sigmf(np.zeros(0, np.uint8), out, rate, center, start_unix,
+                                 description=f"rxlog simulator, seed {seed}, rfi {rfi}, station {cfg['station']['name']}")
+    done = 0
+    with open(data_p, "ab") as fh:
+        while done < total:
+            n = min(int(rate), total - done)
+            gen.read(n).tofile(fh)
+            done += n
+            rx._count = done
+            if progress:
+                progress(done, total)
+    truth = rx.truth_rows()
+    truth_path = meta_p.with_name(meta_p.name[: -len(".sigmf-meta")] + ".truth.csv")
+    write_truth_csv(truth, truth_path)
+    return {"path": meta_p, "truth_path": truth_path, "samples": done, "truth_rows": len(truth)}

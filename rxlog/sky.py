@@ -546,6 +546,19 @@ class SkyModel:
         return self.node_interp("sun_alt_deg", t) > 0.0
 
     def bandpass(self, f_hz):
+        f = np.asarray(f_hz, dtype=np.float64)
+        key = (f.shape, float(f.flat[0]), float(f.flat[-1])) if f.ndim == 1 and f.size > 1 else None
+        cache = self.__dict__.setdefault("_bp_cache", {})
+        if key is not None and key in cache:
+            return cache[key]
+        h = self._bandpass(f)
+        if key is not None:
+            if len(cache) >= 16:
+                cache.clear()
+            cache[key] = h
+        return h
+
+    def _bandpass(self, f_hz):
         """H(f): the station's 4th-order Butterworth band-pass (band edges +-0.5 MHz) times
         a cable ripple of +-0.4 dB (standing wave of a ~20 m feedline, velocity 0.66);
         fixed per station name, the hardware does not change with the seed."""
@@ -616,8 +629,12 @@ class SkyModel:
         linear between the absolute 60-s nodes (so any chunking gives the same values)."""
         f = np.asarray(f_hz, dtype=np.float64)
         key = (f.shape[0], float(f[0]), float(f[-1]))
-        if getattr(self, "_bg_key", None) != key:
-            self._bg_key, self._bg_cache = key, {}
+        caches = self.__dict__.setdefault("_bg_caches", {})
+        if key not in caches:
+            if len(caches) >= 16:
+                caches.clear()
+            caches[key] = {}
+        self._bg_cache = caches[key]
         k = (np.asarray(t_rows) - self.node_t[0]) / NODE_S
         k0 = int(math.floor(k.min()))
         k1 = int(math.floor(k.max())) + 1
@@ -863,12 +880,12 @@ class SkyModel:
         # broadcast: 5 kHz raster, schedules of half an hour to three hours on the half hour
         for lo, hi in BROADCAST_BANDS:
             slots = np.arange(math.ceil(lo * 200), math.floor(hi * 200) + 1) / 200.0 * 1e6
-            for fc in slots[rng.uniform(size=len(slots)) < 0.25]:
+            for fc in slots[rng.uniform(size=len(slots)) < 0.2]:
                 t = t_day + 1800 * rng.integers(0, 48)
                 while t < t_day + DAY_S:
                     d = 1800 * rng.integers(1, 7)
                     if rng.uniform() < 0.5:
-                        out.append(self._carrier(rng, "broadcast AM", fc, 9e3, t, t + d, rng.uniform(15, 45), 0.67))
+                        out.append(self._carrier(rng, "broadcast AM", fc, 9e3, t, t + d, rng.uniform(10, 40), 0.67))
                     t += d + 1800 * rng.integers(0, 12)
         # standard-frequency and time-signal carriers, continuous
         for fmhz in TIME_SIGNALS_MHZ:
