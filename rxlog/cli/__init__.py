@@ -7,5 +7,6 @@ from rxlog.cli import archive  # noqa: F401  (prune, ingest of FITS dynamic spec
 from rxlog.cli import detect  # noqa: F401  (detect)
 from rxlog.cli import review  # noqa: F401  (review, events, label)
 from rxlog.cli import exchange  # noqa: F401  (export, compare)
+from rxlog.cli import simulate  # noqa: F401  (simulate)
 
 __all__ = ["main"]
