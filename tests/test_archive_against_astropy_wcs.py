@@ -10,6 +10,7 @@ import warnings
 
 import pytest
 from astropy import units as u
+from astropy.coordinates import EarthLocation
 from astropy.io import fits
 from astropy.time import Time
 from astropy.utils import iers
@@ -59,10 +60,16 @@ def test_site_and_reference_time_keywords(tmp_path):
     spec = noisy_spectrum(10, 16)
     path = write_spectrum_fits(spec, tmp_path / "s.fits", STATION)
     with fits.open(path) as hdul:
-        w = _wcs(hdul["POWER"].header)
+        header = hdul["POWER"].header
+        w = _wcs(header)
     # wcslib's view of the observatory (OBSGEO-B/L/H) and of the reference time
     assert w.wcs.obsgeo[3:] == pytest.approx([STATION["longitude_deg"], STATION["latitude_deg"],
                                               STATION["elevation_m"]])
+    # OBSGEO-X/Y/Z written beside them agree with astropy.coordinates.EarthLocation (WGS84)
+    loc = EarthLocation.from_geodetic(lon=STATION["longitude_deg"] * u.deg, lat=STATION["latitude_deg"] * u.deg,
+                                      height=STATION["elevation_m"] * u.m)
+    assert [header[k] for k in ("OBSGEO-X", "OBSGEO-Y", "OBSGEO-Z")] == \
+        pytest.approx([c.to_value(u.m) for c in loc.geocentric], abs=1e-3)
     ref = Time(w.wcs.mjdref[0] + w.wcs.mjdref[1], format="mjd", scale="utc")
     assert ref.isot == "2026-12-01T00:00:00.000"
     assert w.wcs.timesys == "UTC"
