@@ -8,5 +8,6 @@ from rxlog.cli import detect  # noqa: F401  (detect)
 from rxlog.cli import review  # noqa: F401  (review, events, label)
 from rxlog.cli import exchange  # noqa: F401  (export, compare)
 from rxlog.cli import simulate  # noqa: F401  (simulate)
+from rxlog.cli import ephem  # noqa: F401  (ephem, forecast)
 
 __all__ = ["main"]

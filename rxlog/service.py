@@ -1,0 +1,825 @@
+"""The unattended logger behind ``rxlog run``.
+
+Two threads and a bounded queue between them:
+
+- the **feed** thread owns the receiver: it opens it, turns samples into dynamic
+  spectra (channelizer, or the sweeper for a sweep plan) and queues them. When the
+  receiver fails it closes it, records when, and retries with a doubling wait (1 s up
+  to ``[service] retry_max_s``) until it is back — no restart needed;
+- the **main** thread takes spectra off the queue and writes them to the archive
+  (flushed crash-safely every ``chunk_s``), feeds the online detector (which tags events
+  with the ephemeris) and stores its events; it records a health row every
+  ``health_interval_s``, prunes old spectra once a day, watches the clocks and the disk,
+  and pings systemd.
+
+What the logger does about each fault:
+
+- **receiver lost**: a health row notes the gap (start, end, reason) the moment it is
+  back; nothing is glued over, the archive simply has no rows there;
+- **stop** (SIGTERM / SIGINT): the chunk in progress is flushed, the detector's
+  pending events stored, a last health row written; exit status 0 within a few seconds;
+- **SIGKILL / power cut**: nothing to do here — the archive's chunks and SQLite's WAL
+  are crash-safe, and the run lock is a flock the kernel drops with the process;
+- **disk nearly full** (free space under ``disk_min_free_mb``, or a write failing with
+  ENOSPC): raw spectra stop being archived, events and health go on, a warning is logged;
+  archiving resumes when free space is back above 1.2 × the threshold;
+- **clock step** (an NTP correction): seen as a jump of CLOCK_REALTIME against
+  CLOCK_MONOTONIC between two looks (the sample counter would mix steps with drops and
+  crystal drift). It is logged and recorded, starts a new segment, and any rows whose
+  times fall before data already written are dropped, so the archive never holds
+  overlapping or negative-length data.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import os
+import queue
+import signal
+import sqlite3
+import sys
+import threading
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from rxlog import health as hl
+from rxlog.errors import RxlogError
+from rxlog.notify import Notifier
+from rxlog.receiver import EndOfStream
+from rxlog.spectrum import DynamicSpectrum
+from rxlog.timeutil import iso, parse_iso
+
+log = logging.getLogger("rxlog")
+
+QUEUE_ITEMS = 64                # bounded queue between feed and main thread (items are chunks of spectra)
+RETRY_FIRST_S = 1.0             # first wait before reopening a lost receiver; doubles up to retry_max_s
+DISK_RESUME_FACTOR = 1.2        # resume archiving when free space is back above this × disk_min_free_mb
+DISK_CHECK_S = 1.0              # look at free space at most this often
+DISK_RETRY_S = 5.0              # after a pause, wait at least this long before archiving again
+CLOCK_SYNC_CHECK_S = 60.0       # ask timedatectl/chronyc at most this often
+RETENTION_EVERY_S = 86400.0     # prune old spectra once a day
+STOP_JOIN_S = 2.0               # how long a stop waits for the feed thread
+CLOCK_STEPS_ENV = "RXLOG_FAKE_CLOCK_STEPS"   # test hook, see Clock.from_env
+
+
+# -- logging ----------------------------------------------------------------------------------
+
+# sd-daemon(3) priority prefixes, understood by journald on a service's stderr.
+_SD_PRIORITY = {logging.DEBUG: "<7>", logging.INFO: "<6>", logging.WARNING: "<4>",
+                logging.ERROR: "<3>", logging.CRITICAL: "<2>"}
+
+
+class JournalFormatter(logging.Formatter):
+    """One line per message, level first: 'WARNING disk nearly full ...'.
+
+    Under systemd (``$JOURNAL_STREAM`` set) each line also starts with its sd-daemon
+    priority prefix, so ``journalctl -p warning`` finds it. Tracebacks are folded into
+    the same line.
+    """
+
+    def __init__(self, journal: bool):
+        super().__init__()
+        self.journal = journal
+
+    def format(self, record: logging.LogRecord) -> str:
+        text = record.getMessage()
+        if record.exc_info:
+            text += " | " + self.formatException(record.exc_info)
+        text = " | ".join(part for part in text.splitlines() if part.strip())
+        line = f"{record.levelname} {text}"
+        return (_SD_PRIORITY.get(record.levelno, "<6>") + line) if self.journal else line
+
+
+def setup_logging(level: str = "info", stream=None) -> logging.Handler:
+    """Send rxlog's log to stderr, one line per message; return the handler."""
+    handler = logging.StreamHandler(stream or sys.stderr)
+    handler.setFormatter(JournalFormatter(journal=bool(os.environ.get("JOURNAL_STREAM"))))
+    root = logging.getLogger("rxlog")
+    for h in list(root.handlers):
+        root.removeHandler(h)
+    root.addHandler(handler)
+    root.setLevel(level.upper())
+    root.propagate = False
+    return handler
+
+
+# -- clocks -----------------------------------------------------------------------------------
+
+class Clock:
+    """The host's wall clock (CLOCK_REALTIME) and monotonic clock (CLOCK_MONOTONIC).
+
+    ``steps`` [(after_s, delta_s), ...] shift the wall clock by delta_s once after_s
+    monotonic seconds have passed since the clock was made: a stand-in for an NTP step,
+    which a test cannot make on the host's own clock.
+    """
+
+    def __init__(self, steps: list[tuple[float, float]] = ()):
+        self._origin = time.monotonic()
+        self._steps = sorted(steps)
+
+    @classmethod
+    def from_env(cls, env=None) -> "Clock":
+        """Read ``$RXLOG_FAKE_CLOCK_STEPS`` ('after_s:delta_s,...', e.g. '3:+30,6:-20')."""
+        text = (os.environ if env is None else env).get(CLOCK_STEPS_ENV, "").strip()
+        steps = []
+        for item in filter(None, (s.strip() for s in text.split(","))):
+            a, _, d = item.partition(":")
+            try:
+                steps.append((float(a), float(d)))
+            except ValueError:
+                raise RxlogError(f"${CLOCK_STEPS_ENV}: {item!r} is not 'after_s:delta_s'") from None
+        return cls(steps)
+
+    def monotonic(self) -> float:
+        return time.monotonic()
+
+    def realtime(self) -> float:
+        t = time.time()
+        if self._steps:
+            age = time.monotonic() - self._origin
+            t += sum(d for a, d in self._steps if age >= a)
+        return t
+
+
+class ClockWatch:
+    """Detect steps of the wall clock against the monotonic clock.
+
+    The offset realtime − monotonic stays constant while the wall clock runs freely and
+    changes only slowly while NTP slews it (at most 500 ppm, adjtimex(2)); a change of
+    more than ``threshold_s`` between two looks is a step.
+    """
+
+    def __init__(self, clock: Clock, threshold_s: float):
+        self.clock = clock
+        self.threshold_s = threshold_s
+        self.offset = clock.realtime() - clock.monotonic()
+
+    def check(self) -> float | None:
+        """The size of a step since the last look (s, positive = clock moved ahead), or None."""
+        offset = self.clock.realtime() - self.clock.monotonic()
+        step = offset - self.offset
+        self.offset = offset
+        return step if abs(step) > self.threshold_s else None
+
+
+# -- what moves through the queue -------------------------------------------------------------
+
+@dataclass
+class ReceiverLost:
+    t_utc: float
+    reason: str
+
+
+@dataclass
+class ReceiverBack:
+    lost_utc: float
+    back_utc: float
+    reason: str
+
+
+class FeedEnded:
+    """The feed has no more data (a recording or a finite simulation ran out)."""
+
+
+@dataclass
+class Counters:
+    """Counts since the last health row (reset there)."""
+    spectra_received: int = 0
+    spectra_archived: int = 0
+    spectra_not_archived: int = 0
+    spectra_overlap_dropped: int = 0
+    events: int = 0
+    clock_step_s: float = 0.0
+
+
+# -- the logger ---------------------------------------------------------------------------
+
+class Logger:
+    """One run of the logger on a station config. ``run()`` returns a summary dict.
+
+    The stages are passed in so the library and its tests can assemble them; ``run(cfg)``
+    below builds the real ones from the config.
+    """
+
+    def __init__(self, cfg, feed, archive_factory, detector_factory, store, clock: Clock | None = None,
+                 notifier: Notifier | None = None, prune=None):
+        self.cfg = cfg
+        self.station = cfg["station"]["name"]
+        svc = cfg["service"]
+        self.chunk_s = float(svc["chunk_s"])
+        self.health_s = float(svc["health_interval_s"])
+        self.disk_min_mb = float(svc["disk_min_free_mb"])
+        self.retry_max_s = float(svc["retry_max_s"])
+        self.feed = feed
+        self.archive_factory = archive_factory
+        self.archive = None
+        self.detector_factory = detector_factory
+        self.detector = detector_factory() if detector_factory else None
+        self.store = store
+        self.clock = clock or Clock()
+        self.notifier = notifier or Notifier()
+        self.prune = prune
+        self.clockwatch = ClockWatch(self.clock, float(svc["clock_step_s"]))
+        self.cpu = hl.CpuMeter()
+        self.queue: queue.Queue = queue.Queue(maxsize=QUEUE_ITEMS)
+        self.stop_event = threading.Event()
+        self.stop_reason = ""
+        self.counts = Counters()
+        # cumulative counts read at each health row: (feed samples received, dropped; queue drops)
+        self.queue_dropped = 0
+        self._last_cumulative = (0, 0, 0)
+        self._last_health = self.clock.monotonic()
+        self.totals = {"spectra_archived": 0, "events": 0, "clock_steps": 0, "receiver_gaps": 0}
+        self.receiver_state = "starting"
+        self.feed_heartbeat = self.clock.monotonic()
+        self.raw_paused = False
+        self._paused_at = 0.0
+        self._resume_above_mb = 0.0
+        self.clock_epoch = 0
+        self.last_end: float | None = None     # end of the latest data accepted (POSIX s)
+        self.segments: dict[str, dict] = {}    # segment rows to upsert at the next flush
+        self.pending_events: list[dict] = []   # events the store could not take yet
+        self.pending_episodes: list[dict] = []
+        self.pending_quality: list[dict] = []
+        self.run_tag = time.strftime("%Y%m%dT%H%M%S", time.gmtime(self.clock.realtime()))
+        self._clock_sync = (hl.UNKNOWN, -1e9)
+        self._disk = (None, -1e9)
+        self._prune_thread: threading.Thread | None = None
+        self._feed_thread: threading.Thread | None = None
+
+    # -- feed thread --------------------------------------------------------------------------
+    def _feed_loop(self):
+        wait = RETRY_FIRST_S
+        lost: ReceiverLost | None = None
+        is_open = False
+        while not self.stop_event.is_set():
+            self.feed_heartbeat = self.clock.monotonic()
+            try:
+                if not is_open:
+                    self.receiver_state = "opening"
+                    self.feed.open()
+                    is_open = True
+                    self.receiver_state = "streaming"
+                    if lost is not None:
+                        self._put(ReceiverBack(lost.t_utc, self.clock.realtime(), lost.reason), block=True)
+                        lost = None
+                    wait = RETRY_FIRST_S
+                try:
+                    rows = self.feed.read()
+                except EndOfStream:
+                    self._put(FeedEnded(), block=True)
+                    return
+                for spec in rows:
+                    if spec.n_time:
+                        self._put(spec, block=not self.feed.paced)
+            except Exception as e:  # any receiver failure: close, note, retry; never give up
+                reason = f"{type(e).__name__}: {e}" if not isinstance(e, RxlogError) else str(e)
+                if isinstance(e, (RxlogError, OSError)):
+                    log.warning("receiver: %s; retrying in %.0f s", reason, wait)
+                else:
+                    log.error("receiver: unexpected failure; retrying in %.0f s", wait, exc_info=True)
+                try:
+                    self.feed.close()
+                except Exception:
+                    log.debug("receiver: error while closing after a failure", exc_info=True)
+                is_open = False
+                if lost is None:
+                    lost = ReceiverLost(self.clock.realtime(), reason)
+                    self._put(lost, block=True)
+                self.receiver_state = "retrying"
+                deadline = self.clock.monotonic() + wait
+                while not self.stop_event.is_set() and self.clock.monotonic() < deadline:
+                    self.feed_heartbeat = self.clock.monotonic()
+                    self.stop_event.wait(min(0.2, max(0.0, deadline - self.clock.monotonic())))
+                wait = min(wait * 2, self.retry_max_s)
+        if is_open:
+            try:
+                self.feed.close()
+            except Exception:
+                log.warning("receiver: error while closing", exc_info=True)
+        self.receiver_state = "stopped"
+
+    def _put(self, item, block: bool):
+        """Queue an item. A receiver paced at real time cannot wait: a full queue drops the chunk."""
+        while not self.stop_event.is_set():
+            try:
+                self.queue.put(item, timeout=0.2 if block else 0)
+                return
+            except queue.Full:
+                if not block:
+                    self.queue_dropped += item.n_time if isinstance(item, DynamicSpectrum) else 0
+                    return
+
+    # -- main thread: data ----------------------------------------------------------------
+    def _segment_name(self, spec: DynamicSpectrum) -> str:
+        name = f"{self.run_tag}.{spec.segment}"
+        return f"{name}.c{self.clock_epoch}" if self.clock_epoch else name
+
+    def _take(self, spec: DynamicSpectrum):
+        self.counts.spectra_received += spec.n_time
+        # Never overlap what is already written: after a backward clock step (or a restart
+        # behind the previous run's data) drop rows that start before the latest end.
+        if self.last_end is not None:
+            times = spec.times
+            keep = int(np.searchsorted(times, self.last_end - 1e-3 * spec.cadence_s, side="left"))
+            if keep:
+                self.counts.spectra_overlap_dropped += min(keep, spec.n_time)
+                if keep >= spec.n_time:
+                    return
+                spec = spec.slice_rows(keep, spec.n_time)
+        spec.segment = self._segment_name(spec)
+        self.last_end = spec.t_end
+        self._note_segment(spec)
+        self._archive(spec)
+        self._detect(spec)
+
+    def _note_segment(self, spec: DynamicSpectrum):
+        row = self.segments.get(spec.segment)
+        if row is None:
+            m, f = spec.meta, spec.freq_hz
+            df = float(f[1] - f[0]) if f.size > 1 else 0.0
+            row = {"segment_id": spec.segment, "station": self.station, "start_utc": iso(spec.t0),
+                   "center_hz": m.get("center_hz"), "rate_hz": m.get("rate_hz"), "gain_db": m.get("gain_db"),
+                   "channels": spec.n_chan, "fmin_mhz": round((f[0] - df / 2) / 1e6, 6),
+                   "fmax_mhz": round((f[-1] + df / 2) / 1e6, 6), "cadence_s": spec.cadence_s,
+                   "settings": ";".join(f"{k}={v}" for k, v in sorted(m.items()))}
+            self.segments[spec.segment] = row
+        row["end_utc"] = iso(spec.t_end)
+
+    def _disk_free(self) -> float:
+        free, when = self._disk
+        now = self.clock.monotonic()
+        if free is None or now - when >= DISK_CHECK_S:
+            free = hl.disk_free_mb(self.cfg.storage_root)
+            self._disk = (free, now)
+        return free
+
+    def _archive(self, spec: DynamicSpectrum):
+        free = self._disk_free()
+        if not self.raw_paused and free < self.disk_min_mb:
+            self._pause_raw(f"disk free {free:.1f} MB below disk_min_free_mb {self.disk_min_mb:g} MB")
+        elif (self.raw_paused and free >= self._resume_above_mb
+              and self.clock.monotonic() - self._paused_at >= DISK_RETRY_S):
+            self.raw_paused = False
+            self._notable(f"raw spectra resumed: disk free {free:.1f} MB", level=logging.WARNING)
+        if self.raw_paused:
+            self.counts.spectra_not_archived += spec.n_time
+            return
+        try:
+            if self.archive is None:
+                self.archive = self.archive_factory()
+            self.archive.write(spec)
+            self.counts.spectra_archived += spec.n_time
+        except (RxlogError, OSError) as e:
+            self._archive_failed(e)
+            self.counts.spectra_not_archived += spec.n_time
+
+    def _archive_failed(self, e: Exception):
+        """A write or flush failed (disk full, a quota, permissions): pause raw spectra.
+
+        The writer is dropped without closing it (closing would retry the failed write);
+        chunks it already wrote are consolidated by the next writer."""
+        self.archive = None
+        self._disk = (None, -1e9)
+        self._pause_raw(f"archive write failed: {e}", failed=True)
+
+    def _pause_raw(self, why: str, failed: bool = False):
+        self.raw_paused = True
+        self._paused_at = self.clock.monotonic()
+        # After a failed write the threshold alone may already be met (e.g. threshold 0):
+        # then wait for a megabyte more than there was when the write failed.
+        self._resume_above_mb = max(DISK_RESUME_FACTOR * self.disk_min_mb,
+                                    self._disk_free() + 1.0 if failed else 0.0)
+        self._notable(f"raw spectra paused ({why}); events and health continue", level=logging.WARNING)
+
+    def _detect(self, spec: DynamicSpectrum):
+        if self.detector is None:
+            return
+        try:
+            events = self.detector.feed(spec)
+        except Exception:
+            log.error("detector: failure on %s..%s; spectra kept, detector restarted",
+                      iso(spec.t0), iso(spec.t_end), exc_info=True)
+            self.detector = self.detector_factory()
+            return
+        self._store_events(events)
+
+    def _store_events(self, events):
+        """Store new events (and the detector's episodes and hourly quality rows); what the
+        store cannot take now (disk full, a long lock) is kept for the next try."""
+        if self.detector is not None:
+            self.pending_episodes.extend(self.detector.pop_episodes())
+            self.pending_quality.extend(self.detector.pop_quality())
+        if self.pending_episodes or self.pending_quality:
+            try:
+                self.store.upsert_episodes(self.pending_episodes)
+                self.store.record_quality(self.pending_quality)
+                self.pending_episodes, self.pending_quality = [], []
+            except sqlite3.OperationalError as e:
+                log.warning("event store: %s; episodes and quality rows kept for a retry", e)
+                del self.pending_episodes[:-10000]
+                del self.pending_quality[:-10000]
+        self._store_event_rows(events)
+
+    def _store_event_rows(self, events):
+        if events:
+            self.pending_events.extend(events)
+        if not self.pending_events:
+            return
+        try:
+            self.store.upsert_events(self.pending_events)
+        except sqlite3.OperationalError as e:
+            # "database or disk is full", or locked by a long reader: keep them for the next try.
+            log.warning("event store: %s; %d events kept for a retry", e, len(self.pending_events))
+            del self.pending_events[:-10000]
+            return
+        self.counts.events += len(self.pending_events)
+        self.totals["events"] += len(self.pending_events)
+        self.pending_events = []
+
+    # -- main thread: housekeeping --------------------------------------------------------
+    def _flush(self):
+        if self.archive is not None:
+            try:
+                self.archive.flush()
+            except (RxlogError, OSError) as e:
+                self._archive_failed(e)
+        self._store_events([])
+        if self.segments:
+            try:
+                for row in self.segments.values():
+                    self.store.upsert_segment(row)
+            except sqlite3.OperationalError as e:
+                log.warning("event store: %s; segment rows kept for a retry", e)
+                return
+            # keep only the segment still growing
+            current = max(self.segments.values(), key=lambda r: r["end_utc"])
+            self.segments = {current["segment_id"]: current}
+
+    def _clock_sync_state(self) -> str:
+        state, when = self._clock_sync
+        now = self.clock.monotonic()
+        if now - when >= CLOCK_SYNC_CHECK_S:
+            state = hl.clock_sync_state()
+            self._clock_sync = (state, now)
+        return state
+
+    def _health(self, note: str = ""):
+        c = self.counts
+        raw = "paused" if self.raw_paused else "on"
+        now = self.clock.monotonic()
+        cum = (int(getattr(self.feed, "samples_received", 0)), int(getattr(self.feed, "samples_dropped", 0)),
+               self.queue_dropped)
+        d_rx, d_drop, d_queue = (a - b for a, b in zip(cum, self._last_cumulative))
+        row = {"station": self.station, "time_utc": iso(self.clock.realtime()),
+               "interval_s": round(now - self._last_health, 3),
+               "samples_received": d_rx, "samples_dropped": d_drop,
+               "queue_depth": self.queue.qsize(), "cpu_percent": round(self.cpu.percent(), 2),
+               "disk_free_mb": round(hl.disk_free_mb(self.cfg.storage_root), 2),
+               "clock_sync": self._clock_sync_state(), "receiver_state": self.receiver_state,
+               "note": note,
+               "spectra_received": c.spectra_received, "spectra_archived": c.spectra_archived,
+               "spectra_not_archived": c.spectra_not_archived,
+               "spectra_dropped": c.spectra_overlap_dropped + d_queue,
+               "events": c.events, "clock_step_s": c.clock_step_s, "raw_archiving": raw,
+               "rss_mb": round(hl.rss_mb(), 1), "pid": os.getpid()}
+        try:
+            self.store.record_health(row)
+        except sqlite3.OperationalError as e:
+            log.warning("event store: health row not written (%s): %s", e, row["note"])
+            return
+        self.totals["spectra_archived"] += c.spectra_archived
+        self.counts = Counters()
+        self._last_cumulative = cum
+        self._last_health = now
+        self.notifier.status(f"{self.receiver_state}; raw spectra {raw}; {self.totals['events']} events; "
+                             f"disk {row['disk_free_mb']:.0f} MB free; clock {row['clock_sync']}")
+
+    def _notable(self, text: str, level=logging.INFO):
+        """Log something the morning reviewer should know and record it in a health row at once."""
+        log.log(level, "%s", text)
+        self._health(note=text)
+
+    def _check_clock(self):
+        step = self.clockwatch.check()
+        if step is None:
+            return
+        self.clock_epoch += 1
+        self.totals["clock_steps"] += 1
+        self.counts.clock_step_s += step
+        self._notable(f"clock step {step:+.3f} s at {iso(self.clock.realtime())} (wall clock against "
+                      f"monotonic); new segment; rows before {iso(self.last_end or 0)} are dropped",
+                      level=logging.WARNING)
+
+    def _maybe_prune(self):
+        if self.prune is None or (self._prune_thread and self._prune_thread.is_alive()):
+            return
+
+        def work():
+            try:
+                removed = self.prune()
+                log.info("retention: removed %s", removed)
+            except Exception:
+                log.error("retention: prune failed", exc_info=True)
+
+        self._prune_thread = threading.Thread(target=work, name="rxlog-prune", daemon=True)
+        self._prune_thread.start()
+
+    def _on_marker(self, item):
+        if isinstance(item, ReceiverLost):
+            self.totals["receiver_gaps"] += 1
+            self._notable(f"receiver lost at {iso(item.t_utc)}: {item.reason}", level=logging.WARNING)
+        elif isinstance(item, ReceiverBack):
+            self._notable(f"receiver back at {iso(item.back_utc)}; gap {iso(item.lost_utc)} to "
+                          f"{iso(item.back_utc)} ({item.back_utc - item.lost_utc:.1f} s): {item.reason}",
+                          level=logging.WARNING)
+
+    # -- the run ------------------------------------------------------------------------------
+    def request_stop(self, reason: str):
+        if not self.stop_event.is_set():
+            self.stop_reason = reason
+            self.stop_event.set()
+
+    def run(self, duration_s: float | None = None) -> dict:
+        clock = self.clock
+        start = clock.monotonic()
+        self.last_end = self._previous_end()
+        self._feed_thread = threading.Thread(target=self._feed_loop, name="rxlog-feed", daemon=True)
+        self._feed_thread.start()
+        log.info("logging station %s to %s (chunk %g s, health every %g s)", self.station,
+                 self.cfg.storage_root, self.chunk_s, self.health_s)
+        self._health(note="logger started")
+        self.notifier.ready(f"logging station {self.station}")
+        wd = self.notifier.watchdog_s
+        next_flush = start + self.chunk_s
+        next_health = start + self.health_s
+        next_prune = start
+        next_ping = start
+        ended = False
+        while not self.stop_event.is_set():
+            try:
+                item = self.queue.get(timeout=0.2)
+            except queue.Empty:
+                item = None
+            self._check_clock()
+            if isinstance(item, DynamicSpectrum):
+                self._take(item)
+            elif isinstance(item, FeedEnded):
+                ended = True
+                self.request_stop("end of feed")
+            elif item is not None:
+                self._on_marker(item)
+            now = clock.monotonic()
+            if now >= next_flush:
+                self._flush()
+                next_flush = now + self.chunk_s
+            if now >= next_health:
+                self._health()
+                next_health = now + self.health_s
+            if now >= next_prune:
+                self._maybe_prune()
+                next_prune = now + RETENTION_EVERY_S
+            # Ping only while the feed thread shows signs of life: a hung receiver read
+            # stops the pings and systemd restarts the logger (WatchdogSec).
+            if wd and now >= next_ping and now - self.feed_heartbeat < 2 * wd:
+                self.notifier.watchdog()
+                next_ping = now + wd
+            if duration_s is not None and now - start >= duration_s:
+                self.request_stop("duration reached")
+        return self._finish(ended)
+
+    def _previous_end(self) -> float | None:
+        """End of the data a previous run stored, so a restart never overlaps it."""
+        try:
+            row = self.store.db.execute("select max(end_utc) from segments where station = ?",
+                                        [self.station]).fetchone()
+        except sqlite3.Error:
+            return None
+        return parse_iso(row[0]) if row and row[0] else None
+
+    def _finish(self, ended: bool) -> dict:
+        t_stop = self.clock.monotonic()
+        self.notifier.stopping(f"stopping: {self.stop_reason}")
+        log.info("stopping: %s", self.stop_reason)
+        if self._feed_thread is not None:
+            self._feed_thread.join(STOP_JOIN_S)
+        # Take what the feed already queued, within the stop budget.
+        while self.clock.monotonic() - t_stop < 1.0:
+            try:
+                item = self.queue.get_nowait()
+            except queue.Empty:
+                break
+            if isinstance(item, DynamicSpectrum):
+                self._take(item)
+        if self.detector is not None:
+            try:
+                self._store_events(self.detector.flush())
+            except Exception:
+                log.error("detector: flush failed at stop", exc_info=True)
+        self._flush()
+        if self.archive is not None:
+            try:
+                self.archive.close()
+            except (RxlogError, OSError) as e:
+                log.warning("archive: last chunk not written at stop: %s", e)
+            self.archive = None
+        self._health(note=f"logger stopped: {self.stop_reason}")
+        summary = dict(self.totals, stop_reason=self.stop_reason, ended=ended)
+        log.info("stopped: %(spectra_archived)d spectra archived, %(events)d events, "
+                 "%(receiver_gaps)d receiver gaps, %(clock_steps)d clock steps", summary)
+        return summary
+
+
+# -- assembling the real stages ---------------------------------------------------------------
+
+def run(cfg, duration_s: float | None = None, install_signals: bool = True) -> dict:
+    """Run the logger on a station config until SIGTERM/SIGINT, the end of the feed, or
+    ``duration_s`` seconds; return a summary. Raises RxlogError if another logger holds
+    the storage root."""
+    from rxlog.store import EventStore
+
+    lock = hl.RunLock(cfg.storage_root)
+    if not lock.acquire():
+        pid = hl.running_logger(cfg.storage_root)
+        raise RxlogError(f"{cfg.storage_root}: another rxlog run (pid {pid}) is logging here; "
+                         "stop it first (systemctl stop rxlog) or use another [storage] root")
+    store = None
+    try:
+        store = EventStore(cfg.store_path)
+        store.upsert_station(cfg["station"])
+        clock = Clock.from_env()
+        logger = Logger(cfg, feed=open_feed(cfg, clock), archive_factory=lambda: open_archive(cfg),
+                        detector_factory=lambda: open_detector(cfg), store=store, clock=clock,
+                        prune=lambda: prune_archive(cfg))
+        if install_signals:
+            for sig in (signal.SIGTERM, signal.SIGINT):
+                signal.signal(sig, lambda s, f: logger.request_stop(signal.Signals(s).name))
+        return logger.run(duration_s)
+    finally:
+        if store is not None:
+            store.close()
+        lock.release()
+
+
+class SweepFeed:
+    """Samples from the configured receiver through the sweep plan (or a single window)
+    and the channelizer: rows on the station's channel grid.
+
+    Live receivers read the wall clock through ``clock`` so their sample times follow it
+    (and a fake clock step reaches them as a real one would)."""
+
+    def __init__(self, cfg, clock: Clock, realtime_sim: bool = True):
+        self.cfg, self.clock = cfg, clock
+        self.realtime_sim = realtime_sim
+        self.sweeper = None
+        self.paced = cfg["receiver"]["kind"] != "recording" and (
+            cfg["receiver"]["kind"] != "simulated" or realtime_sim)
+        self._done = (0, 0)           # sample counts of sources already closed
+
+    def open(self):
+        from rxlog.channelizer import Channelizer
+        from rxlog.receiver import open_source
+        from rxlog.sweep import Sweeper, SweepPlan
+
+        kind = self.cfg["receiver"]["kind"]
+        if kind in ("rtlsdr", "rtltcp"):
+            source = open_source(self.cfg, monotonic=self.clock.monotonic, realtime=self.clock.realtime)
+        elif kind == "simulated":
+            source = open_source(self.cfg, realtime=self.realtime_sim)
+        else:
+            source = open_source(self.cfg)
+        plan = SweepPlan.from_config(self.cfg, source.rate_hz)
+        meta = source.meta() if hasattr(source, "meta") else {"receiver": kind}
+        sweeper = Sweeper(source, plan, Channelizer(self.cfg), meta=meta)
+        try:
+            sweeper.open()
+        except BaseException:
+            source.close()
+            raise
+        self.sweeper = sweeper
+        log.info("receiver %s open: %s", kind, plan.describe())
+
+    def read(self) -> list[DynamicSpectrum]:
+        try:
+            return self.sweeper.step()
+        except EndOfStream:
+            rows = self.sweeper.finish()
+            if rows:
+                return rows
+            raise
+
+    def close(self):
+        if self.sweeper is not None:
+            rx, dr = self._done
+            self._done = (rx + self.sweeper.samples_received, dr + self.sweeper.samples_dropped)
+            sweeper, self.sweeper = self.sweeper, None
+            sweeper.close()
+
+    @property
+    def samples_received(self) -> int:
+        return self._done[0] + (self.sweeper.samples_received if self.sweeper else 0)
+
+    @property
+    def samples_dropped(self) -> int:
+        return self._done[1] + (self.sweeper.samples_dropped if self.sweeper else 0)
+
+
+class SpectraFeed:
+    """Dynamic spectra straight from the simulator's sky model (``[service] sim_feed =
+    "spectra"``): no samples, no channelizer — for dry runs, the demo and long tests.
+
+    Paced (``realtime``), a chunk is handed out once its last row has passed on the
+    monotonic clock and is stamped in UTC with the current wall-minus-monotonic offset,
+    as a live receiver's disciplined sample count is; a wall-clock step therefore moves
+    the data as it would on a real station. Unpaced, chunks come as fast as they can be
+    made, on the simulation's own time line. ``hours`` ends the feed; without it the sky
+    is planned ``RUN_HOURS`` at a time, for ever.
+    """
+
+    RUN_HOURS = 6.0
+    PACED_CHUNK_S = 1.0      # a chunk waits for its last row, so this is the feed's latency
+    FAST_CHUNK_S = 60.0
+
+    def __init__(self, cfg, clock: Clock, realtime: bool = True, hours: float | None = None,
+                 start_unix: float | None = None, seed: int = 0):
+        self.cfg, self.clock, self.paced = cfg, clock, bool(realtime)
+        self.hours, self.seed = hours, int(seed)
+        self.cadence = float(cfg["spectra"]["cadence_s"])
+        self.start = start_unix
+        self.next_t: float | None = None       # simulation time of the next row
+        self.end: float | None = None
+        self._runs = 0
+        self._it = None
+        self.samples_received = self.samples_dropped = 0
+
+    def open(self):
+        if self.start is None:
+            now = self.clock.realtime()
+            self.start = math.ceil(now / self.cadence) * self.cadence
+        if self.next_t is None:
+            self.next_t = self.start
+            self.end = None if self.hours is None else self.start + self.hours * 3600.0
+            # the simulation's time line runs on the monotonic clock from here
+            self._mono0 = self.clock.monotonic() + (self.start - self.clock.realtime())
+            self._offset0 = self.start - self._mono0
+        self._it = None
+
+    def _new_run(self):
+        from rxlog.simulator import iter_spectra
+
+        hours = self.RUN_HOURS if self.end is None else min(self.RUN_HOURS, (self.end - self.next_t) / 3600.0)
+        chunk = max(self.cadence, self.PACED_CHUNK_S if self.paced else self.FAST_CHUNK_S)
+        self._it = iter(iter_spectra(self.cfg, self.next_t, hours, seed=self.seed + self._runs, chunk_s=chunk))
+        self._runs += 1
+
+    def read(self) -> list[DynamicSpectrum]:
+        if self.end is not None and self.next_t >= self.end - 0.5 * self.cadence:
+            raise EndOfStream("simulation finished")
+        if self._it is None:
+            self._new_run()
+        spec = next(self._it, None)
+        if spec is None:
+            self._it = None
+            return []
+        self.next_t = spec.t_end
+        if self.paced:
+            due = self._mono0 + (spec.t_end - self.start)
+            while (wait := due - self.clock.monotonic()) > 0:
+                time.sleep(min(wait, 0.25))
+            shift = (self.clock.realtime() - self.clock.monotonic()) - self._offset0
+            spec.t0 += shift
+        return [spec]
+
+    def close(self):
+        self._it = None
+
+
+def open_feed(cfg, clock: Clock):
+    """The configured data feed: the receiver through sweep and channelizer, or for a
+    simulated receiver with ``[service] sim_feed = "spectra"`` the spectral simulator."""
+    svc = cfg["service"]
+    if cfg["receiver"]["kind"] == "simulated" and svc["sim_feed"] == "spectra":
+        return SpectraFeed(cfg, clock, realtime=svc["sim_realtime"])
+    return SweepFeed(cfg, clock, realtime_sim=svc["sim_realtime"])
+
+
+def open_archive(cfg):
+    from rxlog.archive import ArchiveWriter
+
+    return ArchiveWriter(cfg.archive_dir, cfg["station"], lossless=cfg["storage"]["lossless"],
+                         chunk_s=cfg["service"]["chunk_s"])
+
+
+def open_detector(cfg):
+    from rxlog.detector import OnlineDetector
+
+    return OnlineDetector(cfg)
+
+
+def prune_archive(cfg):
+    from rxlog.archive import prune
+
+    return prune(cfg.archive_dir, cfg["storage"]["retention_days"])
