@@ -15,9 +15,9 @@ is not. ``compare_stations`` reads event lists from any number of stations and
    Schur complement), and Huber weights with scales measured per class keep a few
    mismatches from pulling the answer. Solar Type III onsets are the best clocks (the
    emission arrives at all ground stations within milliseconds, and the onset is sharp);
-   Jovian L-burst patterns are shifted between stations by interplanetary
-   scintillation by ~0.3-1 s (see e.g. Riihimaa's and Genova's studies of L-burst
-   fine structure; from memory), so they weigh less. The offsets are only defined
+   the fine structure of Jovian L-bursts comes mostly from interplanetary
+   scintillation, so stations hundreds of km apart see the pattern shifted by
+   ~0.3-1 s (common practice), alike for a whole night: they weigh much less. The offsets are only defined
    relative to each other: they are quoted against the mean of the stations that agree
    with each other (a station whose offset stands out is left out of that mean).
 3. when partners share dynamic spectra, refines the offsets by cross-correlating Type III
@@ -56,6 +56,14 @@ N_CLS = len(CLASSES)
 CLOCK_SIGMA_S = {"solar_iii": 0.2, "jovian_l": 1.0, "jovian_s": 1.0, "unknown": 3.0,
                  "solar_ii": 2.0, "solar_iv": 10.0, "fadeout": 20.0, "rfi": math.inf}
 SIGMA = np.array([CLOCK_SIGMA_S[c] for c in CLASSES])
+# A shared, systematic part of the timing error that does not average out over many events:
+# the solar wind carries the scintillation pattern across the baseline in one direction
+# for hours, so a night's L-bursts at one station are all shifted alike (~0.3-1 s, see
+# above). Modelled as an error common to all of a station's events of the class: each
+# member's variance grows by n * SYSTEMATIC^2 (n: the station's members of that class),
+# so together they never weigh more than one reading of SYSTEMATIC seconds.
+CLOCK_SYSTEMATIC_S = {"jovian_l": 0.5, "jovian_s": 0.5}
+SYSTEMATIC = np.array([CLOCK_SYSTEMATIC_S.get(c, 0.0) for c in CLASSES])
 # Classes timed by their onset (at a common frequency for drifting bursts); the rest by their peak.
 ONSET_CLASSES = ("solar_iii", "solar_ii", "fadeout")
 FAMILY = {"solar_iii": 0, "solar_ii": 0, "solar_iv": 0, "fadeout": 0, "jovian_l": 1, "jovian_s": 1,
@@ -773,6 +781,9 @@ def _clock_fit(E: _Events, grp, n_st: int, extra=None):
     np.minimum.at(f_ref, g, E.fmax[idx])
     t = _clock_time(E, idx, cls, f_ref[g] if n_g else np.zeros(0))
     sig = _member_sigma(E, idx, cls)
+    n_same = np.zeros((n_st, N_CLS))
+    np.add.at(n_same, (E.station[idx], cls), 1.0)
+    sig = np.sqrt(sig ** 2 + n_same[E.station[idx], cls] * SYSTEMATIC[cls] ** 2)
     # Work relative to each group's first member to keep float64 precision.
     order = np.argsort(g, kind="stable")
     starts = np.r_[0, np.flatnonzero(np.diff(g[order])) + 1] if n_g else np.zeros(0, dtype=int)
@@ -820,7 +831,7 @@ def _rows(E: _Events, grp, n_at, names, used, resid) -> list[dict]:
         e = E.ev[i]
         rows.append({
             "match_id": f"M{rank[grp[i]] + 1:06d}", "n_stations": int(n_at[i]),
-            "stations": "+".join(members[int(grp[i])]), "station": names[int(E.station[i])],
+            "stations": "+".join(sorted(members[int(grp[i])])), "station": names[int(E.station[i])],
             "event_id": e["event_id"], "class": CLASSES[int(E.cls[i])], "start_utc": e["start_utc"],
             "peak_utc": e["peak_utc"], "end_utc": e["end_utc"], "fmin_mhz": e["fmin_mhz"],
             "fmax_mhz": e["fmax_mhz"], "snr": e.get("snr"), "used_for_clock": int(used[i]),

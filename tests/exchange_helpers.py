@@ -71,13 +71,13 @@ def sky(rng, days=3.0, n3=60, nl=80, n2=8):
 
 
 def station_list(rng, name, sky_events, offset, band=(16.0, 24.0), cadence=1.0, p_detect=0.85,
-                 n_rfi=100, days=3.0, onset_noise=0.15, scint=0.6, truth=None):
+                 n_rfi=100, days=3.0, onset_noise=0.15, scint=0.6, l_lag=0.0, truth=None):
     """What one station would list for ``sky_events``, by a clock ``offset`` s ahead of true time.
 
     Each sky event is detected with probability ``p_detect``; times are measured on the
     station's own archive rows (``cadence``, random phase) with ``onset_noise`` (Type III)
-    or scintillation jitter ``scint`` (L-bursts, ~0.3-1 s between stations per the
-    literature) or 2 s (Type II). ``n_rfi`` local interference events are added. With a
+    or scintillation jitter ``scint`` plus a common lag ``l_lag`` (L-bursts: the pattern
+    reaches stations ~0.3-1 s apart) or 2 s (Type II). ``n_rfi`` local interference events are added. With a
     ``truth`` dict, records which sky event (index) each listed event came from.
     """
     phase = float(rng.uniform(0, cadence))
@@ -98,7 +98,7 @@ def station_list(rng, name, sky_events, offset, band=(16.0, 24.0), cadence=1.0, 
             start = row(t_on + offset)
             end, peak = start + s["dur"] + ah_delay(ftop, fbot), start + 1.0
         elif s["kind"] == "jovian_l":
-            start = row(s["onset"] + rng.normal(0, scint) + offset)
+            start = row(s["onset"] + l_lag + rng.normal(0, scint) + offset)
             end, peak, drift = start + s["dur"], start + s["dur"] / 2, None
         else:
             start = row(s["onset"] + rng.normal(0, 2.0) + offset)
