@@ -150,6 +150,10 @@ class CompareResult:
             if s.flagged:
                 line += " -- LARGE OFFSET: check this station's time sync"
             lines.append(line)
+        ref = [s for s in self.stations if s.in_reference]
+        if len(ref) == 2 and all(s.flagged for s in ref):
+            lines.append(f"  {ref[0].name} and {ref[1].name} disagree, and two clocks alone cannot tell "
+                         "which one is off: compare with a third station, or check both time syncs")
         return lines
 
 
@@ -160,6 +164,8 @@ def _load(paths) -> tuple[list[EventList], list[str]]:
     notices: list[str] = []
     for p in paths:
         el = p if isinstance(p, EventList) else read_event_list(p)
+        if not el.events:
+            raise RxlogError(f"{el.path or el.name}: no events to compare")
         notices.extend(el.notices)
         if el.name in lists:
             have = lists[el.name]
@@ -729,7 +735,7 @@ def compare_stations(paths, window_s: float = 10.0, outdir=None, spectra=None, p
 
     sizes = np.bincount(grp, weights=None, minlength=int(grp.max()) + 1 if n else 0)
     n_at = sizes[grp]
-    m_grp, m_ev, m_w, m_r = members
+    _, m_ev, m_w, m_r = members
     used = np.zeros(n, dtype=bool)
     resid = np.full(n, np.nan)
     used[m_ev] = m_w > 0
