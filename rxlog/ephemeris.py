@@ -574,8 +574,10 @@ def tag_table(cfg, start_unix: float, end_unix: float | None = None, step_s: flo
     if not (math.isfinite(step_s) and step_s > 0):
         raise RxlogError(f"step: expected a positive number of seconds, got {step_s!r}")
     if end_unix < start_unix:
-        raise RxlogError(f"end: expected a time at or after the start, got end {end_unix:.0f} "
-                         f"before start {start_unix:.0f}")
+        from rxlog.timeutil import iso
+
+        raise RxlogError(f"end: expected a time at or after the start, got end {iso(end_unix)} "
+                         f"before start {iso(start_unix)}")
     n = int(math.floor((end_unix - start_unix) / step_s + 1e-9)) + 1
     if n > MAX_TABLE_ROWS:
         raise RxlogError(f"step: {n} rows from start to end; expected at most {MAX_TABLE_ROWS} "

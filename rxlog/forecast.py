@@ -208,11 +208,23 @@ def write_ics(windows: list[dict], path, station, stamp_unix: float | None = Non
     return _atomic_write(Path(path), text.encode("utf-8"))
 
 
-def _atomic_write(path: Path, data: bytes) -> Path:
+def _check_output(path) -> Path:
+    """An output file path whose folder exists and which is not a folder itself."""
+    path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise RxlogError(f"{path}: folder {folder} does not exist; expected an existing folder")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=folder)
+    if path.is_dir():
+        raise RxlogError(f"{path}: is a folder; expected a file name")
+    return path
+
+
+def _atomic_write(path: Path, data: bytes) -> Path:
+    path = _check_output(path)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    except OSError as e:
+        raise RxlogError(f"{path}: cannot write ({e.strerror or e})") from None
     try:
         with os.fdopen(fd, "wb") as f:
             f.write(data)
@@ -288,7 +300,7 @@ def plot_forecast(cfg, start_unix: float, days: float, path, windows: list[dict]
         y = np.where(sel, tags["io_phase_deg"], np.nan)
         x, y = _break_wraps(x, y)
         label = (dt.date(1970, 1, 1) + dt.timedelta(days=int(nd))).strftime("%a %m-%d")
-        ax.plot(x, y, color=cmap(j / max(1, len(nights) - 1)), linewidth=1.2, label=label)
+        ax.plot(x, y, color=cmap(0.85 * j / max(1, len(nights) - 1)), linewidth=1.2, label=label)
     for w in windows or []:
         tw = np.linspace(w["start"], w["end"], 20)
         tw_tags = station_tags(cfg, tw)
@@ -309,9 +321,33 @@ def plot_forecast(cfg, start_unix: float, days: float, path, windows: list[dict]
     track_handles = ax.get_legend_handles_labels()[0]
     fig.legend(handles=handles + track_handles, loc="upper left", bbox_to_anchor=(0.77, 0.92),
                fontsize=7, frameon=False, title="regions / nights", title_fontsize=8)
-    path = Path(path)
-    folder = path.parent if str(path.parent) else Path(".")
-    if not folder.is_dir():
-        raise RxlogError(f"{path}: folder {folder} does not exist; expected an existing folder")
-    fig.savefig(path, format="png")
+    path = _check_output(path)
+    try:
+        fig.savefig(path, format="png")
+    except OSError as e:
+        raise RxlogError(f"{path}: cannot write ({e.strerror or e})") from None
     return path
+
+
+# --- everything the forecast command does --------------------------------------------
+
+def make_forecast(cfg, start_unix: float, days: float, min_jupiter_alt_deg: float = MIN_JUPITER_ALT_DEG,
+                  max_sun_alt_deg: float = MAX_SUN_ALT_DEG, ics_path=None, plot_path=None,
+                  progress: Callable[[int], None] | None = None) -> dict:
+    """Windows, their text table and, if paths are given, the iCalendar file and the plot.
+
+    Output folders are checked before any work is done. Returns a dict with windows,
+    text, ics_path and plot_path (None when not asked for).
+    """
+    for p in (ics_path, plot_path):
+        if p is not None:
+            _check_output(p)
+    windows = forecast_windows(cfg, start_unix, days, min_jupiter_alt_deg, max_sun_alt_deg, progress=progress)
+    out = {"windows": windows, "text": format_forecast(windows, cfg["station"].get("timezone", "UTC")),
+           "ics_path": None, "plot_path": None}
+    if ics_path is not None:
+        out["ics_path"] = write_ics(windows, ics_path, cfg["station"])
+    if plot_path is not None:
+        out["plot_path"] = plot_forecast(cfg, start_unix, days, plot_path, windows, min_jupiter_alt_deg,
+                                         max_sun_alt_deg)
+    return out
