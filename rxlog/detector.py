@@ -109,6 +109,8 @@ class Settings:
     sumthreshold_max_mhz: float = 0.05
     sumthreshold_max_s: float = 8.0
     kurtosis_sigma: float = 5.0
+    impulse_sigma: float = 8.0
+    impulse_gap_s: float = 60.0
 
     @classmethod
     def from_config(cls, cfg) -> "Settings":
@@ -347,6 +349,13 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
     def why(*parts):
         return "; ".join(p for p in parts if p)
 
+    if f["path"] == "impulse":
+        n = f["n_impulses"]
+        if n == 1:
+            return "rfi", 0.9, f"impulse: {bw:.1f} MHz lit for one time step, nothing before or after"
+        return "rfi", 0.9, (f"impulse storm: {n} impulses over {f['span_s'] / 60:.1f} min "
+                            f"(power line, fence or appliance)")
+
     # -- long events from the slow path ---------------------------------------------
     if f["path"] == "slow":
         depth = f["peak_excess_db"]
@@ -459,8 +468,20 @@ class _Segment:
         self.cw = max(1, int(round(s.carrier_width_mhz / self.chan_mhz)))
         self.st_f = max(1, int(s.sumthreshold_max_mhz / self.chan_mhz))
         self.st_t = max(1, int(s.sumthreshold_max_s / cad))
+        # Sub-bands: runs of channels sampled at the same moment of the sweep (one run
+        # when the receiver does not sweep). A millisecond impulse lands in one of them.
+        change = np.flatnonzero(np.diff(self.offsets) != 0) + 1
+        self.sb_start = np.concatenate([[0], change]).astype(np.int64)
+        self.sb_stop = np.concatenate([change, [self.n_chan]]).astype(np.int64)
+        self.storm: dict | None = None          # the impulse storm still open
+        self.storms_done: list[dict] = []
+        self.carry_anchor = False
+        self.sb_id = np.repeat(np.arange(len(self.sb_start)), self.sb_stop - self.sb_start)
         self.groups = bg.coarse_groups(self.freq, s.slow_freq_mhz)
         self.n_groups = int(self.groups.max()) + 1
+        gchange = np.flatnonzero(np.diff(self.groups) != 0) + 1
+        self.g_start = np.concatenate([[0], gchange]).astype(np.int64)
+        self.g_stop = np.concatenate([gchange, [self.n_chan]]).astype(np.int64)
         self.carriers = rfi.CarrierMemory(self.n_chan, self.block_s, s.carrier_memory_s, s.carrier_fraction)
         self.next_t = self.t0
         self.pending: list[DynamicSpectrum] = []
@@ -582,6 +603,7 @@ class _Segment:
         while self.next_m < self.next_fast and (final or self.next_m + 1 < self.next_fast):
             self._stage_m(self.next_m, last=(final and self.next_m + 1 >= nb))
             self.next_m += 1
+        out += [("impulse", c) for c in self._impulse_storms(final)]
         # stage S(j) needs M(j + 1)
         while self.next_s < self.next_m and (final or self.next_s + 1 < self.next_m):
             out += [("fine", c) for c in self._stage_s(self.next_s)]
@@ -591,6 +613,35 @@ class _Segment:
             out += self._slow(self.next_slow, nb)
             self.next_slow += 1
         self._forget()
+        return out
+
+    def _add_impulses(self, rows, sbs, sig, db):
+        """Fold this block's impulses (in time order) into storms: impulses closer than
+        ``impulse_gap_s`` belong to one storm, kept as running totals."""
+        gap = self.s.impulse_gap_s / self.cadence
+        order = np.lexsort((sbs, rows))
+        for r, b, g, d in zip(rows[order], sbs[order], sig[order], db[order]):
+            st = self.storm
+            if st is not None and r - st["last"] > gap:
+                self.storms_done.append(st)
+                st = None
+            if st is None:
+                st = self.storm = {"first": r, "first_sb": b, "last": r, "last_sb": b, "n": 0, "rows": set(),
+                                   "sb_lo": b, "sb_hi": b, "peak": -1.0, "peak_row": r, "peak_sb": b, "peak_db": 0.0}
+            st["last"], st["last_sb"], st["n"] = r, b, st["n"] + 1
+            st["sb_lo"], st["sb_hi"] = min(st["sb_lo"], b), max(st["sb_hi"], b)
+            if len(st["rows"]) < 100000:
+                st["rows"].add(int(r))
+            if g > st["peak"]:
+                st.update(peak=float(g), peak_row=r, peak_sb=b, peak_db=float(d))
+
+    def _impulse_storms(self, final: bool) -> list[dict]:
+        """Storms whose gap has passed (all of them at the end of the segment)."""
+        gap = self.s.impulse_gap_s / self.cadence
+        if self.storm is not None and (final or self.next_m * self.R - self.storm["last"] > gap):
+            self.storms_done.append(self.storm)
+            self.storm = None
+        out, self.storms_done = self.storms_done, []
         return out
 
     def _forget(self):
@@ -628,6 +679,9 @@ class _Segment:
         st = rfi.sum_threshold(hp, st, 0, s.sumthreshold_chi1, self.st_t)
         st &= w
         w &= ~st
+        imp, sub = self._impulses(j, z, w, n, excess)
+        w &= ~imp
+        st |= imp
         sk_anom = np.zeros_like(w)
         if b.sk is not None:
             sk_anom = rfi.kurtosis_flags(b.sk, good, s.kurtosis_sigma)
@@ -641,7 +695,79 @@ class _Segment:
             for i in range(4):
                 acc[i] += v[i]
         self.stage_m[j] = {"z": np.where(w, z, 0.0).astype(np.float32), "w": w.astype(np.float32),
-                           "ex": np.where(w, excess, 0.0).astype(np.float32), "sk": sk_anom, "n": n}
+                           "ex": np.where(w, excess, 0.0).astype(np.float32), "sk": sk_anom, "n": n,
+                           "sub": sub}
+
+    def _group_significance(self, z: np.ndarray, w: np.ndarray, starts: np.ndarray) -> np.ndarray:
+        """Per row and channel group (contiguous, from ``starts``): significance of the mean excess."""
+        zw = np.add.reduceat(np.where(w, z, 0.0), starts, axis=1)
+        nw = np.add.reduceat(w.astype(np.float32), starts, axis=1)
+        return np.where(nw > 0, zw / np.sqrt(np.maximum(nw, 1.0)), 0.0).astype(np.float32)
+
+    def _impulses(self, j: int, z: np.ndarray, w: np.ndarray, n: int, excess: np.ndarray):
+        """Cells of impulses. An anchor is a whole sub-band lit for one time step with the
+        steps either side dark (below 0.3 of it); in the anchor's step and the next, any
+        0.25-MHz group lit for at most two steps is part of the same impulse (channels near
+        a sub-band edge can straddle two dwells). A Type III lasts longer than that at every
+        frequency (its decay is ~2 s at 20 MHz), so it is not taken. Returns (cell mask,
+        per-row group significances of this block before removal)."""
+        S = self._group_significance(z, w, self.sb_start)
+        G = self._group_significance(z, w, self.g_start)
+        prev_s, prev_g = (self.stage_m[j - 1]["sub"] if (j - 1) in self.stage_m else
+                          (np.zeros((1, S.shape[1]), np.float32), np.zeros((1, G.shape[1]), np.float32)))
+        nxt_s, nxt_g = self._next_rows(j + 1)
+        scale_s = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(S))), 1.0), 4.0)
+        scale_g = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(G))), 1.0), 4.0)
+        es = np.concatenate([prev_s[-1:], S, nxt_s[:1]], axis=0) / scale_s
+        Sn = es[1:-1]
+        anchor = (Sn >= self.s.impulse_sigma) & (es[:-2] <= 0.3 * Sn) & (es[2:] <= 0.3 * Sn)
+        cells = np.zeros((n, self.n_chan), dtype=bool)
+        rows = list(np.flatnonzero(anchor.any(axis=1)))
+        carry = self.carry_anchor            # an anchor in the last step of the previous block
+        self.carry_anchor = bool(rows) and rows[-1] == n - 1
+        if rows or carry:
+            pg = prev_g[-2:] if prev_g.shape[0] >= 2 else np.concatenate([np.zeros_like(prev_g[:1]), prev_g[-1:]])
+            eg = np.concatenate([pg, G, nxt_g[:2]], axis=0) / scale_g            # rows -2 .. n+1
+            rr, bb = np.nonzero(anchor)
+            cells |= anchor[:, self.sb_id]
+            if len(rr):
+                lit = np.add.reduceat(w.astype(np.float32), self.sb_start, axis=1)[rr, bb]
+                exs = np.add.reduceat(np.where(w, excess, 0.0), self.sb_start, axis=1)[rr, bb]
+                self._add_impulses(j * self.R + rr, bb, Sn[rr, bb], np.where(lit > 0, exs / np.maximum(lit, 1), 0.0))
+            # anchors at rows r = -1 (carried) .. n-1; eg row index of step r is r + 2
+            pk = np.maximum(eg[1:n + 2], eg[2:n + 3])          # the anchor's step and the next
+            short = (pk >= 0.5 * self.s.impulse_sigma) & (eg[0:n + 1] <= 0.3 * pk) & (eg[3:n + 4] <= 0.3 * pk)
+            is_anchor = np.zeros(n + 1, dtype=bool)
+            is_anchor[0] = carry
+            is_anchor[np.asarray(rows, dtype=np.int64) + 1] = True
+            short &= is_anchor[:, None]
+            gcells = short[:, self.groups]                                     # (n + 1, C): rows -1 .. n-1
+            cells |= gcells[1:] | gcells[:-1]                                # the anchor's step and the next
+        return cells & w, (S, G)
+
+    def _next_rows(self, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """Group significances of the first two rows of block k from its raw power (the
+        rows after this block, for the impulse test); zeros at the end of the segment."""
+        zs = (np.zeros((2, len(self.sb_start)), np.float32), np.zeros((2, len(self.g_start)), np.float32))
+        if k not in self.blocks or k not in self.fast:
+            return zs
+        b = self.blocks[k]
+        m = min(2, b.power.shape[0])
+        here, sig_c = self.fast[k]
+        prev = self.fast[k - 1][0] if (k - 1) in self.fast else here
+        prev = np.where(np.isfinite(prev), prev, here)
+        nxt = self.fast[k + 1][0] if (k + 1) in self.fast else here
+        nxt = np.where(np.isfinite(nxt), nxt, here)
+        base = bg.interpolate_blocks(prev, here, nxt, self.R, self.R)[:m]
+        good = ((b.flags[:m] & BAD_FLAGS) == 0) & np.isfinite(b.power[:m]) & np.isfinite(base)
+        good &= ~(self._static(k, m) | self.chan_mask[k][None, :])
+        sigma = np.where(np.isfinite(sig_c) & (sig_c > 0), sig_c, np.inf)
+        z = np.where(good, (b.power[:m] - base) / sigma, 0.0)
+        out_s = self._group_significance(z, good, self.sb_start)
+        out_g = self._group_significance(z, good, self.g_start)
+        if m < 2:
+            out_s = np.concatenate([out_s, zs[0][:1]]); out_g = np.concatenate([out_g, zs[1][:1]])
+        return out_s, out_g
 
     # -- stage S: smoothing, hysteresis, components for one block -------------------
     def _stage_s(self, j: int) -> list[Component]:
@@ -716,9 +842,11 @@ class _Segment:
         return out
 
     # -- features ----------------------------------------------------------------------
-    def features(self, kind: str, c: Component) -> dict | None:
+    def features(self, kind: str, c) -> dict | None:
         if kind == "fine":
             return self._fine_features(c)
+        if kind == "impulse":
+            return self._impulse_features(c)
         return self._slow_features(c, 1 if kind == "slow+" else -1)
 
     def band_mhz(self) -> float:
@@ -767,6 +895,23 @@ class _Segment:
             "sk_fraction": float(np.mean(c.values["sk"] > 0)) if self.has_sk else None,
             "bursty": False, **d,
         }
+
+    def _impulse_features(self, st: dict) -> dict:
+        def t_of(row, sb):
+            return self.t0 + row * self.cadence + float(self.offsets[self.sb_start[sb]])
+
+        start, end = t_of(st["first"], st["first_sb"]), t_of(st["last"], st["last_sb"]) + self.cadence
+        fmin = float(self.f_mhz[self.sb_start[st["sb_lo"]]] - self.chan_mhz / 2)
+        fmax = float(self.f_mhz[self.sb_stop[st["sb_hi"]] - 1] + self.chan_mhz / 2)
+        db = st["peak_db"]
+        return {"path": "impulse", "sign": 1, "start": start, "end": end,
+                "peak": t_of(st["peak_row"], st["peak_sb"]) + self.cadence / 2, "fmin": fmin, "fmax": fmax,
+                "fc_mhz": 0.5 * (fmin + fmax), "peak_excess_db": db, "snr": st["peak"],
+                "integrated_excess": float((10 ** (db / 10) - 1) * self.cadence * (fmax - fmin)),
+                "run_s": self.cadence, "span_s": end - start, "bandwidth_mhz": fmax - fmin,
+                "inst_bw_mhz": fmax - fmin, "full_rows": 1.0, "n_rows": len(st["rows"]),
+                "n_impulses": st["n"], "sk_fraction": None, "bursty": False, "drift": None, "drift_err": None,
+                "dtdf": 0.0, "dtdf_err": math.inf, "resolved": False, "spread_s": 0.0, "n_bins": 0}
 
     def _slow_features(self, c: Component, sign: int) -> dict | None:
         rows, cols = c.rows, c.cols
