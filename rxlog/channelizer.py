@@ -54,6 +54,8 @@ from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED, DynamicSpectrum, channel_gr
 WINDOWS = ("hann", "hamming", "blackman", "blackmanharris", "boxcar")
 BATCH_FRAMES = 32          # frames per FFT batch: ~256 KiB of complex64 at 1024 points, stays in L2 cache
 MAX_GAP_FILL_ROWS = 600    # a gap up to this many rows is filled with flagged rows; longer ones split the output
+RUN_BREAK_S = 1e-4         # a block this far from where the count says is not contiguous: a new run
+REANCHOR_S = 1e-5          # a block this far off the count re-anchors frame times (clock steering)
 MIN_ROW_FILL = 0.5         # a row with less than this fraction of its frames is a gap (NaN, FLAG_GAP)
 
 _DTYPE_FORMAT = {np.dtype(np.uint8): "cu8", np.dtype(np.int8): "ci8", np.dtype("<i2"): "ci16_le",
@@ -286,8 +288,9 @@ class Channelizer:
     # -- bookkeeping of a contiguous run of samples
     def _reset_run(self):
         self._res = None                 # leftover components (< one frame past the last frame start)
-        self._res_t0 = 0.0
-        self._frame_no = 0               # frames since the run began (for SK tiling and ring groups)
+        self._run_n = 0                  # samples of the run so far
+        self._anchor = None              # (POSIX time, run sample index) that frame times count from
+        self._frame_no = 0               # frames since the run began (frame j starts at sample j * hop)
         self._ring_carry = None
 
     def channel_map(self, center_hz: float, rate_hz: float, allowed: np.ndarray | None = None) -> ChannelMap:
@@ -380,24 +383,29 @@ class Channelizer:
             self._meta = dict(meta or {})
             self._reset_run()
             self._start_ring(center_hz, rate_hz, segment)
-        elif dropped_before or (self._res is not None and (
-                self._res.dtype != comps.dtype
-                or abs(t0 - (self._res_t0 + self._res.size / 2 / rate_hz)) > 1e-4)):
+        elif dropped_before or (self._res is not None and self._res.dtype != comps.dtype) or (
+                self._anchor is not None and abs(t0 - self._time_of(self._run_n, rate_hz)) > RUN_BREAK_S):
             self._reset_run()            # not contiguous: frames start afresh at t0
+        # Frame times count whole samples from an anchor block, so block times' float rounding
+        # (float64 POSIX seconds resolve ~0.24 us, half a sample at 2.4 MS/s) cannot move a
+        # frame across a row boundary; a block more than REANCHOR_S off that count (the clock
+        # discipline steering) becomes the new anchor.
+        if self._anchor is None or abs(t0 - self._time_of(self._run_n, rate_hz)) > REANCHOR_S:
+            self._anchor = (float(t0), self._run_n)
         if self._res is not None and self._res.size:
             comps = np.concatenate([self._res, comps])
-            t_join = self._res_t0
-        else:
-            t_join = float(t0)
         n_samp = comps.size // 2
+        self._run_n += n_samp - (0 if self._res is None else self._res.size // 2)
         n, hop = self.fft_size, self.hop
         n_frames = 0 if n_samp < n else (n_samp - n) // hop + 1
         if n_frames:
-            self._process(comps, fmt, n_frames, t_join, rate_hz)
-        rest = n_frames * hop
-        self._res = np.array(comps[2 * rest:], copy=True)    # a copy: never keep a mapped file alive
-        self._res_t0 = t_join + rest / rate_hz
+            self._process(comps, fmt, n_frames, rate_hz)
+        self._res = np.array(comps[2 * n_frames * hop:], copy=True)    # a copy: never keep a mapped file alive
         return self._emit()
+
+    def _time_of(self, run_index, rate_hz):
+        t, i = self._anchor
+        return t + (run_index - i) / rate_hz
 
     def flush(self) -> list[DynamicSpectrum]:
         """Finish the row in progress (however few frames it has) and return what is left."""
@@ -405,16 +413,16 @@ class Channelizer:
         self._reset_run()
         return self._emit()
 
-    def _row_of(self, t_join: float, k: np.ndarray, rate_hz: float) -> np.ndarray:
-        # half a sample of slack, so float rounding of block times cannot move a frame that
-        # starts exactly on a row boundary (float64 POSIX seconds resolve ~0.24 us)
-        ref = math.floor(t_join / self.cadence_s)
-        rel = (t_join - ref * self.cadence_s) + (k * self.hop + 0.5) / rate_hz
+    def _row_of(self, frames: np.ndarray, rate_hz: float) -> np.ndarray:
+        """Row of each run frame: the row its first sample (plus half a sample) falls in."""
+        t, i = self._anchor
+        ref = math.floor(t / self.cadence_s)
+        rel = (t - ref * self.cadence_s) + (frames * self.hop - i + 0.5) / rate_hz
         return ref + np.floor(rel / self.cadence_s).astype(np.int64)
 
-    def _process(self, comps, fmt, n_frames, t_join, rate_hz):
+    def _process(self, comps, fmt, n_frames, rate_hz):
         m = self.channel_map(self._key[1], rate_hz)
-        rows = self._row_of(t_join, np.arange(n_frames), rate_hz)
+        rows = self._row_of(self._frame_no + np.arange(n_frames), rate_hz)
         sk_phase = (self._frame_no + np.arange(n_frames)) % self.sk_every == 0
         for k0, p in self._batches(comps, fmt, n_frames):
             b = p.shape[0]
@@ -441,7 +449,7 @@ class Channelizer:
                     acc["k2"] += np.einsum("ij,ij->j", q, q)
                     acc["km"] += q.shape[0]
             if self.ring is not None:
-                self._ring_push(p, k0, t_join, rate_hz, m)
+                self._ring_push(p, k0, rate_hz, m)
         self._frame_no += n_frames
 
     def _start_row(self, row: int):
@@ -523,7 +531,7 @@ class Channelizer:
         self.ring = Ring(self.ring_s, self.ring_frames(rate_hz) * self.hop / rate_hz, self.freq_hz, m.chans,
                          segment, {"center_hz": center_hz, "rate_hz": rate_hz})
 
-    def _ring_push(self, p, k0, t_join, rate_hz, m: ChannelMap):
+    def _ring_push(self, p, k0, rate_hz, m: ChannelMap):
         g_len = self.ring_frames(rate_hz)
         fno = self._frame_no + k0 + np.arange(p.shape[0])
         gid = fno // g_len
@@ -531,7 +539,7 @@ class Channelizer:
         starts = np.r_[0, cuts]
         sums = np.add.reduceat(p, starts, axis=0, dtype=np.float64)
         counts = np.diff(np.r_[starts, p.shape[0]])
-        times = t_join + (k0 + starts) * self.hop / rate_hz
+        times = self._time_of((self._frame_no + k0 + starts) * self.hop, rate_hz)
         carry = self._ring_carry
         if carry is not None and carry[0] == gid[0]:
             sums[0] += carry[1]
