@@ -4,9 +4,10 @@ A 2.4 MS/s receiver sees 2.4 MHz, of which the middle ``usable_fraction`` is fla
 enough to use (the RTL2832's decimation filter rolls off toward the edges) and a few kHz
 around the centre carry the DC spike. The plan steps through tunings, one dwell each per
 sweep cycle, and stitches the usable middle of every window into one row on the
-station's channel grid. Each channel is taken from the one tuning that gives it the most
-FFT bins (ties: the tuning whose centre is nearest), so a tone anywhere in the band
-lands in exactly one channel of one window.
+station's channel grid. Each channel is taken from one tuning only: the nearest window
+centre among those that give the channel its full share of FFT bins (so overlaps split
+at the midpoint, and a channel that a window's DC cut thins out comes from a neighbour
+when one reaches it), so a tone anywhere in the band lands in one channel of one window.
 
 Timing. A cycle of ``cycle_s`` starts on the UTC grid of multiples of ``cycle_s`` and is
 split into equal slices, one per tuning. In its slice a tuning is set, whole buffers are
@@ -152,14 +153,18 @@ def plan_for(grid: np.ndarray, rate_hz: float, ch: Channelizer, *, mode: str = "
 
 
 def _assign(grid, tunings, rate_hz, ch: Channelizer) -> np.ndarray:
-    """Tuning index per channel: the one giving it most FFT bins, then the nearest centre."""
+    """Tuning index per channel: the nearest window centre among those giving the channel its
+    full share of FFT bins; where none does (DC cut, window edge), the one giving most bins."""
     counts = np.zeros((tunings.size, grid.size))
     for j, f in enumerate(tunings):
         m = ch.channel_map(float(f), rate_hz)
         counts[j, m.chans] = m.counts
+    df = float(grid[1] - grid[0]) if grid.size > 1 else rate_hz
+    full = counts >= max(1, math.floor(df / (rate_hz / ch.fft_size) + 1e-9))
     dist = np.abs(grid[None, :] - tunings[:, None])
-    score = counts - dist / (dist.max() + 1.0)       # bins first; distance only breaks ties
-    best = np.argmax(score, axis=0)
+    near_full = np.argmin(np.where(full, dist, np.inf), axis=0)
+    most = np.argmax(counts - dist / (dist.max() + 1.0), axis=0)     # bins first, distance breaks ties
+    best = np.where(full.any(axis=0), near_full, most)
     best[counts.max(axis=0) == 0] = -1
     return best
 
