@@ -31,13 +31,14 @@ Definitions and sources
   angle Sun-Earth-Jupiter. Distance and light time: Earth centre to Jupiter at the
   light-departure time.
 
-Speed: ERFA is evaluated on a grid of nodes every ``NODE_STEP_S`` seconds around the
-requested times, then interpolated (4-point Lagrange). Quantities that turn once a day
-(the local direction vectors of Jupiter and the Sun) are interpolated as vectors; the
-error bound is 3/128 (omega h)^4 rad, 0.3 arcsec for h = 20 min. Fast angles are not
-interpolated at all: CML is W(t - tau) - theta with W linear in time and only the slow
-tau and theta interpolated, Io phase likewise. Sparse sets of times (fewer than the
-nodes they would need) are computed directly.
+Speed: ERFA is evaluated on a grid of nodes every ``NODE_STEP_S`` (12 h) around the
+requested times, and only the slow, site-independent quantities are interpolated from
+them (4-point Lagrange): geocentric apparent directions of Jupiter and the Sun in CIRS,
+light time, distances, the Earth's jovicentric longitudes and DE. They change by at most
+~1 deg/day, so the interpolation error is below 0.001 arcsec. Everything fast is
+computed at each instant: the Earth rotation angle (from UT1) and the site's parallax
+for alt/az, W(t - tau) for CML, Io's longitude for the Io phase. Sparse sets of times
+(fewer than the nodes they would need) are computed directly.
 
 astropy is imported on first use, and its IERS settings (no download, no age limit,
 degraded accuracy past the table allowed) are applied before rxlog touches anything
@@ -75,7 +76,7 @@ B1950_JD = 2433282.4235             # Besselian epoch B1950.0 (Lieske 1979)
 T_MIN_UNIX = 63_072_000.0           # 1972-01-01T00:00:00Z
 T_MAX_UNIX = 4_102_444_800.0        # 2100-01-01T00:00:00Z
 
-NODE_STEP_S = 1200.0                # ERFA node spacing for interpolation (20 min)
+NODE_STEP_S = 43200.0               # ERFA node spacing for interpolation (12 h)
 
 # IAU WGCCRE 2015, Jupiter (Archinal et al. 2018, Table 1); T in Julian centuries and
 # d in days from J2000 TDB. W is System III (1965).
@@ -246,34 +247,54 @@ def _warn_once(key: str, message: str) -> None:
 
 @functools.cache
 def _tables():
-    """IERS offline settings, then the leap-second and UT1 tables as numpy arrays."""
+    """IERS offline settings, then the bundled leap-second and UT1 tables as numpy arrays."""
     from astropy.utils import iers
 
     iers.conf.auto_download = False
     iers.conf.auto_max_age = None
     iers.conf.iers_degraded_accuracy = "warn"
+    import astropy_iers_data
     import erfa
-    from astropy.time import update_leap_seconds
 
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # a stale bundled file is reported below instead
-        update_leap_seconds()            # bring ERFA's leap-second table up to the bundled one
-        eop = iers.IERS_A.open(iers.IERS_A_FILE)  # bundled finals2000A (IERS Bulletins A and B)
-    leap = erfa.leap_seconds.get()
-    starts = np.array([f"{y:04d}-{m:02d}-01" for y, m in zip(leap["year"], leap["month"])],
-                      dtype="datetime64[s]")
-    leap_unix = starts.astype(np.float64)
-    leap_tai_utc = np.asarray(leap["tai_utc"], dtype=np.float64)
-    expires_unix = np.datetime64(erfa.leap_seconds.expires, "s").astype(np.float64)
-    mjd = np.asarray(eop["MJD"], dtype=np.float64)
-    ut1_utc = np.asarray(eop["UT1_UTC"], dtype=np.float64)
-    ok = np.isfinite(ut1_utc)
-    mjd, ut1_utc = mjd[ok], ut1_utc[ok]
-    eop_unix = (mjd - 40587.0) * 86400.0
+    leap_unix, leap_tai_utc, expires_unix = _read_leap_seconds(astropy_iers_data.IERS_LEAP_SECOND_FILE)
+    eop_unix, ut1_utc = _read_finals(astropy_iers_data.IERS_A_FILE)
     # UT1-TAI is continuous across leap seconds, UT1-UTC is not: interpolate the former.
     ut1_tai = ut1_utc - leap_tai_utc[np.searchsorted(leap_unix, eop_unix, side="right") - 1]
     return {"erfa": erfa, "leap_unix": leap_unix, "leap_tai_utc": leap_tai_utc,
-            "leap_expires_unix": float(expires_unix), "eop_unix": eop_unix, "ut1_tai": ut1_tai}
+            "leap_expires_unix": expires_unix, "eop_unix": eop_unix, "ut1_tai": ut1_tai}
+
+
+def _read_leap_seconds(path) -> tuple[np.ndarray, np.ndarray, float]:
+    """IERS Leap_Second.dat: rows 'MJD day month year TAI-UTC' and '#  File expires on D Month YYYY'."""
+    import datetime as dt
+
+    mjd, tai_utc, expires = [], [], None
+    with open(path, encoding="ascii") as f:
+        for line in f:
+            if line.startswith("#"):
+                if "expires on" in line:
+                    when = dt.datetime.strptime(line.split("expires on", 1)[1].strip(), "%d %B %Y")
+                    expires = when.replace(tzinfo=dt.timezone.utc).timestamp()
+            elif line.strip():
+                fields = line.split()
+                mjd.append(float(fields[0]))
+                tai_utc.append(float(fields[4]))
+    start = (np.array(mjd) - 40587.0) * 86400.0
+    return start, np.array(tai_utc), float(expires if expires is not None else start[-1])
+
+
+def _read_finals(path) -> tuple[np.ndarray, np.ndarray]:
+    """IERS finals2000A.all (fixed columns, IERS ReadMe.finals2000A): MJD in columns 8-15,
+    UT1-UTC from Bulletin A in 59-68 and from Bulletin B in 155-165; B where given."""
+    mjd, ut1 = [], []
+    with open(path, encoding="ascii") as f:
+        for line in f:
+            value = line[154:165].strip() or line[58:68].strip()
+            day = line[7:15].strip()
+            if day and value:
+                mjd.append(float(day))
+                ut1.append(float(value))
+    return (np.array(mjd) - 40587.0) * 86400.0, np.array(ut1)
 
 
 def _tai_minus_utc(t: np.ndarray, tb) -> np.ndarray:
@@ -368,51 +389,44 @@ def _tt_days(t: np.ndarray, tai_utc: np.ndarray) -> np.ndarray:
     return (t - J2000_UNIX + tai_utc + TT_MINUS_TAI_S) / 86400.0
 
 
-def _exact(t: np.ndarray, lat_deg: float, lon_deg: float, elev_m: float) -> dict[str, np.ndarray]:
-    """The slow and the once-a-day quantities at times t, straight from ERFA.
+def _geocentric(t: np.ndarray) -> dict[str, np.ndarray]:
+    """The slowly changing, site-independent quantities at times t, straight from ERFA.
 
     Returns tau (light time, s), dist_au, theta (rad, Earth's longitude seen from
     Jupiter, in the IAU equator from its ICRF node), lam_e5 (rad, the same in E5's
-    frame), de (rad), elong (rad), tdb_tt (s) and the local east/north/up unit
-    vectors jup_enu and sun_enu (n, 3).
+    frame), de (rad), elong (rad), tdb_tt (s), and for Jupiter and the Sun the
+    geocentric apparent direction in CIRS (jup_cirs, sun_cirs: unit vectors, (n, 3))
+    and the Sun's distance sun_dist_au.
     """
     tb = _tables()
     erfa = tb["erfa"]
-    tai_utc = _tai_minus_utc(t, tb)
-    dut1 = _ut1_minus_utc(t, tai_utc, tb)
-    d_tt = _tt_days(t, tai_utc)
+    d_tt = _tt_days(t, _tai_minus_utc(t, tb))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)  # "dubious year": reported by _warn_once
         tdb_tt = erfa.dtdb(J2000_JD, d_tt, 0.0, 0.0, 0.0, 0.0)
         d_tdb = d_tt + tdb_tt / 86400.0
         pvh, pvb = erfa.epv00(J2000_JD, d_tdb)
-        # CIP X, Y and CIO locator s by IAU 2000B (~1 mas), Earth rotation angle from UT1;
-        # polar motion and s' (< 0.5 arcsec) left out.
+        # CIP X, Y and CIO locator s by IAU 2000B (~1 mas)
         x, y, s = erfa.xys00b(J2000_JD, d_tt)
-        era = erfa.era00(J2000_JD, (t - J2000_UNIX + dut1) / 86400.0)
-        astrom = erfa.apco(J2000_JD, d_tdb, pvb, pvh["p"], x, y, s, era, math.radians(lon_deg),
-                           math.radians(lat_deg), elev_m, 0.0, 0.0, 0.0, 0.0, 0.0)
+        astrom = erfa.apci(J2000_JD, d_tdb, pvb, pvh["p"], x, y, s)
     earth = pvb["p"]
     # The Sun's barycentric motion (~13 m/s) over a light time moves it < 40 km (< 0.01
     # arcsec as seen from here), so the Sun is taken at t for every light path.
     sun = pvb["p"] - pvh["p"]
-    observer = astrom["eb"]
 
     tau = np.zeros_like(d_tdb)
     for _ in range(3):  # Jupiter's light time from the geocentre; converges far below 1 us
-        jup_geo = erfa.plan94(J2000_JD, d_tdb - tau / 86400.0, 5)["p"] + sun
-        tau = np.linalg.norm(jup_geo - earth, axis=-1) * AU_LIGHT_S
-    local = {}
+        jup = erfa.plan94(J2000_JD, d_tdb - tau / 86400.0, 5)["p"] + sun
+        tau = np.linalg.norm(jup - earth, axis=-1) * AU_LIGHT_S
+    cirs = {}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
-        # topocentric light time differs by < 21 ms: Jupiter moves < 0.3 km meanwhile
-        for name, pos in (("jup", jup_geo), ("sun", sun)):
-            ra, dec = erfa.c2s(pos - observer)
-            ri, di = erfa.atciqz(ra, dec, astrom)          # light deflection, aberration, bias-precession-nutation
-            az, zd, _h, _d, _r = erfa.atioq(ri, di, astrom)  # Earth rotation, diurnal aberration; no refraction
-            local[name] = np.stack([np.sin(zd) * np.sin(az), np.sin(zd) * np.cos(az), np.cos(zd)], axis=-1)
+        for name, pos in (("jup", jup), ("sun", sun)):
+            ra, dec = erfa.c2s(pos - earth)
+            ri, di = erfa.atciqz(ra, dec, astrom)   # light deflection, aberration, bias-precession-nutation
+            cirs[name] = erfa.s2c(ri, di)
 
-    r = jup_geo - earth
+    r = jup - earth
     dist = np.linalg.norm(r, axis=-1)
     e_hat = -r / dist[:, None]                  # Jupiter -> Earth
     pole = _jupiter_pole((d_tdb - tau / 86400.0) / 36525.0)
@@ -425,8 +439,35 @@ def _exact(t: np.ndarray, lat_deg: float, lon_deg: float, elev_m: float) -> dict
     lam_e5 = math.radians(E5_PSI) + np.arctan2(v[:, 1], v[:, 0])
 
     elong = np.arccos(np.clip(_dot(_unit(sun - earth), r / dist[:, None]), -1.0, 1.0))
-    return {"tau": tau, "dist_au": dist, "theta": theta, "lam_e5": lam_e5, "de": de,
-            "elong": elong, "tdb_tt": tdb_tt, "jup_enu": local["jup"], "sun_enu": local["sun"]}
+    return {"tau": tau, "dist_au": dist, "theta": theta, "lam_e5": lam_e5, "de": de, "elong": elong,
+            "tdb_tt": tdb_tt, "jup_cirs": cirs["jup"], "sun_cirs": cirs["sun"],
+            "sun_dist_au": np.linalg.norm(sun - earth, axis=-1)}
+
+
+def _local_enu(t: np.ndarray, cirs: np.ndarray, dist_au: np.ndarray, lat_deg: float, lon_deg: float,
+               elev_m: float) -> np.ndarray:
+    """East/north/up unit vectors at the site of a body at geocentric CIRS direction and distance.
+
+    CIRS -> terrestrial by the Earth rotation angle (IERS 2010 Conventions, erfa.era00,
+    from UT1), then the site's own position is subtracted (topocentric parallax: up to
+    8.8 arcsec for the Sun). Polar motion, s' and diurnal aberration (each < 0.5 arcsec)
+    are left out.
+    """
+    tb = _tables()
+    erfa = tb["erfa"]
+    dut1 = _ut1_minus_utc(t, _tai_minus_utc(t, tb), tb)
+    era = erfa.era00(J2000_JD, (t - J2000_UNIX + dut1) / 86400.0)
+    c, s = np.cos(era), np.sin(era)
+    x = c * cirs[:, 0] + s * cirs[:, 1]
+    y = -s * cirs[:, 0] + c * cirs[:, 1]
+    lat, lon = math.radians(lat_deg), math.radians(lon_deg)
+    site = erfa.gd2gc(1, lon, lat, elev_m) / AU_M    # WGS84, au
+    r = np.stack([x, y, cirs[:, 2]], axis=-1) * dist_au[:, None] - site
+    sl, cl, sp, cp = math.sin(lon), math.cos(lon), math.sin(lat), math.cos(lat)
+    enu = np.stack([-sl * r[:, 0] + cl * r[:, 1],
+                    -sp * cl * r[:, 0] - sp * sl * r[:, 1] + cp * r[:, 2],
+                    cp * cl * r[:, 0] + cp * sl * r[:, 1] + sp * r[:, 2]], axis=-1)
+    return _unit(enu)
 
 
 # --- interpolation from nodes --------------------------------------------------------
@@ -434,14 +475,14 @@ def _exact(t: np.ndarray, lat_deg: float, lon_deg: float, elev_m: float) -> dict
 _ANGLES = ("theta", "lam_e5")
 
 
-def _interpolated(t: np.ndarray, lat_deg, lon_deg, elev_m, step: float) -> dict[str, np.ndarray]:
-    """``_exact`` quantities at t, from nodes every ``step`` s (4-point Lagrange)."""
+def _interpolated(t: np.ndarray, step: float) -> dict[str, np.ndarray]:
+    """``_geocentric`` quantities at t, from nodes every ``step`` s (4-point Lagrange)."""
     k0 = np.floor(t / step)
     s = t / step - k0
     nodes = np.unique(np.concatenate([k0 - 1, k0, k0 + 1, k0 + 2]))
     if nodes.size >= t.size:
-        return _exact(t, lat_deg, lon_deg, elev_m)
-    at_nodes = _exact(nodes * step, lat_deg, lon_deg, elev_m)
+        return _geocentric(t)
+    at_nodes = _geocentric(nodes * step)
     i = np.searchsorted(nodes, k0 - 1)
     w = np.stack([-s * (s - 1) * (s - 2) / 6.0, (s + 1) * (s - 1) * (s - 2) / 2.0,
                   -(s + 1) * s * (s - 2) / 2.0, (s + 1) * s * (s - 1) / 6.0], axis=-1)
@@ -528,7 +569,7 @@ def _tags_flat(t, lat, lon, elev, regions, refraction, pressure_hpa, temperature
     if t.size == 0:
         empty = np.zeros(0)
         return {k: (np.zeros(0, dtype="<U4") if k == "source_region" else empty) for k in TAG_KEYS}
-    q = _interpolated(t, lat, lon, elev, NODE_STEP_S)
+    q = _interpolated(t, NODE_STEP_S)
     tb = _tables()
     d_tdb = _tt_days(t, _tai_minus_utc(t, tb)) + q["tdb_tt"] / 86400.0
     d_ret = d_tdb - q["tau"] / 86400.0          # light-departure time, TDB days from J2000
@@ -538,8 +579,8 @@ def _tags_flat(t, lat, lon, elev, regions, refraction, pressure_hpa, temperature
     l2 = EUROPA_L0 + np.mod(EUROPA_RATE * t5, 360.0)
     io_lon = l1 + IO_FORCED_TERM * np.sin(np.radians(2.0 * (l1 - l2)))
     io_phase = np.mod(io_lon - np.degrees(q["lam_e5"]) - 180.0, 360.0)
-    j_alt, j_az = _alt_az(q["jup_enu"])
-    s_alt, s_az = _alt_az(q["sun_enu"])
+    j_alt, j_az = _alt_az(_local_enu(t, q["jup_cirs"], q["dist_au"], lat, lon, elev))
+    s_alt, s_az = _alt_az(_local_enu(t, q["sun_cirs"], q["sun_dist_au"], lat, lon, elev))
     if refraction:
         j_alt = j_alt + refraction_deg(j_alt, pressure_hpa, temperature_c)
         s_alt = s_alt + refraction_deg(s_alt, pressure_hpa, temperature_c)
