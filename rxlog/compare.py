@@ -38,7 +38,7 @@ from pathlib import Path
 import numpy as np
 
 from rxlog.errors import RxlogError
-from rxlog.exchange import CANONICAL_TIME, EventList, _write_atomic, read_event_list
+from rxlog.exchange import EventList, _write_atomic, read_event_list
 from rxlog.store import CLASSES
 from rxlog.timeutil import iso, parse_iso
 
@@ -231,9 +231,11 @@ def _arrays(lists: list[EventList]) -> _Events:
 def _times(evs: list[dict], key: str) -> np.ndarray:
     """ISO 8601 UTC strings as the importer leaves them ('...T..:..:..mmmZ') -> POSIX seconds."""
     text = [e[key] for e in evs]
-    if all(CANONICAL_TIME.fullmatch(t) for t in text):
-        ms = np.array([t[:-1] for t in text], dtype="datetime64[ms]").astype(np.int64)
-        return ms / 1000.0
+    if all(len(t) == 24 and t[-1] == "Z" for t in text):
+        try:  # numpy's ISO 8601 parser, for the 'YYYY-MM-DDTHH:MM:SS.mmm' rxlog writes
+            return np.array([t[:-1] for t in text], dtype="datetime64[ms]").astype(np.int64) / 1000.0
+        except ValueError:
+            pass
     return np.array([parse_iso(t) for t in text], dtype=float)
 
 
@@ -376,15 +378,16 @@ def _group(n_events: int, station, ia, ib, cost):
             x = parent[x]
         return x
 
-    for k in np.argsort(cost, kind="stable"):
-        ra, rb = find(int(ia[k])), find(int(ib[k]))
+    order = np.argsort(cost, kind="stable")
+    for a, b in zip(ia[order].tolist(), ib[order].tolist()):
+        ra, rb = find(a), find(b)
         if ra == rb or mask[ra] & mask[rb]:
             continue
         if rb < ra:
             ra, rb = rb, ra
         parent[rb] = ra
         mask[ra] |= mask[rb]
-    roots = np.array([find(i) for i in range(n_events)], dtype=np.int64)
+    roots = np.fromiter((find(i) for i in range(n_events)), dtype=np.int64, count=n_events)
     _, group = np.unique(roots, return_inverse=True)
     return group
 
@@ -823,25 +826,29 @@ ROW_COLUMNS = ("match_id", "n_stations", "stations", "station", "event_id", "cla
 
 
 def _rows(E: _Events, grp, n_at, names, used, resid) -> list[dict]:
-    order = np.lexsort((E.station, grp))
+    """One row per event, groups numbered by time, members of a group together."""
     first_peak = np.full(int(grp.max()) + 1 if len(grp) else 0, np.inf)
     np.minimum.at(first_peak, grp, E.peak)
-    # Number groups by time.
     rank = np.empty(len(first_peak), dtype=np.int64)
     rank[np.argsort(first_peak, kind="stable")] = np.arange(len(first_peak))
+    g_rank = rank[grp].tolist()
+    station = E.station.tolist()
     members: dict[int, list[str]] = {}
-    for i in order:
-        members.setdefault(int(grp[i]), []).append(names[int(E.station[i])])
+    for g, s in zip(g_rank, station):
+        members.setdefault(g, []).append(names[s])
+    joined = {g: "+".join(sorted(m)) for g, m in members.items()}
+    n_at_l, used_l = n_at.tolist(), used.tolist()
+    resid_l = [None if not math.isfinite(r) else round(r, 4) for r in resid.tolist()]
+    cls_l = E.cls.tolist()
     rows = []
-    for i in sorted(range(len(E.ev)), key=lambda i: (rank[grp[i]], E.station[i])):
+    for i in np.lexsort((E.station, rank[grp])).tolist():
         e = E.ev[i]
         rows.append({
-            "match_id": f"M{rank[grp[i]] + 1:06d}", "n_stations": int(n_at[i]),
-            "stations": "+".join(sorted(members[int(grp[i])])), "station": names[int(E.station[i])],
-            "event_id": e["event_id"], "class": CLASSES[int(E.cls[i])], "start_utc": e["start_utc"],
-            "peak_utc": e["peak_utc"], "end_utc": e["end_utc"], "fmin_mhz": e["fmin_mhz"],
-            "fmax_mhz": e["fmax_mhz"], "snr": e.get("snr"), "used_for_clock": int(used[i]),
-            "clock_residual_s": None if not np.isfinite(resid[i]) else round(float(resid[i]), 4)})
+            "match_id": f"M{g_rank[i] + 1:06d}", "n_stations": n_at_l[i], "stations": joined[g_rank[i]],
+            "station": names[station[i]], "event_id": e["event_id"], "class": CLASSES[cls_l[i]],
+            "start_utc": e["start_utc"], "peak_utc": e["peak_utc"], "end_utc": e["end_utc"],
+            "fmin_mhz": e["fmin_mhz"], "fmax_mhz": e["fmax_mhz"], "snr": e.get("snr"),
+            "used_for_clock": int(used_l[i]), "clock_residual_s": resid_l[i]})
     return rows
 
 
@@ -850,8 +857,7 @@ def _csv_text(columns, rows) -> bytes:
     w = csv.writer(out, lineterminator="\n")
     w.writerow(columns)
     for r in rows:
-        w.writerow(["" if r.get(c) is None else (repr(r[c]) if isinstance(r[c], float) else r[c])
-                    for c in columns])
+        w.writerow(["" if r.get(c) is None else r[c] for c in columns])  # str(float) is its repr
     return out.getvalue().encode("utf-8")
 
 
