@@ -40,7 +40,7 @@ import numpy as np
 from rxlog.errors import RxlogError
 from rxlog.exchange import EventList, _write_atomic, read_event_list
 from rxlog.store import CLASSES
-from rxlog.timeutil import iso, parse_iso
+from rxlog.timeutil import parse_iso
 
 CLS = {c: i for i, c in enumerate(CLASSES)}
 N_CLS = len(CLASSES)
