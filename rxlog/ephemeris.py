@@ -85,17 +85,21 @@ JUP_POLE_DEC0, JUP_POLE_DEC1 = 64.495303, 0.002413
 JUP_W0, JUP_W_RATE = 284.95, 870.5360000
 
 # Lieske E5 mean longitudes of Io and Europa, degrees and degrees/day from E5_EPOCH_JD
-# (Meeus, Astronomical Algorithms 2nd ed., ch. 44, high-accuracy method).
+# (Meeus, Astronomical Algorithms 2nd ed., ch. 44, high-accuracy method). These E5
+# values are from memory; the tests check the result against PyEphem and Meeus's
+# low-accuracy method (agreement ~0.1 deg).
 IO_L0, IO_RATE = 106.07719, 203.488955790
 EUROPA_L0, EUROPA_RATE = 175.73161, 101.374724735
 IO_FORCED_TERM = 0.47259            # deg, coefficient of sin 2(l1 - l2)
-# E5's frame (same source): node of Jupiter's equator on its orbit, counted as a broken
-# longitude from the B1950 equinox, and the equator's inclination to the orbit.
+# E5's frame (same source, from memory): node of Jupiter's equator on its orbit, counted
+# as a broken longitude from the B1950 equinox, and the equator's inclination to the
+# orbit. The frame's pole they give agrees with the IAU 2015 pole within 0.003 deg.
 E5_PSI, E5_I = 316.5182, 3.120262
 JUPITER_PERIOD_D = 4332.59          # sidereal period, days (mean motion 0.0830912 deg/day)
 
 # Saemundsson (1986, Sky & Telescope 72, 70), as in Meeus eq. 16.4 and NREL SPA eq. 42:
-# R = 1.02 / tan(h + 10.3/(h + 5.11)) arcmin for 1010 hPa and 10 C.
+# R = 1.02 / tan(h + 10.3/(h + 5.11)) arcmin for 1010 hPa and 10 C (from memory; the
+# tests check it against pvlib's SPA).
 REFRACTION_MIN_ALT_DEG = -1.0
 
 TAG_KEYS = ("cml3_deg", "io_phase_deg", "jupiter_alt_deg", "jupiter_az_deg", "sun_alt_deg",
@@ -325,7 +329,7 @@ def _b1950_ecliptic_to_icrs() -> np.ndarray:
     """Rotation: mean ecliptic and equinox of B1950 -> J2000 mean equator (~ICRS).
 
     Obliquity at B1950 from the IAU 1980 formula (erfa.obl80) and IAU 1976 precession
-    (Lieske et al. 1977, erfa.prec76). FK4's equinox offset and the frame bias (< 1 arcsec)
+    (Lieske et al. 1977, erfa.pmat76). FK4's equinox offset and the frame bias (< 1 arcsec)
     are ignored: they move Io's longitude origin by less than 0.0003 deg.
     """
     erfa = _tables()["erfa"]
@@ -508,7 +512,7 @@ def _check_site(lat_deg, lon_deg, elev_m) -> tuple[float, float, float]:
                          f"longitude {lon_deg!r}, elevation {elev_m!r}") from None
     if not (-90.0 <= lat <= 90.0) or not (-180.0 <= lon <= 360.0) or not (-500.0 <= elev <= 9000.0):
         raise RxlogError(f"station position: latitude {lat} (expected -90..90), longitude {lon} "
-                         f"(expected -180..180), elevation {elev} m (expected -500..9000)")
+                         f"(expected -180..360, east), elevation {elev} m (expected -500..9000)")
     return lat, lon, elev
 
 
