@@ -360,20 +360,6 @@ def running_background(power: np.ndarray, block: int = BACKGROUND_BLOCK_BINS) ->
 
 # -- summary ----------------------------------------------------------------------------
 
-def _intervals(x) -> list[tuple[float, float]]:
-    """Intervals from the ephemeris/forecast as (start, end) POSIX pairs, whatever their shape."""
-    out = []
-    for iv in x or []:
-        if isinstance(iv, dict):
-            a, b = iv.get("start", iv.get("start_unix")), iv.get("end", iv.get("end_unix"))
-        elif hasattr(iv, "start"):
-            a, b = iv.start, iv.end
-        else:
-            a, b = iv[0], iv[1]
-        out.append((float(a), float(b)))
-    return out
-
-
 def _overlap(a0, a1, b0, b1) -> float:
     return max(0.0, min(a1, b1) - max(a0, b0))
 
@@ -505,6 +491,21 @@ def _excess_limits(excess: np.ndarray) -> tuple[float, float]:
         return -1.0, 3.0
     lo, hi = np.percentile(finite, [1.0, 99.7])
     return float(min(lo, -0.5)), float(max(hi, 3.0))
+
+
+def _zoom_limits(excess, t_edges, start, end, inside_f) -> tuple[float, float]:
+    """Colour limits of a zoom from the event's own box, so a strong carrier elsewhere in
+    the window saturates instead of washing the event out."""
+    tc = 0.5 * (t_edges[:-1] + t_edges[1:])
+    inside_t = (tc >= start) & (tc <= end)
+    if not inside_t.any():
+        inside_t[np.argmin(np.abs(tc - 0.5 * (start + end)))] = True
+    box = excess[np.ix_(inside_t, inside_f)]
+    box = box[np.isfinite(box)]
+    everywhere = excess[np.isfinite(excess)]
+    lo = float(np.percentile(everywhere, 1.0)) if everywhere.size else -1.0
+    hi = float(np.percentile(box, 99.0)) if box.size else 3.0
+    return min(lo, -0.5), max(hi, 3.0)
 
 
 def plot_overview(path: Path, night: Night, data: NightData, events: list[dict], summary: dict,
@@ -641,7 +642,7 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
             ax.plot(seg_c, seg_i, color="#444444", linewidth=1.0, linestyle=(0, (4, 3)))
         handles.append(ax.plot([], [], color="#444444", linewidth=1.0, linestyle=(0, (4, 3)),
                                label="this night, Jupiter up")[0])
-    shown = set()
+    shown, labelled = set(), []
     for i, e in events:
         c, p = e.get("cml3_deg"), e.get("io_phase_deg")
         if c is None or p is None:
@@ -655,7 +656,10 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
         ax.scatter([c], [p], s=36, color=colour, edgecolors="black", linewidths=0.8, zorder=3,
                    label=None if e["class"] in shown else LABEL_NAMES[e["class"]])
         shown.add(e["class"])
-        ax.annotate(str(i + 1), (c, p), xytext=(4, 3), textcoords="offset points", fontsize=7)
+        # Numbers as on the page, where they do not pile up on each other.
+        if all(abs(c - c2) > 6 or abs(p - p2) > 6 for c2, p2 in labelled):
+            ax.annotate(str(i + 1), (c, p), xytext=(4, 3), textcoords="offset points", fontsize=7)
+            labelled.append((c, p))
     for cls in sorted(shown, key=CLASSES.index):
         handles.append(ax.scatter([], [], s=36, color=CLASS_COLOURS[cls], edgecolors="black",
                                   linewidths=0.8, label=LABEL_NAMES[cls]))
@@ -671,36 +675,48 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
     return path
 
 
+ZOOM_SPECTRUM_AXES = (0.10, 0.42, 0.76, 0.49)   # figure fraction: left, bottom, width, height
+
+
 class ZoomPlotter:
     """Draws event zooms on one reused figure.
 
-    The frame (axes, ticks, legend, colour-bar gradient) is rendered once per zoom
-    length and kept; each event restores its frame and redraws only what changes: the
-    image, the box, the light curves, the light-curve and colour-bar scales and two
-    texts. That is several times faster than a full redraw, which is what makes 500
+    The frame (axes, ticks, legend, colour bar) is rendered once per zoom length and
+    kept; each event restores its frame and redraws only what changes: the image, the
+    box, the light curves and a few texts. The light-curve and colour scales always
+    have five evenly spaced ticks, with limits chosen so those ticks fall on round
+    values; the tick marks are part of the frame and only their labels are drawn per
+    event. That is several times faster than a full redraw, which is what makes 500
     zooms a minute's work.
     """
+
+    N_TICKS = 5
 
     def __init__(self, night: Night, f_edges_mhz: np.ndarray, dpi: int = 80):
         mpl = _mpl()
         from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.cm import ScalarMappable
+        from matplotlib.colors import Normalize
         from matplotlib.figure import Figure
         from matplotlib.patches import Rectangle
+        from matplotlib.ticker import LinearLocator, NullFormatter
         import matplotlib.patheffects as pe
 
         self.night, self.dpi = night, dpi
         self.fig = Figure(figsize=(7.0, 4.4), dpi=dpi)
         self.canvas = FigureCanvasAgg(self.fig)
-        self.ax = self.fig.add_axes((0.10, 0.42, 0.76, 0.49))
+        self.ax = self.fig.add_axes(ZOOM_SPECTRUM_AXES)
         self.lc = self.fig.add_axes((0.10, 0.12, 0.76, 0.25), sharex=self.ax)
         self.cax = self.fig.add_axes((0.875, 0.42, 0.02, 0.49))
         cmap = mpl.colormaps["viridis"].with_extremes(bad="#d0d0d0")
         f0, f1 = float(f_edges_mhz[0]), float(f_edges_mhz[-1])
         self.im = self.ax.imshow(np.zeros((2, 2)), origin="lower", aspect="auto", interpolation="nearest",
                                  cmap=cmap, extent=(0, 1, f0, f1))
-        self.cb = self.fig.colorbar(self.im, cax=self.cax)
-        self.cb.set_label("excess (dB)", fontsize=8)
-        self.cax.tick_params(labelsize=7)
+        # The colour bar shows the map on 0..1; its tick labels carry each event's dB values.
+        cb = self.fig.colorbar(ScalarMappable(Normalize(0, 1), cmap), cax=self.cax)
+        cb.set_ticks(np.linspace(0, 1, self.N_TICKS))
+        self.cax.yaxis.set_major_formatter(NullFormatter())
+        self.cax.set_ylabel("excess (dB)", fontsize=8, labelpad=18)
         self.box = Rectangle((0, 0), 1, 1, facecolor="none", linewidth=1.4,
                              path_effects=[pe.Stroke(linewidth=2.8, foreground="black"), pe.Normal()])
         self.ax.add_patch(self.box)
@@ -714,27 +730,40 @@ class ZoomPlotter:
         self.lc.add_patch(self.span)
         (self.line_out,) = self.lc.plot([], [], color="#999999", linewidth=1.0, label="rest of band")
         (self.line_in,) = self.lc.plot([], [], color="#0072B2", linewidth=1.3, label="event band")
-        self.lc.set_ylabel("excess (dB)", fontsize=8)
+        self.lc.set_ylabel("excess (dB)", fontsize=8, labelpad=16)
         self.lc.tick_params(labelsize=7)
+        self.lc.yaxis.set_major_locator(LinearLocator(self.N_TICKS))
+        self.lc.yaxis.set_major_formatter(NullFormatter())
         self.lc.grid(True, color="#dddddd", linewidth=0.5)
         self.lc.legend(loc="upper right", fontsize=7, frameon=False, ncol=2)
-        # Drawn per event, in this order (grid lines under the curves, the box over the image).
-        self.dynamic = [self.im, self.box, self.cax.yaxis, self.lc.yaxis, self.span, self.line_out,
-                        self.line_in, self.title, self.when]
+        frac = np.linspace(0, 1, self.N_TICKS)
+        self.lc_labels = [self.lc.text(-0.012, y, "", transform=self.lc.transAxes, ha="right", va="center",
+                                       fontsize=7) for y in frac]
+        self.cb_labels = [self.cax.text(1.6, y, "", transform=self.cax.transAxes, ha="left", va="center",
+                                        fontsize=7) for y in frac]
+        # Drawn per event, in this order (the box over the image).
+        self.dynamic = [self.im, self.box, self.span, self.line_out, self.line_in, self.title, self.when,
+                        *self.lc_labels, *self.cb_labels]
         for a in self.dynamic:
             a.set_animated(True)
         self.frames: dict[float, object] = {}
 
     def _frame(self, half: float):
         """The drawn frame for a window of [-half, half] seconds (rendered on first use)."""
+        self.ax.set_xlim(-half, half)
         if half not in self.frames:
-            self.ax.set_xlim(-half, half)
             self.lc.set_xlabel("seconds from the window centre", fontsize=8, labelpad=1)
             self.canvas.draw()
             self.frames[half] = self.canvas.copy_from_bbox(self.fig.bbox)
-        else:
-            self.ax.set_xlim(-half, half)
         return self.frames[half]
+
+    def _scale(self, labels, lo: float, hi: float) -> tuple[float, float]:
+        """Round limits covering lo..hi with N_TICKS evenly spaced round ticks; label them."""
+        start, step = _round_ticks(lo, hi, self.N_TICKS - 1)
+        digits = 0 if step >= 1 else (1 if step >= 0.1 else 2)
+        for k, t in enumerate(labels):
+            t.set_text(f"{start + k * step:.{digits}f}")
+        return start, start + (self.N_TICKS - 1) * step
 
     def draw(self, path: Path, number: int, ev: dict, t_edges: np.ndarray, excess: np.ndarray,
              source: str) -> Path:
@@ -742,22 +771,21 @@ class ZoomPlotter:
         from PIL import Image
 
         mid = 0.5 * (t_edges[0] + t_edges[-1])
-        half = round(0.5 * (t_edges[-1] - t_edges[0]), 3)
-        frame = self._frame(half)
+        frame = self._frame(round(0.5 * (t_edges[-1] - t_edges[0]), 3))
         start, end = parse_iso(ev["start_utc"]), parse_iso(ev["end_utc"])
         x = t_edges - mid
         f0, f1 = self.ax.get_ylim()
-        self.im.set_data(np.ma.masked_invalid(excess.T))
-        self.im.set_extent((x[0], x[-1], f0, f1))
-        self.im.set_clim(*_excess_limits(excess))
-        self.box.set_bounds(start - mid, ev["fmin_mhz"], max(end - start, 1e-3),
-                            max(ev["fmax_mhz"] - ev["fmin_mhz"], 0.02))
-        self.box.set_edgecolor(CLASS_COLOURS.get(ev["class"], "#FFFFFF"))
         n_f = excess.shape[1]
         fc = f0 + (f1 - f0) * (np.arange(n_f) + 0.5) / n_f
         inside = (fc >= ev["fmin_mhz"]) & (fc <= ev["fmax_mhz"])
         if not inside.any():
             inside[np.argmin(np.abs(fc - 0.5 * (ev["fmin_mhz"] + ev["fmax_mhz"])))] = True
+        self.im.set_data(np.ma.masked_invalid(excess.T))
+        self.im.set_extent((x[0], x[-1], f0, f1))
+        self.im.set_clim(*self._scale(self.cb_labels, *_zoom_limits(excess, t_edges, start, end, inside)))
+        self.box.set_bounds(start - mid, ev["fmin_mhz"], max(end - start, 1e-3),
+                            max(ev["fmax_mhz"] - ev["fmin_mhz"], 0.02))
+        self.box.set_edgecolor(CLASS_COLOURS.get(ev["class"], "#FFFFFF"))
         import warnings
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
@@ -769,12 +797,9 @@ class ZoomPlotter:
         self.span.set_bounds(start - mid, 0, max(end - start, 1e-3), 1)
         both = np.concatenate([lc_in, lc_out])
         both = both[np.isfinite(both)]
-        if both.size:
-            lo, hi = float(both.min()), float(both.max())
-            pad = max(0.1 * (hi - lo), 0.2)
-            self.lc.set_ylim(lo - pad, hi + 2.5 * pad)   # head room for the legend
-        else:
-            self.lc.set_ylim(-1, 1)
+        lo, hi = (float(both.min()), float(both.max())) if both.size else (-1.0, 1.0)
+        head = max(0.35 * (hi - lo), 0.3)            # room for the legend
+        self.lc.set_ylim(*self._scale(self.lc_labels, lo, hi + head))
         self.when.set_text(f"centre {self.night.local(mid):%H:%M:%S} local = {iso(mid)[11:19]} UTC")
         self.title.set_text(f"#{number}  {LABEL_NAMES.get(ev['class'], ev['class'])}  ({source})")
         self.canvas.restore_region(frame)
@@ -784,6 +809,19 @@ class ZoomPlotter:
         Image.frombuffer("RGBA", (w, h), self.canvas.buffer_rgba(), "raw", "RGBA", 0, 1).convert("RGB") \
             .save(path, format="PNG", compress_level=1)
         return path
+
+
+def _round_ticks(lo: float, hi: float, n: int) -> tuple[float, float]:
+    """(start, step): the smallest round step whose n steps from a multiple of it cover lo..hi."""
+    span = max(hi - lo, 1e-6)
+    k = math.floor(math.log10(span / n))
+    while True:
+        for m in (1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0):
+            step = m * 10.0 ** k
+            start = math.floor(lo / step) * step
+            if start + n * step >= hi:
+                return start, step
+        k += 1
 
 
 # -- the page ---------------------------------------------------------------------------
@@ -1114,13 +1152,6 @@ def night_events(cfg, night: Night) -> list[dict]:
         store.close()
 
 
-def _windows(windows) -> list[dict]:
-    """Forecast windows as plain dicts (start, end POSIX s; region; max_jupiter_alt_deg)."""
-    get = lambda w, k: w[k] if isinstance(w, dict) else getattr(w, k)
-    return [{"start": float(get(w, "start")), "end": float(get(w, "end")), "region": str(get(w, "region")),
-             "max_jupiter_alt_deg": get(w, "max_jupiter_alt_deg")} for w in windows]
-
-
 TRACK_STEP_S = 300.0   # sampling of the night's CML–Io-phase track
 
 
@@ -1209,10 +1240,9 @@ def build_report(cfg, night: Night | str | dt.date | None = None, progress=None,
     from rxlog.ephemeris import body_up_intervals
     from rxlog.forecast import forecast_windows
 
-    jupiter_up = _intervals(body_up_intervals(cfg, night.t0, night.t1, body="jupiter"))
-    sun_up = _intervals(body_up_intervals(cfg, night.t0, night.t1, body="sun"))
-    forecast = [w for w in _windows(forecast_windows(cfg, night.t0, 1))
-                if _overlap(w["start"], w["end"], night.t0, night.t1) > 0]
+    jupiter_up = body_up_intervals(cfg, night.t0, night.t1, body="jupiter")
+    sun_up = body_up_intervals(cfg, night.t0, night.t1, body="sun")
+    forecast = forecast_windows(cfg, night.t0, (night.t1 - night.t0) / 86400.0)
 
     images: dict[str, str] = {}   # file name -> what it was drawn from
     zoomer = ZoomPlotter(night, _freq_bins(cfg))

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import getpass
+import sys
 
 import click
 
@@ -18,7 +19,7 @@ class _Progress:
 
     def __call__(self, done, total):
         if self.bar is None:
-            self.bar = click.progressbar(length=total, label=self.label, file=click.get_text_stream("stderr"))
+            self.bar = click.progressbar(length=total, label=self.label, file=sys.stderr)
             self.bar.__enter__()
         self.bar.update(done - self.done)
         self.done = done

@@ -1,0 +1,122 @@
+"""The review page in a real headless browser (Debian's chromium driven by Playwright):
+step through events with the keyboard, label one, reload, and the label is still there
+and in the event store."""
+
+import os
+import shutil
+
+import pytest
+
+from rxlog import report
+from rxlog.review_server import ReviewServer
+from rxlog.store import EventStore
+from test_report_night import make_night
+
+CHROMIUM = "/usr/bin/chromium"
+ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+        "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+
+
+def _browser_or_skip():
+    problem = None
+    try:
+        from playwright.sync_api import sync_playwright  # noqa: F401
+    except ImportError:
+        problem = "the playwright package is not installed (pip install -e '.[test]')"
+    if problem is None and not (os.path.exists(CHROMIUM) or shutil.which("chromium")):
+        problem = f"no chromium at {CHROMIUM} (apt-get install chromium; .ci/run does it as root)"
+    if problem:
+        if os.environ.get("CI", "").lower() == "true":
+            pytest.fail(f"browser test cannot run in CI: {problem}")
+        pytest.skip(problem)
+
+
+@pytest.fixture(scope="module")
+def served(tmp_path_factory):
+    _browser_or_skip()
+    root = tmp_path_factory.mktemp("browser")
+    cfg, night, events = make_night(root, hours=0.5, n_bursts=4)
+    report.build_report(cfg, night)
+    srv = ReviewServer(cfg, night, port=0)
+    srv.start_background()
+    yield cfg, night, events, srv
+    srv.shutdown()
+    srv.server_close()
+
+
+@pytest.fixture(scope="module")
+def browser(served):
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as p:
+        b = p.chromium.launch(executable_path=CHROMIUM if os.path.exists(CHROMIUM) else shutil.which("chromium"),
+                              args=ARGS)
+        yield b
+        b.close()
+
+
+def test_step_label_reload_and_the_label_stays(served, browser):
+    cfg, night, events, srv = served
+    page = browser.new_page()
+    errors = []
+    page.on("pageerror", lambda e: errors.append(str(e)))
+    page.goto(srv.url)
+    page.fill("#who", "ana")
+    page.locator("#who").press("Tab")           # leave the field so keys go to the page
+    page.locator("body").click(position={"x": 5, "y": 5})
+
+    page.keyboard.press("j")
+    page.keyboard.press("j")
+    page.keyboard.press("j")
+    page.keyboard.press("k")                    # back to the second event
+    current = page.locator("section.event.current")
+    assert current.count() == 1
+    target = events[1]["event_id"]
+    assert current.get_attribute("data-event-id") == target
+
+    page.keyboard.press("n")                    # type a note, leave with Enter
+    page.keyboard.type("faint arc")
+    page.keyboard.press("Enter")
+    page.keyboard.press("7")                    # key 7: rfi
+    card = page.locator(f'section.event[data-event-id="{target}"]')
+    card.locator(".status").filter(has_text="saved").wait_for(timeout=5000)
+    assert "Interference" in card.locator(".current-label").inner_text()
+
+    page.reload()
+    card = page.locator(f'section.event[data-event-id="{target}"]')
+    page.wait_for_function(
+        "id => document.querySelector(`section.event[data-event-id=\"${id}\"] .current-label`)"
+        ".textContent.includes('Interference')", arg=target, timeout=5000)
+    assert "ana" in card.locator(".current-label").inner_text()
+    assert card.locator("button.on").get_attribute("data-label") == "rfi"
+    # Stepping to it again shows its label history.
+    page.locator("body").click(position={"x": 5, "y": 5})
+    page.keyboard.press("j")
+    page.keyboard.press("j")
+    card.locator("ol.history li").first.wait_for(timeout=5000)
+    assert "faint arc" in card.locator("ol.history").inner_text()
+    assert errors == []
+
+    store = EventStore(cfg.store_path)
+    try:
+        ev = store.get_event(target)
+    finally:
+        store.close()
+    assert (ev["label"], ev["label_note"], ev["label_who"]) == ("rfi", "faint arc", "ana")
+
+
+def test_page_opened_from_disk_is_read_only_but_complete(served, browser):
+    cfg, night, events, srv = served
+    page = browser.new_page()
+    page.goto((report.report_dir(cfg, night) / "index.html").as_uri())
+    assert page.locator("section.event").count() == len(events)
+    assert "Read-only" in page.locator("#mode").inner_text()
+    page.locator("body").click(position={"x": 5, "y": 5})
+    page.keyboard.press("j")
+    assert page.locator("section.event.current").get_attribute("data-event-id") == events[0]["event_id"]
+    assert page.locator("section.event.current button").first.is_disabled()
+    # Every image on the page loads from the folder.
+    page.evaluate("document.querySelectorAll('img').forEach(i => { i.loading = 'eager'; })")
+    page.wait_for_function("Array.from(document.images).every(i => i.complete)", timeout=10000)
+    sizes = page.evaluate("Array.from(document.images).map(i => i.naturalWidth)")
+    assert len(sizes) == len(events) + 2 and all(w > 0 for w in sizes)

@@ -1,0 +1,238 @@
+"""The labelling server: loopback by default, files only from the report folder, label
+writes only with the page's token from the page's own origin, labels saved at once."""
+
+import http.client
+import json
+import re
+
+import pytest
+
+from rxlog import report
+from rxlog.errors import RxlogError
+from rxlog.review_server import ReviewServer
+from rxlog.store import EventStore
+from test_report_night import make_night
+
+
+@pytest.fixture(scope="module")
+def night(tmp_path_factory):
+    root = tmp_path_factory.mktemp("served")
+    cfg, night, events = make_night(root, hours=0.5, n_bursts=3)
+    report.build_report(cfg, night)
+    return cfg, night, events
+
+
+@pytest.fixture
+def server(night):
+    cfg, n, events = night
+    srv = ReviewServer(cfg, n, port=0)
+    srv.start_background()
+    yield srv
+    srv.shutdown()
+    srv.server_close()
+
+
+def request(srv, method, path, body=None, headers=None, host=None):
+    """A raw request: http.client sends the path exactly as given (no ../ folding)."""
+    conn = http.client.HTTPConnection("127.0.0.1", srv.port, timeout=10)
+    h = {"Host": host or f"127.0.0.1:{srv.port}"}
+    h.update(headers or {})
+    data = None if body is None else (body if isinstance(body, bytes) else json.dumps(body).encode())
+    conn.putrequest(method, path, skip_host=True, skip_accept_encoding=True)
+    for k, v in h.items():
+        conn.putheader(k, v)
+    if data is not None:
+        conn.putheader("Content-Length", str(len(data)))
+    conn.endheaders(data)
+    r = conn.getresponse()
+    out = r.status, dict(r.getheaders()), r.read()
+    conn.close()
+    return out
+
+
+def page_token(srv) -> str:
+    status, headers, body = request(srv, "GET", "/")
+    assert status == 200
+    m = re.search(rb'<meta name="rxlog-session" content="([^"]+)">', body)
+    assert m, "served page carries no session token"
+    return m.group(1).decode()
+
+
+def labels_in_store(cfg):
+    store = EventStore(cfg.store_path)
+    try:
+        return [dict(r) for r in store.db.query("select * from labels order by label_id")]
+    finally:
+        store.close()
+
+
+def post_label(srv, token, event_id, label="jovian_l", origin=True, **extra):
+    headers = {"Content-Type": "application/json"}
+    if token is not None:
+        headers["X-Rxlog-Token"] = token
+    if origin:
+        headers["Origin"] = f"http://127.0.0.1:{srv.port}"
+    headers.update(extra.pop("headers", {}))
+    return request(srv, "POST", "/api/label", {"event_id": event_id, "label": label, "note": "n", "who": "ana"},
+                   headers=headers, **extra)
+
+
+def test_binds_loopback_by_default(night):
+    cfg, n, _ = night
+    srv = ReviewServer(cfg, n, port=0)
+    try:
+        assert srv.server_address[0] == "127.0.0.1"
+        assert srv.url.startswith("http://127.0.0.1:")
+    finally:
+        srv.server_close()
+
+
+def test_other_addresses_need_the_flag_and_a_token(night):
+    cfg, n, _ = night
+    with pytest.raises(RxlogError, match="allow-remote"):
+        ReviewServer(cfg, n, host="0.0.0.0", port=0)
+    with pytest.raises(RxlogError, match="access-token"):
+        ReviewServer(cfg, n, host="0.0.0.0", port=0, allow_remote=True)
+    with pytest.raises(RxlogError, match="access-token"):
+        ReviewServer(cfg, n, host="0.0.0.0", port=0, allow_remote=True, access_token="short")
+
+
+def test_remote_server_refuses_visitors_without_the_access_token(night):
+    cfg, n, _ = night
+    key = "k" * 24
+    srv = ReviewServer(cfg, n, host="0.0.0.0", port=0, allow_remote=True, access_token=key)
+    srv.start_background()
+    try:
+        assert request(srv, "GET", "/", host="station.example:1")[0] == 401
+        assert request(srv, "GET", "/overview.png", host="station.example:1")[0] == 401
+        status, headers, _ = request(srv, "GET", f"/?key={key}", host="station.example:1")
+        assert status == 200 and "HttpOnly" in headers["Set-Cookie"]
+        cookie = headers["Set-Cookie"].split(";")[0]
+        assert request(srv, "GET", "/overview.png", headers={"Cookie": cookie}, host="station.example:1")[0] == 200
+    finally:
+        srv.shutdown()
+        srv.server_close()
+
+
+@pytest.mark.parametrize("path", ["/../events.sqlite", "/events/../../events.sqlite", "/%2e%2e/events.sqlite",
+                                  "/..%2fevents.sqlite", "/events/%2e%2e/%2e%2e/station.toml", "/.hidden",
+                                  "/..\\events.sqlite"])
+def test_paths_outside_the_report_folder_are_refused(server, path):
+    status, _, body = request(server, "GET", path)
+    assert status in (403, 404)
+    assert b"SQLite" not in body and b"[station]" not in body
+
+
+def test_symlink_out_of_the_folder_is_refused(server, night):
+    cfg, n, _ = night
+    link = report.report_dir(cfg, n) / "store.png"
+    link.symlink_to(cfg.store_path)
+    try:
+        assert request(server, "GET", "/store.png")[0] == 403
+    finally:
+        link.unlink()
+
+
+def test_report_files_are_served(server):
+    status, headers, body = request(server, "GET", "/overview.png")
+    assert status == 200 and headers["Content-Type"] == "image/png" and body[:4] == b"\x89PNG"
+    assert request(server, "GET", "/summary.txt")[0] == 200
+    assert request(server, "GET", "/nothing.png")[0] == 404
+
+
+def test_foreign_host_header_is_refused(server):
+    # A page on another site reaching the server through DNS rebinding sends its own Host.
+    assert request(server, "GET", "/", host=f"attacker.example:{server.port}")[0] == 403
+
+
+def test_label_without_the_page_token_is_refused(server, night):
+    cfg, n, events = night
+    before = labels_in_store(cfg)
+    status, _, body = post_label(server, None, events[0]["event_id"])
+    assert status == 403 and b"token" in body
+    status, _, _ = post_label(server, "not-the-token", events[0]["event_id"])
+    assert status == 403
+    assert labels_in_store(cfg) == before
+
+
+def test_label_from_another_origin_is_refused(server, night):
+    cfg, n, events = night
+    before = labels_in_store(cfg)
+    token = page_token(server)
+    status, _, _ = post_label(server, token, events[0]["event_id"], origin=False,
+                              headers={"Origin": "http://attacker.example"})
+    assert status == 403
+    status, _, _ = post_label(server, token, events[0]["event_id"], origin=False, headers={"Origin": "null"})
+    assert status == 403
+    assert labels_in_store(cfg) == before
+
+
+def test_label_as_a_form_post_is_refused(server, night):
+    # A cross-site HTML form can only send form encodings, never application/json.
+    cfg, n, events = night
+    before = labels_in_store(cfg)
+    token = page_token(server)
+    status, _, _ = request(server, "POST", "/api/label", b"event_id=x&label=rfi",
+                           headers={"Content-Type": "application/x-www-form-urlencoded", "X-Rxlog-Token": token})
+    assert status == 415
+    assert labels_in_store(cfg) == before
+
+
+def test_label_with_the_token_is_saved_at_once_with_history(server, night):
+    cfg, n, events = night
+    token = page_token(server)
+    eid = events[1]["event_id"]
+    status, _, body = post_label(server, token, eid, label="rfi")
+    assert status == 200, body
+    status, _, body = post_label(server, token, eid, label="unsure")
+    assert status == 200, body
+    answer = json.loads(body)
+    assert answer["event"]["label"] == "unsure"
+    assert [h["label"] for h in answer["history"]][-2:] == ["rfi", "unsure"]
+    store = EventStore(cfg.store_path)
+    try:
+        assert store.get_event(eid)["label"] == "unsure"
+        assert store.get_event(eid)["label_who"] == "ana"
+    finally:
+        store.close()
+    status, _, body = request(server, "GET", f"/api/history?event={eid}")
+    assert status == 200 and [h["label"] for h in json.loads(body)["history"]][-2:] == ["rfi", "unsure"]
+    status, _, body = request(server, "GET", "/api/events")
+    rows = {r["event_id"]: r for r in json.loads(body)["events"]}
+    assert rows[eid]["label"] == "unsure"
+
+
+def test_token_is_per_server_session(night):
+    cfg, n, events = night
+    a, b = ReviewServer(cfg, n, port=0), ReviewServer(cfg, n, port=0)
+    try:
+        assert a.csrf_token != b.csrf_token and len(a.csrf_token) >= 32
+    finally:
+        a.server_close()
+        b.server_close()
+
+
+@pytest.mark.parametrize("body, status", [
+    ({"event_id": "nope", "label": "rfi"}, 404),
+    ({"label": "rfi"}, 400),
+    ({"event_id": "x", "label": "jupiter"}, 400),
+    ({"event_id": "x", "label": "rfi", "note": "x" * 3000}, 400),
+])
+def test_bad_label_requests_are_refused_without_touching_the_store(server, night, body, status):
+    cfg, n, events = night
+    before = labels_in_store(cfg)
+    token = page_token(server)
+    if body.get("event_id") == "x":
+        body["event_id"] = events[0]["event_id"]
+    got, _, _ = request(server, "POST", "/api/label", body, headers={
+        "Content-Type": "application/json", "X-Rxlog-Token": token, "Origin": f"http://127.0.0.1:{server.port}"})
+    assert got == status
+    assert labels_in_store(cfg) == before
+
+
+def test_served_page_has_a_strict_content_security_policy(server):
+    status, headers, body = request(server, "GET", "/")
+    csp = headers["Content-Security-Policy"]
+    nonce = re.search(r"'nonce-([^']+)'", csp).group(1)
+    assert f'nonce="{nonce}"'.encode() in body
+    assert "default-src 'none'" in csp and "connect-src 'self'" in csp
