@@ -206,6 +206,9 @@ def calibrate_injections(model, layout: CellLayout, start: float, cadence: float
             lo, hi = 0.0, 1.0
             while peak(e, i0, i1, hi, others) > target:
                 lo, hi = hi, hi * 2
+                if hi > 1e4:     # absorption only dims the sky: man-made and receiver noise remain
+                    raise RxlogError(f"inject fadeout at {iso(e.t_start)}: a dip of {target} dB is deeper than "
+                                     "the sky's share of this background allows; try a quieter rfi category")
             for _ in range(50):
                 mid = 0.5 * (lo + hi)
                 lo, hi = (mid, hi) if peak(e, i0, i1, mid, others) > target else (lo, mid)

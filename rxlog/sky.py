@@ -196,7 +196,7 @@ def _galactic_relative(l_deg, b_deg):
     l = np.radians(l_deg)
     b = np.radians(b_deg)
     halo = 1.0 + 0.45 * np.cos(l) * np.cos(b)
-    disk = 2.0 * np.exp(-np.abs(np.degrees(b)) / 12.0) * (0.3 + 0.7 * np.exp(-(((np.degrees(l) + 180) % 360 - 180) / 60.0) ** 2))
+    disk = 3.5 * np.exp(-np.abs(np.degrees(b)) / 12.0) * (0.3 + 0.7 * np.exp(-(((np.degrees(l) + 180) % 360 - 180) / 60.0) ** 2))
     return halo + disk
 
 
