@@ -40,6 +40,7 @@ A short ring of high-time-resolution spectra (``ring_s``, rows of at most
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass
 
@@ -60,6 +61,12 @@ MIN_ROW_FILL = 0.5         # a row with less than this fraction of its frames is
 
 _DTYPE_FORMAT = {np.dtype(np.uint8): "cu8", np.dtype(np.int8): "ci8", np.dtype("<i2"): "ci16_le",
                  np.dtype("<f4"): "cf32_le"}
+
+
+def header_safe(meta: dict) -> dict:
+    """Drop values a FITS header cannot hold (NaN, None): an unknown gain is simply absent."""
+    return {k: v for k, v in meta.items()
+            if v is not None and not (isinstance(v, float) and not math.isfinite(v))}
 
 
 def spectral_kurtosis(s1, s2, m, n: int = 1, d: float = 1.0):
@@ -514,8 +521,9 @@ class Channelizer:
             power[row - r0], flags[row - r0] = p, f
             if sk is not None:
                 sk[row - r0] = k
-        meta = dict(self._meta, center_hz=center, rate_hz=rate, gain_db=self._gain, fft_size=self.fft_size,
-                    window=self.window_name, overlap=self.overlap, mode="single")
+        meta = header_safe(dict(self._meta, center_hz=center, rate_hz=rate, gain_db=self._gain,
+                                fft_size=self.fft_size, window=self.window_name, overlap=self.overlap,
+                                mode="single"))
         return DynamicSpectrum(power, r0 * self.cadence_s, self.cadence_s, self.freq_hz, flags,
                                segment=seg, meta=meta, kurtosis=sk)
 
@@ -663,3 +671,40 @@ class Dwell:
                 s1 = self.s1 if self.ch.sk_every == 1 else self.k1
                 sk[m.chans] = m.to_channels(spectral_kurtosis(s1, self.k2, self.km))
         return power, sk, self.m
+
+
+@dataclass
+class RecordingSummary:
+    """What ``ingest_recording`` stored."""
+
+    path: str
+    segments: list
+    t0: float
+    t_end: float
+    rows: int
+    duration_s: float
+
+
+def ingest_recording(cfg, path, progress=None, *, fmt=None, rate_hz=None, center_hz=None, start=None,
+                     chunk_samples: int = 1 << 20) -> RecordingSummary:
+    """Channelize a recording onto the station grid and append it to the station archive.
+
+    The same channelizer as the live logger (``[sweep]`` FFT settings, ``[spectra]`` grid
+    and cadence); each tuning of the recording is a segment of its own.
+    """
+    from rxlog.archive import ArchiveWriter
+
+    segments, rows, t0, t_end = [], 0, math.inf, -math.inf
+    spectra = spectra_from_recording(cfg, path, progress, fmt=fmt, rate_hz=rate_hz, center_hz=center_hz,
+                                     start=start, chunk_samples=chunk_samples)
+    first = next(spectra, None)          # open and check the recording before touching the archive
+    if first is None:
+        raise RxlogError(f"{path}: too short for one {cfg['spectra']['cadence_s']:g}-s spectrum; nothing stored")
+    with ArchiveWriter(cfg.archive_dir, cfg["station"], lossless=cfg["storage"]["lossless"]) as w:
+        for ds in itertools.chain([first], spectra):
+            w.write(ds)
+            rows += ds.n_time
+            t0, t_end = min(t0, ds.t0), max(t_end, ds.t_end)
+            if ds.segment not in segments:
+                segments.append(ds.segment)
+    return RecordingSummary(str(path), segments, t0, t_end, rows, t_end - t0)

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rxlog.channelizer import MIN_ROW_FILL, Channelizer, Dwell, Ring
+from rxlog.channelizer import MIN_ROW_FILL, Channelizer, Dwell, Ring, header_safe
 from rxlog.errors import RxlogError
 from rxlog.receiver import EndOfStream, _segment_id
 from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED, DynamicSpectrum, channel_grid
@@ -373,9 +373,10 @@ class Sweeper:
         F = np.tile(np.where(p.assignment >= 0, FLAG_GAP, FLAG_UNCOVERED).astype(np.uint8), (n_gap + 1, 1))
         K = np.full((n_gap + 1, n_chan), np.nan, dtype=np.float32)
         P[-1], F[-1], K[-1] = power, flags, sk
-        meta = dict(self.meta, mode="sweep", rate_hz=p.rate_hz, gain_db=float(getattr(self.source, "gain_db", math.nan)),
-                    fft_size=self.ch.fft_size, window=self.ch.window_name, cycle_s=p.cycle_s, dwell_s=p.dwell_s,
-                    tunings_mhz=",".join(f"{f / 1e6:.4f}" for f in p.tunings_hz))
+        meta = header_safe(dict(self.meta, mode="sweep", rate_hz=p.rate_hz,
+                                gain_db=float(getattr(self.source, "gain_db", math.nan)), fft_size=self.ch.fft_size,
+                                window=self.ch.window_name, cycle_s=p.cycle_s, dwell_s=p.dwell_s,
+                                tunings_mhz=",".join(f"{f / 1e6:.4f}" for f in p.tunings_hz)))
         return [DynamicSpectrum(P, (row - n_gap) * p.cadence_s, p.cadence_s, p.freq_hz, F,
                                 chan_offset_s=p.chan_offset_s, segment=self.segment, meta=meta,
                                 kurtosis=K if self.ch.kurtosis else None)]

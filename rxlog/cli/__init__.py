@@ -9,5 +9,6 @@ from rxlog.cli import review  # noqa: F401  (review, events, label)
 from rxlog.cli import exchange  # noqa: F401  (export, compare)
 from rxlog.cli import simulate  # noqa: F401  (simulate)
 from rxlog.cli import ephem  # noqa: F401  (ephem, forecast)
+from rxlog.cli import ingest  # noqa: F401  (ingest recordings and FITS; supersedes archive's FITS-only ingest)
 
 __all__ = ["main"]
