@@ -582,7 +582,6 @@ def write_simulation(cfg, start_unix: float, hours: float, out, iq: bool = False
         return _write_iq(cfg, start_unix, hours, out, seed, rfi, center_hz, progress)
     from rxlog import archive
 
-    run = iter_spectra(cfg, start_unix, hours, seed=seed, rfi=rfi)
     station = cfg["station"]
     lossless = cfg["storage"]["lossless"]
     done = 0
@@ -595,6 +594,7 @@ def write_simulation(cfg, start_unix: float, hours: float, out, iq: bool = False
             progress(done, done)
     else:
         path = out
+        run = iter_spectra(cfg, start_unix, hours, seed=seed, rfi=rfi)
         with archive.ArchiveWriter(out, station, lossless=lossless) as w:
             for spec in run:
                 w.write(spec)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sys
+
 import click
 
 from rxlog.cli.base import UserError, parse_time_option, station_command
@@ -36,7 +38,7 @@ def simulate_command(cfg, start, hours, out, iq, seed, rfi, center_mhz):
     t0 = parse_time_option(start, "--start")
     if center_mhz is not None and not iq:
         raise UserError("--center-mhz: only used with --iq (spectra cover the whole band)")
-    with click.progressbar(length=1000, label="simulating", file=click.get_text_stream("stderr")) as bar:
+    with click.progressbar(length=1000, label="simulating", file=sys.stderr) as bar:
         state = {"shown": 0}
 
         def progress(done, total):
