@@ -331,6 +331,9 @@ class Logger:
                     return
                 spec = spec.slice_rows(keep, spec.n_time)
         spec.segment = self._segment_name(spec)
+        if spec.segment not in self.segments:
+            log.info("segment %s: spectra from %s, %d channels every %g s", spec.segment, iso(spec.t0),
+                     spec.n_chan, spec.cadence_s)
         self.last_end = spec.t_end
         self._note_segment(spec)
         self._archive(spec)
@@ -734,9 +737,10 @@ class SpectraFeed:
     Paced (``realtime``), a chunk is handed out once its last row has passed on the
     monotonic clock and is stamped in UTC with the current wall-minus-monotonic offset,
     as a live receiver's disciplined sample count is; a wall-clock step therefore moves
-    the data as it would on a real station. Unpaced, chunks come as fast as they can be
-    made, on the simulation's own time line. ``hours`` ends the feed; without it the sky
-    is planned ``RUN_HOURS`` at a time, for ever.
+    the data as it would on a real station. Rows whose time passed while the sky model
+    was being planned are skipped, as a receiver opened late has no samples from before.
+    Unpaced, chunks come as fast as they can be made, on the simulation's own time line.
+    ``hours`` ends the feed; without it the sky is planned ``RUN_HOURS`` at a time.
     """
 
     RUN_HOURS = 6.0
@@ -748,11 +752,14 @@ class SpectraFeed:
         self.cfg, self.clock, self.paced = cfg, clock, bool(realtime)
         self.hours, self.seed = hours, int(seed)
         self.cadence = float(cfg["spectra"]["cadence_s"])
+        chunk = self.PACED_CHUNK_S if self.paced else self.FAST_CHUNK_S
+        self.chunk_rows = max(1, int(round(chunk / self.cadence)))
         self.start = start_unix
         self.next_t: float | None = None       # simulation time of the next row
         self.end: float | None = None
         self._runs = 0
-        self._it = None
+        self._run = None
+        self._i = 0
         self.samples_received = self.samples_dropped = 0
 
     def open(self):
@@ -762,39 +769,47 @@ class SpectraFeed:
         if self.next_t is None:
             self.next_t = self.start
             self.end = None if self.hours is None else self.start + self.hours * 3600.0
-            # the simulation's time line runs on the monotonic clock from here
-            self._mono0 = self.clock.monotonic() + (self.start - self.clock.realtime())
-            self._offset0 = self.start - self._mono0
-        self._it = None
+            # The simulation's time line runs on the monotonic clock: sim time t is
+            # monotonic time t - offset0, and in UTC t + (offset now - offset0).
+            self._offset0 = self.clock.realtime() - self.clock.monotonic()
+        self._run = None
+
+    def _sim_now(self) -> float:
+        return self.clock.monotonic() + self._offset0
 
     def _new_run(self):
         from rxlog.simulator import iter_spectra
 
         hours = self.RUN_HOURS if self.end is None else min(self.RUN_HOURS, (self.end - self.next_t) / 3600.0)
-        chunk = max(self.cadence, self.PACED_CHUNK_S if self.paced else self.FAST_CHUNK_S)
-        self._it = iter(iter_spectra(self.cfg, self.next_t, hours, seed=self.seed + self._runs, chunk_s=chunk))
+        self._run = iter_spectra(self.cfg, self.next_t, hours, seed=self.seed + self._runs)
         self._runs += 1
+        self._i = 0
+        if self.paced:
+            late = self._sim_now() - self.next_t
+            self._i = min(self._run.n_rows, max(0, int(late // self.cadence)))
 
     def read(self) -> list[DynamicSpectrum]:
         if self.end is not None and self.next_t >= self.end - 0.5 * self.cadence:
             raise EndOfStream("simulation finished")
-        if self._it is None:
+        if self._run is None or self._i >= self._run.n_rows:
             self._new_run()
-        spec = next(self._it, None)
-        if spec is None:
-            self._it = None
-            return []
+            if self._i >= self._run.n_rows:
+                self.next_t = self._run.end
+                return []
+        i1 = min(self._run.n_rows, self._i + self.chunk_rows)
+        spec = self._run.rows(self._i, i1)
+        self._i = i1
         self.next_t = spec.t_end
+        if i1 >= self._run.n_rows:
+            self._run = None
         if self.paced:
-            due = self._mono0 + (spec.t_end - self.start)
-            while (wait := due - self.clock.monotonic()) > 0:
+            while (wait := spec.t_end - self._sim_now()) > 0:
                 time.sleep(min(wait, 0.25))
-            shift = (self.clock.realtime() - self.clock.monotonic()) - self._offset0
-            spec.t0 += shift
+            spec.t0 += (self.clock.realtime() - self.clock.monotonic()) - self._offset0
         return [spec]
 
     def close(self):
-        self._it = None
+        self._run = None
 
 
 def open_feed(cfg, clock: Clock):
