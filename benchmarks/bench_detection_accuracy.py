@@ -1,0 +1,165 @@
+"""Detection accuracy against the simulator's ground truth (``rxlog.simulator``).
+
+Simulated days and nights at the example station (config/station.example.toml, the
+default [rfi] and [detector] settings), each fed to the online detector in one-minute
+chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
+
+* day-bursts: a winter day with Jupiter below the horizon; 20 Type III and 10 Type II
+  bursts injected at peak excesses of 0.5, 1, 2, 4 and 8 dB among the natural interference
+  of a rural site.
+* day-long-N: five such days, each with one fadeout and one Type IV continuum, the
+  fadeout N dB deep and the Type IV N dB high.
+* night-jovian: two nights with Jupiter up, five 30-minute Jovian storms each.
+* night-rfi-city: a 12-hour night with no sky events at all and city-level interference
+  (ITU-R P.372 category "city"): every non-rfi detection there is false.
+
+A truth row counts as detected when a detection overlaps its time-frequency box (with
+5 s and 0.2 MHz of slack). Each detection is matched to the truth row it overlaps most;
+class accuracy is, per true class, the share of its matched detections given that class.
+Type III drift error compares the best-SNR matching detection with the simulated drift at
+the detection's centre frequency (Alvarez & Haddock law, as the simulator draws it).
+
+    python -m benchmarks detection_accuracy
+"""
+
+from __future__ import annotations
+
+import math
+from collections import defaultdict
+
+import numpy as np
+
+from rxlog.config import load_config
+from rxlog.detector import OnlineDetector
+from rxlog.simulator import iter_spectra
+from rxlog.timeutil import parse_iso
+
+from pathlib import Path
+
+PEAKS = (0.5, 1.0, 2.0, 4.0, 8.0)
+CONFIG = Path(__file__).resolve().parents[1] / "config" / "station.example.toml"
+SLACK_S, SLACK_MHZ = 5.0, 0.2
+NATURAL = ("jovian_l", "solar_iii", "solar_ii", "solar_iv", "fadeout")
+
+
+def _scenarios():
+    day0 = parse_iso("2027-01-15T09:00:00Z")
+    rng = np.random.default_rng(5)
+    bursts = [("solar_iii", p) for p in PEAKS for _ in range(4)] + [("solar_ii", p) for p in PEAKS for _ in range(2)]
+    order = rng.permutation(len(bursts))
+    inject = []
+    for k, i in enumerate(order):
+        cls, p = bursts[i]
+        inject.append(dict({"class": cls, "t": day0 + 600 + k * 810.0, "peak_excess_db": p}))
+    yield "day-bursts", day0, 7.0, "rural", inject
+    for k, p in enumerate(PEAKS):
+        d = day0 + 86400.0 * (k + 1)
+        yield (f"day-long-{p:g}", d, 7.0, "rural",
+               [{"class": "fadeout", "t": d + 1800.0, "peak_excess_db": -p},
+                {"class": "solar_iv", "t": d + 9000.0, "peak_excess_db": p}])
+    for n, night in enumerate(("2026-12-01T23:00:00Z", "2026-12-03T23:00:00Z")):
+        t = parse_iso(night)
+        yield (f"night-jovian-{n + 1}", t, 7.0, "rural",
+               [{"class": "jovian_l", "t": t + 1200.0 + k * 4800.0, "peak_excess_db": p, "duration_s": 1800.0}
+                for k, p in enumerate(PEAKS)])
+    yield "night-rfi-city", parse_iso("2026-12-01T18:00:00Z"), 12.0, "city", []
+
+
+def _box(r):
+    return parse_iso(r["start_utc"]), parse_iso(r["end_utc"]), r["fmin_mhz"], r["fmax_mhz"]
+
+
+def _overlap(a, b) -> float:
+    a0, a1, af0, af1 = a
+    b0, b1, bf0, bf1 = b
+    dt = min(a1 + SLACK_S, b1 + SLACK_S) - max(a0 - SLACK_S, b0 - SLACK_S)
+    df = min(af1 + SLACK_MHZ, bf1 + SLACK_MHZ) - max(af0 - SLACK_MHZ, bf0 - SLACK_MHZ)
+    return dt * df if dt > 0 and df > 0 else 0.0
+
+
+def run_scenario(cfg, start, hours, rfi, inject):
+    run = iter_spectra(cfg, start, hours, seed=3, rfi=rfi, include=("rfi",), inject=inject, chunk_s=60.0)
+    det = OnlineDetector(cfg)
+    events = []
+    for chunk in run:
+        events += det.feed(chunk)
+    events += det.flush()
+    return run.truth_rows(), events
+
+
+def score(results):
+    """results: list of (name, truth, events, inject) -> table rows and figures."""
+    found = defaultdict(lambda: [0, 0])          # (class, peak) -> [detected, total]
+    right = defaultdict(lambda: [0, 0])          # class -> [right class, matched detections]
+    drift_err = []
+    false_city, n_det, n_matched = 0, 0, 0
+    for name, truth, events, _inject in results:
+        tboxes = [_box(t) for t in truth]
+        for e in events:
+            n_det += 1
+            eb = _box(e)
+            ov = [_overlap(eb, tb) for tb in tboxes]
+            best = int(np.argmax(ov)) if ov and max(ov) > 0 else None
+            if best is None:
+                if name == "night-rfi-city" and e["class"] != "rfi":
+                    false_city += 1
+                continue
+            n_matched += 1
+            tcls = truth[best]["class"]
+            right[tcls][1] += 1
+            right[tcls][0] += e["class"] == tcls
+            if name == "night-rfi-city" and e["class"] != "rfi":
+                false_city += 1
+        for t, tb in zip(truth, tboxes):
+            if not t["reason"].startswith("injected"):
+                continue
+            p = min(PEAKS, key=lambda x: abs(x - abs(t["peak_excess_db"])))
+            hits = [e for e in events if _overlap(_box(e), tb) > 0]
+            found[(t["class"], p)][1] += 1
+            found[(t["class"], p)][0] += bool(hits)
+            if t["class"] == "solar_iii":
+                with_drift = [e for e in hits if e["drift_mhz_s"] is not None]
+                if with_drift:
+                    e = max(with_drift, key=lambda x: x["snr"])
+                    fc = 0.5 * (e["fmin_mhz"] + e["fmax_mhz"])
+                    fct = 0.5 * (t["fmin_mhz"] + t["fmax_mhz"])
+                    true = t["drift_mhz_s"] * (fc / fct) ** 1.84
+                    drift_err.append(abs(e["drift_mhz_s"] / true - 1.0))
+    return found, right, drift_err, false_city, n_det, n_matched
+
+
+def run():
+    cfg = load_config(CONFIG)
+    results = []
+    for name, start, hours, rfi, inject in _scenarios():
+        truth, events = run_scenario(cfg, start, hours, rfi, inject)
+        results.append((name, truth, events, inject))
+    found, right, drift_err, false_city, n_det, n_matched = score(results)
+    rows = []
+    for cls in NATURAL:
+        for p in PEAKS:
+            d, n = found.get((cls, p), [0, 0])
+            if n == 0:
+                continue
+            target = 0.7 if p < 1 else 0.95
+            rows.append((f"recall {cls} at {p:g} dB", round(d / n, 2), f"({d}/{n})", f">= {target}", d / n >= target))
+    for cls in NATURAL + ("rfi",):
+        r, n = right.get(cls, [0, 0])
+        if n:
+            rows.append((f"right class, detections of true {cls}", round(r / n, 2), f"({r}/{n})", ">= 0.8", r / n >= 0.8))
+    rows.append(("precision (detections overlapping a truth row)", round(n_matched / max(n_det, 1), 2),
+                 f"({n_matched}/{n_det})", "", True))
+    rows.append(("false non-rfi events, RFI-heavy (city) night", false_city, "per 12-h night", "<= 2", false_city <= 2))
+    if drift_err:
+        med = float(np.median(drift_err))
+        worst = float(np.max(drift_err))
+        within = float(np.mean(np.array(drift_err) <= 0.2))
+        rows.append(("Type III drift error, median", round(100 * med, 1), "%", "<= 20", med <= 0.2))
+        rows.append(("Type III drift error, share within 20 %", round(within, 2), f"(worst {100 * worst:.0f} %)",
+                     "1.0", within >= 0.999))
+    return rows
+
+
+if __name__ == "__main__":
+    for row in run():
+        print(row)

@@ -1,0 +1,113 @@
+"""Detector behaviour on synthetic spectra with known ingredients (tests/detector_helpers.py).
+
+References: the Type III drift law of Alvarez & Haddock (1973, Solar Physics 29, 197),
+df/dt = -0.01 f^1.84 MHz/s, which the synthetic bursts follow exactly; everything else
+checks rxlog's own rules (classes, masks, episodes, per-channel sampling times).
+"""
+
+import numpy as np
+import pytest
+
+from detector_helpers import CFG, Sky, cfg_with, jupiter_up, sun_down, sun_up
+from rxlog.detector import ah_drift, detect_spectrum, fit_drift
+from rxlog.spectrum import FLAG_RFI
+from rxlog.timeutil import parse_iso
+
+
+def _events(sky, tags, cfg=CFG, seed=0):
+    return detect_spectrum(cfg, sky.spectrum(seed=seed), tags_fn=tags)
+
+
+def test_type3_drift_matches_the_alvarez_haddock_law_and_is_classified_by_day():
+    sky = Sky(900)
+    sky.type3(300, 2.0)
+    res = _events(sky, sun_up)
+    iii = [e for e in res.events if e["class"] == "solar_iii"]
+    assert len(iii) == 1
+    e = iii[0]
+    fc = 0.5 * (e["fmin_mhz"] + e["fmax_mhz"])
+    assert abs(e["drift_mhz_s"] / ah_drift(fc) - 1) < 0.1          # Alvarez & Haddock 1973
+    assert e["drift_err_mhz_s"] < 0.2 * abs(e["drift_mhz_s"])
+    assert "Type III" in e["reason"] and "Sun up" in e["reason"]
+    assert 0 < e["confidence"] <= 1
+    # the same burst at night is not called solar
+    night = _events(sky, sun_down)
+    assert [x["class"] for x in night.events if x["snr"] > 10] == ["unknown"]
+
+
+def test_drift_fit_uses_the_true_sampling_time_of_each_channel():
+    # A receiver sweeping 8 sub-bands in 2-s steps: sub-band k is sampled 0.25 k s after the row starts.
+    offsets = np.repeat(np.arange(8) * 0.25, 32)
+    sky = Sky(900, cadence=2.0, offsets=offsets)
+    sky.type3(300, 3.0, width_s=1.5)
+    ev = [e for e in _events(sky, sun_up).events if e["snr"] > 10]
+    assert len(ev) == 1
+    fc = 0.5 * (ev[0]["fmin_mhz"] + ev[0]["fmax_mhz"])
+    assert abs(ev[0]["drift_mhz_s"] / ah_drift(fc) - 1) < 0.15
+    # the same cells with the offsets thrown away give a worse drift: the offsets matter
+    t = np.repeat(np.arange(5.0), 4)[:, None] + np.zeros((1, 4))
+    f = np.tile(np.array([16.5, 18.5, 20.5, 22.5]), 5)
+    assert fit_drift(t.ravel()[:20], f, np.ones(20), 1.0, 1.0)["drift"] is None   # simultaneous: no drift
+
+
+def test_impulse_is_rfi_and_masked_carrier_is_not_an_event():
+    sky = Sky(900)
+    sky.impulse(400, 3.0)
+    c = sky.carrier(19.3, 5.0)
+    res = _events(sky, sun_up)
+    assert [e["class"] for e in res.events] == ["rfi"]
+    assert "impulse" in res.events[0]["reason"]
+    assert (res.mask[:, c] & FLAG_RFI).mean() > 0.9
+    assert res.quality_rows[0]["masked_fraction"] > 0
+
+
+def test_ionosonde_chirp_is_rfi_with_its_sweep_rate():
+    sky = Sky(900)
+    sky.chirp(200, 16.2, 0.1, 8.0)
+    res = _events(sky, sun_up)
+    assert len(res.events) >= 1 and all(e["class"] == "rfi" for e in res.events)
+    best = max(res.events, key=lambda e: e["bandwidth_mhz"])
+    assert best["drift_mhz_s"] == pytest.approx(0.1, rel=0.1)
+
+
+def test_long_continuum_and_fadeout_come_from_the_slow_path():
+    sky = Sky(4 * 3600, n_chan=128)
+    sky.fadeout(3600, 1.0)
+    sky.patch(9000, 10800, 16.0, 24.0, 0.8, rise_s=300)
+    res = _events(sky, sun_up)
+    by = {e["class"]: e for e in res.events}
+    assert set(by) == {"fadeout", "solar_iv"}
+    assert by["fadeout"]["peak_excess_db"] < -0.5
+    assert parse_iso(by["fadeout"]["start_utc"]) == pytest.approx(sky.t0 + 3600, abs=300)
+    assert parse_iso(by["solar_iv"]["start_utc"]) == pytest.approx(sky.t0 + 9000, abs=400)
+    assert by["solar_iv"]["peak_excess_db"] == pytest.approx(0.8, abs=0.25)
+
+
+def test_jovian_patches_with_jupiter_up_and_type3_groups_form_episodes():
+    sky = Sky(1800)
+    for k, t in enumerate((300, 420, 700)):
+        sky.patch(t, t + 20, 18.0 + k, 21.0 + k, 1.0, rise_s=3)
+    res = _events(sky, jupiter_up)
+    assert res.events and all(e["class"] == "jovian_l" for e in res.events)
+    assert all("Io-B" in e["reason"] for e in res.events)
+    assert len({e["episode_id"] for e in res.events}) == 1
+    assert res.episodes[0]["n_events"] == len(res.events)
+    assert res.events[0]["cml3_deg"] == 150.0 and res.events[0]["io_phase_start_deg"] == 90.0
+
+
+def test_empty_sky_gives_no_events():
+    res = _events(Sky(1800), sun_up, seed=5)
+    assert res.events == []
+
+
+def test_settings_are_physical_units_not_pixels():
+    # The same burst on a grid twice as fine in time and frequency is found the same way.
+    coarse, fine = Sky(900, n_chan=128, cadence=1.0), Sky(900, n_chan=256, cadence=0.5)
+    for s in (coarse, fine):
+        s.type3(300, 2.0)
+    a = [e for e in _events(coarse, sun_up).events if e["class"] == "solar_iii"]
+    b = [e for e in _events(fine, sun_up, cfg_with()).events if e["class"] == "solar_iii"]
+    assert len(a) == len(b) == 1
+    assert a[0]["drift_mhz_s"] == pytest.approx(b[0]["drift_mhz_s"], rel=0.1)
+    assert parse_iso(a[0]["start_utc"]) == pytest.approx(parse_iso(b[0]["start_utc"]), abs=2.0)
+    assert a[0]["bandwidth_mhz"] == pytest.approx(b[0]["bandwidth_mhz"], rel=0.1)
