@@ -93,6 +93,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                 help="recording: SigMF, or the sample format of a raw file"),
         "recording_center_hz": Key(NUMBER, 0.0, min=0, help="recording (raw): centre frequency, Hz"),
         "recording_start_utc": Key(str, "", help="recording (raw): ISO 8601 UTC time of the first sample"),
+        "sim_rfi": Key(str, "rural", choices=("quiet-rural", "rural", "residential", "city"),
+                       help="simulated: man-made noise category (ITU-R P.372) and its local interference"),
+        "sim_seed": Key(int, 0, min=0, help="simulated: seed of the simulated sky and noise (same seed, same sky)"),
     },
     "spectra": {
         "fmin_mhz": Key(NUMBER, 16.0, min=1, max=60, help="Lower band edge, MHz"),

@@ -463,22 +463,25 @@ class SimulatedReceiver:
     fast as samples can be made. ``hours``: a finite simulation (then ``EndOfStream``).
     The sky model is planned a day at a time, so a receiver can run for weeks.
     ``truth_rows()`` lists what the sky held so far, measured on the archive grid.
+    ``seed`` and ``rfi`` default to ``[receiver] sim_seed`` and ``sim_rfi``.
     """
 
     kind = "simulated"
     paced = True
 
-    def __init__(self, cfg, start_unix: float | None = None, seed: int = 0, realtime: bool = True,
-                 cu8: bool = True, rfi: str = "rural", hours: float | None = None, include=None, inject=None,
+    def __init__(self, cfg, start_unix: float | None = None, seed: int | None = None, realtime: bool = True,
+                 cu8: bool = True, rfi: str | None = None, hours: float | None = None, include=None, inject=None,
                  jupiter_schedule=None, event_rate: float = 1.0, clock=time.time, sleep=time.sleep):
         from rxlog import receiver
 
         self._receiver = receiver
         self.cfg = cfg
         self.start_unix = None if start_unix is None else float(start_unix)
-        self.seed, self.realtime, self.cu8 = int(seed), bool(realtime), bool(cu8)
+        rx = cfg["receiver"]
+        self.seed = int(rx["sim_seed"] if seed is None else seed)
+        self.realtime, self.cu8 = bool(realtime), bool(cu8)
         self.paced = self.realtime
-        self.rfi = sky.check_rfi_category(rfi)
+        self.rfi = sky.check_rfi_category(rx["sim_rfi"] if rfi is None else rfi)
         self.hours = hours
         self.options = dict(include=include, inject=inject, jupiter_schedule=jupiter_schedule, event_rate=event_rate)
         self.clock, self.sleep = clock, sleep
@@ -570,14 +573,15 @@ class SimulatedReceiver:
         self._gen = gen
 
 
-def write_simulation(cfg, start_unix: float, hours: float, out, iq: bool = False, seed: int = 0,
-                     rfi: str = "rural", center_hz: float | None = None, progress=None) -> dict:
+def write_simulation(cfg, start_unix: float, hours: float, out, iq: bool = False, seed: int | None = None,
+                     rfi: str | None = None, center_hz: float | None = None, progress=None) -> dict:
     """Simulate and write: FITS spectra (one file for ``out`` ending in .fits, else the
     archive's layout under the folder ``out``) or a SigMF recording (``iq``), plus the
     truth CSV beside it. ``progress(done, total)`` is called per chunk. Returns a summary
-    (paths, rows or samples, truth rows)."""
+    (paths, rows or samples, truth rows). ``seed``/``rfi`` default to [receiver] sim_seed/sim_rfi."""
     out = Path(out)
-    sky.check_rfi_category(rfi)
+    seed = int(cfg["receiver"]["sim_seed"] if seed is None else seed)
+    rfi = sky.check_rfi_category(cfg["receiver"]["sim_rfi"] if rfi is None else rfi)
     if iq:
         return _write_iq(cfg, start_unix, hours, out, seed, rfi, center_hz, progress)
     from rxlog import archive

@@ -16,10 +16,10 @@ from rxlog.cli.base import UserError, parse_time_option, station_command
 @click.option("--out", "out", required=True, type=click.Path(), metavar="PATH",
               help="Spectra: a folder (archive layout) or a .fits file; --iq: the SigMF base name.")
 @click.option("--iq", is_flag=True, help="Write IQ samples (SigMF, cu8) at one tuning instead of spectra.")
-@click.option("--seed", default=0, show_default=True, type=int, help="Same seed, same sky and noise.")
-@click.option("--rfi", default="rural", show_default=True,
-              type=click.Choice(["quiet-rural", "rural", "residential", "city"]),
-              help="Man-made noise category (ITU-R P.372) and the local interference that goes with it.")
+@click.option("--seed", type=click.IntRange(min=0), help="Same seed, same sky and noise (default: [receiver] sim_seed).")
+@click.option("--rfi", type=click.Choice(["quiet-rural", "rural", "residential", "city"]),
+              help="Man-made noise category (ITU-R P.372) and the local interference that goes with it "
+                   "(default: [receiver] sim_rfi).")
 @click.option("--center-mhz", type=float, metavar="MHZ", help="--iq: the tuning (default: middle of the band).")
 def simulate_command(cfg, start, hours, out, iq, seed, rfi, center_mhz):
     """Simulate what the station would record, and write down what was put in the sky.

@@ -1,0 +1,99 @@
+"""Simulator: a 12-hour night of spectra (1 s x 1024 channels) and IQ samples at 2.4 MS/s.
+
+The night is the default station at 47.5 N, 8.7 E, a December night (18:00-06:00 UTC),
+rural interference, every event class: planning (ephemeris, sky model) plus drawing
+plus noise, in 10-minute chunks as ``iter_spectra`` hands them out. IQ: cu8 samples at
+one tuning from ``IQGenerator.read`` in 1-s reads, on a busy daytime band (city
+interference, broadcast carriers) and a quiet night; and complex64 through
+``SimulatedReceiver.read`` as the logger would take them.
+
+    python -m benchmarks simulator
+"""
+
+from __future__ import annotations
+
+import tempfile
+import time
+from pathlib import Path
+
+from rxlog import simulator, sky
+from rxlog.config import config_from_text
+from rxlog.timeutil import parse_iso
+
+NIGHT = parse_iso("2026-12-01T18:00:00Z")
+DAY = parse_iso("2026-12-02T11:00:00Z")
+RATE = 2.4e6
+CONFIG = """
+[station]
+name = "bench"
+latitude_deg = 47.5
+longitude_deg = 8.7
+elevation_m = 450.0
+"""
+
+
+def _night(cfg) -> tuple[float, float, int]:
+    t = time.perf_counter()
+    run = simulator.iter_spectra(cfg, NIGHT, 12.0, seed=1, rfi="rural")
+    t_plan = time.perf_counter() - t
+    rows = sum(s.n_time for s in run)
+    truth = run.truth_rows()
+    return time.perf_counter() - t, t_plan, rows + 0 * len(truth)
+
+
+def _iq(cfg, t0, rfi, center, seconds=10) -> float:
+    model = sky.SkyModel(cfg, t0, t0 + seconds + 5, seed=1, rfi=rfi)
+    gen = simulator.IQGenerator(model, t0, center, RATE, simulator.system_psd_per_kelvin(cfg), seed=1)
+    gen.read(int(RATE) // 10)
+    t = time.perf_counter()
+    for _ in range(seconds):
+        gen.read(int(RATE))
+    return seconds / (time.perf_counter() - t)
+
+
+def _bare_reference(seconds=3) -> float:
+    """The least any generator must do: complex normals and an inverse FFT per sample."""
+    import numpy as np
+    import scipy.fft
+
+    rng = np.random.default_rng(0)
+    t = time.perf_counter()
+    for _ in range(seconds):
+        x = rng.standard_normal(2 * int(RATE), dtype=np.float32).view(np.complex64)
+        scipy.fft.ifft(x.reshape(-1, 8192), axis=-1, overwrite_x=True, workers=1)
+    return seconds / (time.perf_counter() - t)
+
+
+def _receiver(cfg, seconds=5) -> float:
+    rx = simulator.SimulatedReceiver(cfg, start_unix=NIGHT, seed=1, realtime=False)
+    rx.open()
+    rx.read(int(RATE) // 10)
+    t = time.perf_counter()
+    for _ in range(seconds * 4):
+        rx.read(int(RATE) // 4)
+    return seconds / (time.perf_counter() - t)
+
+
+def run() -> list[tuple]:
+    with tempfile.TemporaryDirectory() as tmp:
+        cfg = config_from_text(CONFIG, Path(tmp) / "station.toml")
+        simulator.iter_spectra(cfg, NIGHT, 0.01)         # astropy's tables load once per process
+        t_night, t_plan, rows = _night(cfg)
+        day = _iq(cfg, DAY, "city", 21.6e6)
+        night = _iq(cfg, NIGHT + 6 * 3600, "rural", 20.0e6)
+        rx = _receiver(cfg)
+        bare = _bare_reference()
+    return [
+        ("12-h night spectra, 1 s x 1024 ch (all stages)", t_night, "s", "<= 10", t_night <= 10.0),
+        ("  of which planning the night's sky", t_plan, "s", "-", True),
+        ("  rows drawn", rows, "rows", "43200", rows == 43200),
+        ("IQ cu8 at 2.4 MS/s, daytime broadcast band, city", day, "x real time", ">= 20", day >= 20.0),
+        ("IQ cu8 at 2.4 MS/s, night, rural", night, "x real time", ">= 20", night >= 20.0),
+        ("SimulatedReceiver.read complex64 (as fast as possible)", rx, "x real time", "-", True),
+        ("reference: bare normals + 8192-pt inverse FFT, same run", bare, "x real time", "-", True),
+    ]
+
+
+if __name__ == "__main__":
+    for row in run():
+        print(row)
