@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sys
+
 import click
 
 from rxlog.cli.base import parse_time_option, station_command
@@ -28,7 +30,7 @@ def detect_command(cfg, start, end):
 
     t0 = parse_time_option(start, "--start")
     t1 = parse_time_option(end, "--end")
-    with click.progressbar(length=1000, label="detecting", file=click.get_text_stream("stderr")) as bar:
+    with click.progressbar(length=1000, label="detecting", file=sys.stderr) as bar:
         def progress(done_s, total_s):
             bar.update(int(1000 * done_s / max(total_s, 1e-9)) - bar.pos)
 
