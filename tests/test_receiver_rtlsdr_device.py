@@ -109,7 +109,9 @@ def fake_device(serials=("00000001",), open_errno=None, refuse_rates=(), rf_tone
             self.n += n
             if clock is not None:
                 clock.t += n / self.rate            # a read returns when its samples have arrived
-            x = 0.3 * np.exp(2j * np.pi * (rf_tone_hz - self.center) * t)
+            # the tuner's filters pass only what lies within the sampled band
+            inside = abs(rf_tone_hz - self.center) < 0.45 * self.rate
+            x = 0.3 * inside * np.exp(2j * np.pi * (rf_tone_hz - self.center) * t)
             x += 0.02 * (self.rng.normal(size=n) + 1j * self.rng.normal(size=n))
             iq = np.empty(2 * n)
             iq[0::2], iq[1::2] = x.real, x.imag
@@ -222,3 +224,27 @@ def test_a_dongle_that_stops_delivering_is_reported_lost(tmp_path):
     with pytest.raises(ReceiverLost, match="stopped delivering"):
         for _ in range(20):
             src.read(16384)
+
+
+def test_sweep_over_the_device_retunes_it_and_stitches_the_tone(tmp_path):
+    from rxlog.sweep import SweepPlan, Sweeper
+
+    cfg = config_from_text("[station]\nname='t'\nlatitude_deg=47\nlongitude_deg=8\n"
+                           "[receiver]\nkind='rtlsdr'\ndirect_sampling='q'\n[sweep]\nring_s=0\n", tmp_path / "w.toml")
+    clock = HostClock()
+    dev = fake_device(rf_tone_hz=22.7e6, clock=clock)
+    src = open_source(cfg, device_class=dev, monotonic=clock.monotonic, realtime=clock.realtime)
+    plan = SweepPlan.from_config(cfg)
+    sw = Sweeper(src, plan, Channelizer(cfg))
+    sw.open()
+    out = []
+    while sum(d.n_time for d in out) < 2:
+        out += sw.step()
+    sw.close()
+    tuned = [c[1] for c in dev.instances[0].calls if c[0] == "set_center_freq"]
+    assert set(int(round(f)) for f in plan.tunings_hz) <= set(tuned)
+    for d in out:
+        assert d.meta["mode"] == "sweep" and d.meta["gain_db"] == 29.7
+        row = d.power_db[-1]
+        assert abs(d.freq_hz[int(np.nanargmax(row))] - 22.7e6) < 8e3
+        assert np.isfinite(row).all()                       # the whole band, stitched
