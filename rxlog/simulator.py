@@ -40,7 +40,7 @@ from rxlog.spectrum import FLAG_UNCOVERED, DynamicSpectrum
 from rxlog.timeutil import iso
 
 SYSTEM_GAIN_DB = 57.0       # antenna to ADC at gain_db 0: a rural band at ~8 counts rms with the default 30 dB
-NOISE_BLOCK_ROWS = 64       # noise is seeded per block of rows counted from the run start
+NOISE_BLOCK_ROWS = 64       # noise is seeded per block of rows counted from the epoch
 TRUTH_FIELDS = ("station", "event_id", "class", "start_utc", "end_utc", "peak_utc", "fmin_mhz", "fmax_mhz",
                 "peak_excess_db", "drift_mhz_s", "source_region", "reason")
 MIN_TRUTH_DB = 0.01
@@ -98,9 +98,11 @@ class SpectralRun:
     noise-free mean power.
     """
 
-    def __init__(self, cfg, start_unix: float, hours: float, seed: int = 0, rfi: str = "rural",
+    def __init__(self, cfg, start_unix: float, hours: float, seed: int | None = None, rfi: str | None = None,
                  jupiter_schedule=None, include=None, inject=None, event_rate: float = 1.0,
                  noise: bool = True, chunk_s: float = 600.0):
+        seed = int(cfg["receiver"]["sim_seed"] if seed is None else seed)
+        rfi = cfg["receiver"]["sim_rfi"] if rfi is None else rfi
         if not hours > 0:
             raise RxlogError(f"hours: expected a positive number, got {hours!r}")
         self.cfg = cfg
@@ -154,6 +156,8 @@ class SpectralRun:
         """Gamma(K)/K per cell, seeded per block of rows so any chunking draws the same values."""
         k = np.where(self.layout.covered, self.layout.samples, 1.0)
         shapes, inv = np.unique(k, return_inverse=True)    # a few distinct values: scalar draws are faster
+        base = int(math.floor(self.start / self.cadence + 0.5))    # rows counted from the epoch:
+        i0, i1 = i0 + base, i1 + base                                # consecutive runs never share noise
         b0, b1 = i0 // NOISE_BLOCK_ROWS, (i1 - 1) // NOISE_BLOCK_ROWS
         g = np.empty(((b1 - b0 + 1) * NOISE_BLOCK_ROWS, k.size), dtype=np.float32)
         for b in range(b0, b1 + 1):
@@ -255,12 +259,13 @@ def _open_path(model, e, t0, t1):
     return float(t[ok][0]), float(min(t1, t[ok][-1] + sky.NODE_S / 4))
 
 
-def iter_spectra(cfg, start_unix: float, hours: float, seed: int = 0, rfi: str = "rural",
+def iter_spectra(cfg, start_unix: float, hours: float, seed: int | None = None, rfi: str | None = None,
                  jupiter_schedule=None, include=None, inject=None, event_rate: float = 1.0,
                  noise: bool = True, chunk_s: float = 600.0) -> SpectralRun:
     """Simulated dynamic spectra in chunks (bounded memory); see ``SpectralRun``.
 
-    ``rfi``: quiet-rural | rural | residential | city (ITU-R P.372 categories).
+    ``rfi``: quiet-rural | rural | residential | city (ITU-R P.372 categories); ``seed``
+    and ``rfi`` default to ``[receiver] sim_seed`` and ``sim_rfi``.
     ``include``: event classes to generate naturally (default all; ``()`` for background
     only). ``event_rate`` scales natural solar rates and Jovian storm chances.
     ``inject``: list of dicts like ``dict(class='solar_iii', t='2026-12-02T10:00:00Z',
@@ -273,7 +278,7 @@ def iter_spectra(cfg, start_unix: float, hours: float, seed: int = 0, rfi: str =
                        include=include, inject=inject, event_rate=event_rate, noise=noise, chunk_s=chunk_s)
 
 
-def simulate_spectra(cfg, start_unix: float, hours: float, seed: int = 0, rfi: str = "rural",
+def simulate_spectra(cfg, start_unix: float, hours: float, seed: int | None = None, rfi: str | None = None,
                      jupiter_schedule=None, include=None, inject=None, event_rate: float = 1.0,
                      noise: bool = True) -> tuple[DynamicSpectrum, list[dict]]:
     """The whole span as one DynamicSpectrum, and its truth rows (see ``iter_spectra``)."""
@@ -340,7 +345,7 @@ class IQGenerator:
         self._zeros = np.zeros(self.n)
         self.count = 0                    # samples handed out since t0
         self.count_made = 0               # samples generated since t0 (a retune drops the rest of a batch)
-        self._block = 0                   # blocks generated (seeds the noise)
+        self._block = 0                   # blocks generated (the spectrum is re-evaluated every IQ_PSD_BLOCKS)
         self._buf = None
         self._events = [e for e in model.events if not isinstance(e, sky.Impulses)]
         self._impulses = [e for e in model.events if isinstance(e, sky.Impulses)]
@@ -368,7 +373,8 @@ class IQGenerator:
         if self._amp is None or self._block - self._amp_block >= IQ_PSD_BLOCKS:
             self._amp = self._amplitudes(t_start + 0.5 * IQ_PSD_BLOCKS * self.n / self.rate)
             self._amp_block = self._block
-        rng = np.random.default_rng([self.seed, self.model.sid, 9, self._block])
+        first = int(round(t_start * self.rate))       # absolute sample index: a restart never repeats noise
+        rng = np.random.default_rng([self.seed, self.model.sid, 9, first])
         idx = rng.integers(0, 65536, size=(IQ_BATCH, 2 * self.n), dtype=np.uint16)
         x = np.take(_gauss_table(), idx).view(np.complex64)
         x *= self._amp
@@ -417,10 +423,12 @@ class IQGenerator:
         return np.concatenate(parts) if len(parts) > 1 else parts[0].copy()
 
 
-def simulate_iq(cfg, start_unix: float, seconds: float, center_hz: float, rate_hz: float, seed: int = 0,
-                cu8: bool = True, rfi: str = "rural", include=None, inject=None, jupiter_schedule=None,
+def simulate_iq(cfg, start_unix: float, seconds: float, center_hz: float, rate_hz: float, seed: int | None = None,
+                cu8: bool = True, rfi: str | None = None, include=None, inject=None, jupiter_schedule=None,
                 event_rate: float = 1.0) -> np.ndarray:
     """``seconds`` of samples at one tuning: uint8 interleaved I/Q (``cu8``) or complex64."""
+    seed = int(cfg["receiver"]["sim_seed"] if seed is None else seed)
+    rfi = cfg["receiver"]["sim_rfi"] if rfi is None else rfi
     n = int(round(seconds * rate_hz))
     if n <= 0:
         raise RxlogError(f"seconds: expected a positive duration, got {seconds!r}")

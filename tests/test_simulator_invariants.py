@@ -43,6 +43,16 @@ def test_chunk_size_does_not_change_the_spectra(cfg):
     assert runs[0].truth_rows() == runs[1].truth_rows()
 
 
+def test_a_run_split_in_two_gives_the_same_spectra(cfg):
+    # the sky is planned per UTC day and the noise seeded by absolute row: the logger's
+    # successive runs join without a seam and never repeat their noise
+    whole, _ = simulator.simulate_spectra(cfg, NIGHT, 0.2, seed=6)
+    first, _ = simulator.simulate_spectra(cfg, NIGHT, 0.1, seed=6)
+    second, _ = simulator.simulate_spectra(cfg, NIGHT + 360, 0.1, seed=6)
+    np.testing.assert_array_equal(whole.power_db, np.concatenate([first.power_db, second.power_db]))
+    assert not np.array_equal(first.power_db - first.power_db.mean(0), second.power_db - second.power_db.mean(0))
+
+
 @pytest.mark.parametrize("spec", [
     {"class": "solar_iii", "peak_excess_db": 2.5},
     {"class": "solar_ii", "peak_excess_db": 4.0, "drift_mhz_s": -0.1},
