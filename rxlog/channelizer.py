@@ -461,8 +461,6 @@ class Channelizer:
 
     def _start_row(self, row: int):
         n = self.fft_size
-        if self._done and self._done[-1][4] == self._key and row <= self._done[-1][0]:
-            row = self._done[-1][0] + 1      # never emit a row twice (a clock step backwards)
         self._row = row
         self._acc = {"s1": np.zeros(n), "m": 0, "k1": np.zeros(n), "k2": np.zeros(n), "km": 0}
 
@@ -479,6 +477,10 @@ class Channelizer:
         sk = np.full(n_chan, np.nan, dtype=np.float32) if self.kurtosis else None
         if acc["m"] < MIN_ROW_FILL * self.frames_per_row(rate) or not m.chans.size:
             return          # too few frames: the row is a gap (filled as such between rows)
+        last = self._done[-1] if self._done else (
+            None if self._last_emitted is None else (self._last_emitted[1], None, None, None, self._last_emitted[0]))
+        if last is not None and last[4] == self._key and row <= last[0]:
+            return          # times went back (a host clock step): never hand out a row twice
         with np.errstate(divide="ignore"):
             power[m.chans] = 10 * np.log10(m.to_channels(acc["s1"] / acc["m"]))
         flags[m.chans] = 0

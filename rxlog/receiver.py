@@ -27,7 +27,6 @@ CLOCK_REALTIME (NTP) for UTC.
 from __future__ import annotations
 
 import collections
-import datetime as dt
 import json
 import logging
 import math
@@ -41,7 +40,7 @@ from pathlib import Path
 import numpy as np
 
 from rxlog.errors import RxlogError
-from rxlog.timeutil import iso, parse_iso
+from rxlog.timeutil import parse_iso
 
 log = logging.getLogger("rxlog.receiver")
 

@@ -108,3 +108,16 @@ def test_ring_is_the_same_whatever_the_blocks():
     assert a.cadence_s <= 0.002
     assert a.t0 == b.t0 and a.n_time == b.n_time > 500
     np.testing.assert_allclose(a.power_db, b.power_db, atol=0.02, equal_nan=True)   # float16 storage
+
+
+def test_times_stepping_back_never_repeat_a_row():
+    """A host clock stepped back by NTP makes block times jump back: no row is handed out twice."""
+    ch = Channelizer(freq_hz=GRID, cadence_s=0.25)
+    out = []
+    n = 120_000
+    for k in range(X.size // n):
+        t = T0 + k * n / RATE - (0.6 if k >= 16 else 0.0)      # a 0.6-s step back at block 16
+        out += ch.feed(SampleBlock(X[k * n:(k + 1) * n], t, CENTER, RATE, 20.0, "s"))
+    out += ch.flush()
+    starts = [round(p.t0 / 0.25) + r for p in out for r in range(p.n_time)]
+    assert starts == sorted(set(starts))
