@@ -47,6 +47,7 @@ MIN_TRUTH_DB = 0.01
 IQ_BLOCK = 8192             # samples per generated block (frequency-domain synthesis)
 IQ_BATCH = 8                # blocks per FFT call
 IQ_PSD_BLOCKS = 32          # blocks between evaluations of the sky's spectrum (~0.11 s at 2.4 MS/s)
+S_BURST_SHARE = 0.7        # of an S-burst storm's mean power carried by the bursts themselves in IQ mode
 DC_OFFSET = 0.006 + 0.004j  # full scale: the RTL2832U's residual DC at the tuned centre (common practice)
 
 
@@ -220,7 +221,10 @@ def calibrate_injections(model, layout: CellLayout, start: float, cadence: float
         else:
             r = 10 ** (peak(e, i0, i1, 1.0, others) / 10) - 1
             if r <= 0:
-                raise RxlogError(f"inject {e.cls} at {iso(e.t_start)}: not visible on the archive grid")
+                where = {"sun": ": is the Sun up there then?", "jupiter": ": is Jupiter up there then?",
+                         "skywave": ": is the path open then (the MUF is low at night)?"}
+                raise RxlogError(f"inject {e.cls} at {iso(e.t_start)}: not received on the archive grid"
+                                 f"{where.get(e.source, '')}")
             e.scale = (10 ** (target / 10) - 1) / r
 
 
@@ -349,6 +353,9 @@ class IQGenerator:
         self._buf = None
         self._events = [e for e in model.events if not isinstance(e, sky.Impulses)]
         self._impulses = [e for e in model.events if isinstance(e, sky.Impulses)]
+        self._sstorms = [e for e in self._events if isinstance(e, sky.JovianStorm) and e.params["s_bursts"]]
+        self._bursts: list = []           # S-bursts in flight: (start, f0, drift, length, amplitude, phase)
+        self._s_power = 0.0
         self.tune(center_hz)
 
     def tune(self, center_hz: float) -> None:
@@ -360,11 +367,37 @@ class IQGenerator:
         self.count_made = self.count
 
     def _amplitudes(self, t_mid: float) -> np.ndarray:
+        """Per-bin amplitudes (FFT order) for the sky at ``t_mid``; also finds the carrier
+        lines (drawn as steady tones, not noise) and the S-burst power budget."""
         frame = IQ_PSD_BLOCKS * self.n / self.rate
         g = sky.Grid(np.array([t_mid]), self.freq, self._zeros, frame, self.rate / self.n)
-        total, _ = sky.render(self.model, g, events=self._events)
-        p = total[0].astype(np.float64) * self.psd_per_k * self.rate      # variance per bin
+        plain = [e for e in self._events if e not in self._sstorms]
+        total, background = sky.render(self.model, g, events=plain)
+        total = total[0].astype(np.float64)
+        self._s_power = 0.0
+        for e in self._sstorms:
+            if e.r_t0 <= t_mid <= e.r_t1:
+                with_s, bg = sky.render(self.model, g, events=[e])
+                storm = (with_s - bg)[0].astype(np.float64)
+                total += (1 - S_BURST_SHARE) * storm
+                # the rest arrives as S-bursts: mean power over the window (variance units)
+                self._s_power += S_BURST_SHARE * float(storm.mean()) * self.psd_per_k * self.rate
+                self._s_storm = e
+        p = total * self.psd_per_k * self.rate      # variance per bin
         a = np.sqrt(self.n * p) * (127.5 if self.cu8 else 1.0)
+        bins, phases = [], []
+        df = self.rate / self.n
+        for e in plain:
+            fc = e.params.get("fc")
+            if fc is None or not (isinstance(e, sky.Spur) or e.params.get("line_share", 0) > 0):
+                continue
+            if not (e.t_start <= t_mid < e.t_end) or abs(fc - self.center) >= self.rate / 2 - df:
+                continue
+            j = int(round((fc - self.freq[0]) / df))
+            bins.append((j + self.n // 2) % self.n)
+            phases.append(2 * np.pi * ((fc * 0.618034e-3) % 1.0))
+        self._line_bins = np.asarray(bins, dtype=np.int64)
+        self._line_phasors = np.exp(1j * np.asarray(phases)).astype(np.complex64)
         return np.fft.ifftshift(a).astype(np.float32)
 
     def _next_block(self) -> np.ndarray:
@@ -377,11 +410,14 @@ class IQGenerator:
         rng = np.random.default_rng([self.seed, self.model.sid, 9, first])
         idx = rng.integers(0, 65536, size=(IQ_BATCH, 2 * self.n), dtype=np.uint16)
         x = np.take(_gauss_table(), idx).view(np.complex64)
+        if self._line_bins.size:
+            x[:, self._line_bins] = self._line_phasors      # bin-centred tones: phase-continuous blocks
         x *= self._amp
         dc = DC_OFFSET * (127.5 if self.cu8 else 1.0) + (128.0 + 128.0j if self.cu8 else 0.0)
         x[:, 0] += np.complex64(self.n * dc)
         y = self._fft.ifft(x, axis=-1, overwrite_x=True, workers=1).reshape(-1)
         self._add_impulses(y, t_start, rng)
+        self._add_sbursts(y, t_start, rng)
         self._block += IQ_BATCH
         self.count_made += y.size
         if not self.cu8:
@@ -389,6 +425,51 @@ class IQGenerator:
         v = y.view(np.float32)
         np.clip(v, 0.0, 255.999, out=v)
         return v.astype(np.uint8)
+
+    def _mean_time_in(self, drift_mhz_s: float) -> float:
+        """Mean time an S-burst (as drawn below) spends inside the window (Monte Carlo, fixed draws)."""
+        r = np.random.default_rng(0)
+        f0 = r.uniform(-0.5, 1.0, 4000) * self.rate
+        ext = r.uniform(1e6, 4e6, 4000)
+        inside = np.clip(np.minimum(f0, self.rate / 2) - np.maximum(f0 - ext, -self.rate / 2), 0, None)
+        return float(np.mean(inside / (abs(drift_mhz_s) * 1e6 * r.uniform(0.8, 1.2, 4000))))
+
+    def _add_sbursts(self, y, t_start, rng):
+        """Jovian S-bursts: narrowband chirps drifting at the storm's -10..-25 MHz/s,
+        a few milliseconds at any one frequency (Zarka's reviews; from memory), arriving
+        at the storm's rate and carrying S_BURST_SHARE of its mean power."""
+        dur = y.size / self.rate
+        if self._s_power > 0:
+            e = self._s_storm
+            p = e.params
+            n_new = rng.poisson(p["s_rate"] * dur)
+            for ts in t_start + np.sort(rng.uniform(0, dur, n_new)):
+                fdot = p["s_drift"] * 1e6 * rng.uniform(0.8, 1.2)
+                extent = rng.uniform(1e6, 4e6)
+                f0 = self.center + rng.uniform(-0.5, 1.0) * self.rate
+                # time the chirp spends inside the window, for the power budget
+                lo, hi = max(f0 - extent, self.center - self.rate / 2), min(f0, self.center + self.rate / 2)
+                amp2 = 2.0 * self._s_power / (p["s_rate"] * self._mean_time_in(p["s_drift"])) * \
+                    rng.lognormal(0, 0.5) ** 2 / math.e ** 0.5
+                if hi > lo:
+                    self._bursts.append((ts, f0, fdot, extent / abs(fdot), math.sqrt(amp2), rng.uniform(0, 2 * np.pi)))
+        keep = []
+        scale = 127.5 if self.cu8 else 1.0
+        t_end = t_start + dur
+        for b in self._bursts:
+            ts, f0, fdot, length, amp, ph = b
+            # inside the window while f0 + fdot (t - ts) is within centre +- rate/2
+            t_a = max(ts, t_start, ts + (f0 - (self.center + self.rate / 2)) / -fdot)
+            t_b = min(ts + length, t_end, ts + (f0 - (self.center - self.rate / 2)) / -fdot)
+            if t_b > t_a:
+                i0, i1 = int((t_a - t_start) * self.rate), int(math.ceil((t_b - t_start) * self.rate))
+                tt = t_start + np.arange(i0, i1) / self.rate - ts
+                phase = 2 * np.pi * ((f0 - self.center) * tt + 0.5 * fdot * tt * tt) + ph
+                env = np.sin(np.pi * np.clip(tt / length, 0, 1))
+                y[i0:i1] += (amp * scale * env * np.exp(1j * phase)).astype(np.complex64)
+            if ts + length > t_end:
+                keep.append(b)
+        self._bursts = keep
 
     def _add_impulses(self, y, t_start, rng):
         t_end = t_start + y.size / self.rate

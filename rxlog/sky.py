@@ -841,10 +841,9 @@ class SkyModel:
             raise RxlogError(f"jupiter_schedule[{i}]: end must be after start")
         region = s.get("region", "Io-B")
         rng = np.random.default_rng([self.seed, int(t0), 36])
-        return self.make_storm(rng, t0, t1, region, float(s.get("s20", 60.0)), bool(s.get("s_bursts", False)),
-                               visible_only=False)
+        return self.make_storm(rng, t0, t1, region, float(s.get("s20", 60.0)), bool(s.get("s_bursts", False)))
 
-    def make_storm(self, rng, t0, t1, region, s20, s_bursts, visible_only=True):
+    def make_storm(self, rng, t0, t1, region, s20, s_bursts):
         spec = REGION_STORMS.get(region, OTHER_REGION)
         fmax_em = spec["fmax"]
         lo, hi = self.fmin, min(self.fmax, fmax_em * 1e6 * 0.98)
@@ -985,9 +984,10 @@ class SkyModel:
 
         Optional keys: fmin_mhz/fmax_mhz (Type III start/end frequencies), drift_mhz_s
         (Type II at 20 MHz, ionosonde), duration_s (Jovian storm, carrier), kind
-        ('carrier', 'impulse', 'chirp' for class rfi). The event is placed as asked,
-        whatever the sky; its amplitude is set so the peak excess over the background
-        equals ``peak_excess_db`` on the archive grid (negative for a fadeout).
+        ('carrier': a local transmitter, 'impulse', 'chirp': a distant ionosonde, for class
+        rfi). The event is placed as asked; its amplitude is set so the peak excess over
+        the background equals ``peak_excess_db`` on the archive grid (negative for a
+        fadeout). A solar burst needs the Sun up, a storm Jupiter, a chirp an open path.
         """
         from rxlog.timeutil import parse_iso
         cls = spec.get("class")
@@ -1020,7 +1020,8 @@ class SkyModel:
             kind = spec.get("kind", "impulse")
             if kind == "carrier":
                 fc = spec.get("fmin_mhz", 20.5) * 1e6
-                e = self._carrier(rng, "injected carrier", fc, 3e3, t, t + float(spec.get("duration_s", 600.0)), 0.0, 0.5)
+                e = self._carrier(rng, "injected carrier", fc, 3e3, t, t + float(spec.get("duration_s", 600.0)), 0.0, 0.5,
+                                  path="local")
             elif kind == "chirp":
                 e = self._chirp(t, spec.get("drift_mhz_s", 0.1) * 1e6, 0.0)
             elif kind == "impulse":
