@@ -3,7 +3,8 @@ bare batched scipy.fft power spectrum of the same samples in the same run; peak 
 while ingesting a 2 GB recording.
 
 Both pipelines run on one core (scipy.fft workers=1) over the same 8 s of noise-like cu8
-samples, fed in chunks of 2^20 samples, best of three. rxlog's figure is its default
+samples, fed in chunks of 2^20 samples, best of three, timed in CPU seconds of this
+process (the wall clock is printed too: on a shared host it also counts other work). rxlog's figure is its default
 configuration (Hann window, 1024-point frames, spectral kurtosis on, mapping onto the
 station's 1024 channels); the bare pipeline converts cu8 to complex64, windows, FFTs,
 squares and averages -- nothing else. The memory figure is the peak RSS
@@ -45,13 +46,17 @@ def _noise_cu8(n_samples: int, seed: int = 1) -> np.ndarray:
     return np.clip(np.round(rng.normal(127.5, 20.0, 2 * n_samples)), 0, 255).astype(np.uint8)
 
 
-def _best(f, repeat=3) -> float:
-    best = np.inf
+def _best(f, repeat=3) -> tuple[float, float]:
+    """Best (CPU seconds, wall seconds) of ``repeat`` runs.
+
+    CPU time of this process is the figure for "one core": on a shared machine the wall
+    clock also counts the time other processes held the core."""
+    cpu = wall = np.inf
     for _ in range(repeat):
-        t = time.perf_counter()
+        c, t = time.process_time(), time.perf_counter()
         f()
-        best = min(best, time.perf_counter() - t)
-    return best
+        cpu, wall = min(cpu, time.process_time() - c), min(wall, time.perf_counter() - t)
+    return cpu, wall
 
 
 def _rxlog_cu8(raw: np.ndarray) -> None:
@@ -130,16 +135,17 @@ def run():
     peak_mb, hwm_mb, rows, t_big = _peak_memory_mb()
     raw = _noise_cu8(SECONDS * RATE)
     x = to_complex64(raw, "cu8")
-    t_rxlog = _best(lambda: _rxlog_cu8(raw))
-    t_bare = _best(lambda: _bare(raw))
-    t_blocks = _best(lambda: _rxlog_blocks(x))
-    t_ring = _best(lambda: _rxlog_blocks(x, ring_s=120.0), repeat=1)
+    (t_rxlog, w_rxlog), (t_bare, w_bare) = _best(lambda: _rxlog_cu8(raw)), _best(lambda: _bare(raw))
+    t_blocks, _ = _best(lambda: _rxlog_blocks(x))
+    t_ring, _ = _best(lambda: _rxlog_blocks(x, ring_s=120.0), repeat=1)
     x_rxlog, x_bare = SECONDS / t_rxlog, SECONDS / t_bare
     ratio = x_rxlog / x_bare
     return [
-        ("cu8 2.4 MS/s -> 1024-ch 1-s spectra", x_rxlog, "x real time", f">= {TARGET_X:g}", x_rxlog >= TARGET_X),
-        ("bare batched scipy.fft power spectrum", x_bare, "x real time", "reference", True),
+        ("cu8 2.4 MS/s -> 1024-ch 1-s spectra (CPU)", x_rxlog, "x real time", f">= {TARGET_X:g}", x_rxlog >= TARGET_X),
+        ("bare batched scipy.fft power spectrum (CPU)", x_bare, "x real time", "reference", True),
         ("rxlog / bare throughput", ratio, "ratio", f">= {TARGET_RATIO:g}", ratio >= TARGET_RATIO),
+        ("  same two by wall clock", f"{SECONDS / w_rxlog:.1f} / {SECONDS / w_bare:.1f}", "x real time",
+         "info (shared host)", True),
         ("complex64 blocks of 16384 (live path)", SECONDS / t_blocks, "x real time", "info", True),
         ("same with 120-s cutout ring", SECONDS / t_ring, "x real time", "info (live needs 1)", SECONDS / t_ring > 1),
         ("peak RSS ingesting 2 GB recording", peak_mb, "MB", f"<= {TARGET_MB:g}", peak_mb <= TARGET_MB),
