@@ -265,7 +265,9 @@ class Sweeper:
             block = self._discard(seg, j, slot_t0)
             if slot_t0 is None:
                 # the cycle starts on the next slot whose first dwell this block can still make
-                slot = math.ceil((block.t0 - p.dwell_offsets_s[0]) / p.cycle_s - 0.5 / p.buffer_samples)
+                # (up to one buffer late)
+                late_ok = p.buffer_samples / p.rate_hz
+                slot = math.ceil((block.t0 - p.dwell_offsets_s[0] - late_ok) / p.cycle_s)
                 if self._slot is not None:
                     slot = max(slot, self._slot + 1)
                 self._slot = slot
