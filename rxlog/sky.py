@@ -286,11 +286,12 @@ def _fading(t, freqs_hz, phases):
 
 
 def _smooth_mod(t, periods, phases, depth):
-    """A positive slow modulation with mean ~1: exp(depth * sum sin / sqrt(n))."""
+    """A positive slow modulation with mean ~1: exp(depth * sum sin / sqrt(n)); the sum
+    has variance 1/2, so exp(-depth^2 / 4) takes out the lognormal mean."""
     s = np.zeros(np.shape(t))
     for p, ph in zip(periods, phases):
         s = s + np.sin(2 * np.pi * t / p + ph)
-    return np.exp(depth * s / math.sqrt(len(periods)) - 0.5 * depth ** 2 / 2)
+    return np.exp(depth * s / math.sqrt(len(periods)) - depth ** 2 / 4)
 
 
 def _band_overlap(f, df, lo, hi):
@@ -916,8 +917,8 @@ class SkyModel:
         loc = LOCAL_RFI[self.rfi]
         mains = 120.0 if self.lon < -30 else 100.0
         for t in self._random_times(rng, t_day, rng.poisson(loc["arcing"] * 24)):
-            d = rng.uniform(10, 300)
-            times = t + np.arange(0, d, 1 / mains) + rng.normal(0, 2e-4, int(math.ceil(d * mains)))[:len(np.arange(0, d, 1 / mains))]
+            k = np.arange(0, rng.uniform(10, 300), 1 / mains)      # a pulse each half cycle of the mains
+            times = t + k + rng.normal(0, 2e-4, k.size)
             out.append(self._impulses("power-line arcing", np.sort(times), rng.uniform(1e5, 3e6), 1e-4))
         for t in self._random_times(rng, t_day, rng.poisson(loc["impulses"] * 24 + 2.0)):
             out.append(self._impulses("broadband impulse", np.array([t]), math.exp(rng.uniform(math.log(1e8), math.log(3e10))), 2e-4))
