@@ -237,6 +237,8 @@ def truth_rows(model: sky.SkyModel, peaks: dict, start: float, end: float) -> li
         db = 10 * math.log10(pk[0])
         if abs(db) < MIN_TRUTH_DB:
             continue
+        if e.t_end <= start or e.t_start >= end:
+            continue              # only a faint tail (below a tenth of its peak) falls in the span
         t0, t1 = max(e.t_start, start), min(e.t_end, end)
         if e.source == "skywave" and e.cls == "rfi":
             t0, t1 = _open_path(model, e, t0, t1)

@@ -719,7 +719,7 @@ class SkyModel:
         out = []
         for tg in self._random_times(rng, t_day, rng.poisson(per_day)):
             n = 1 + rng.poisson(3)
-            level = _powerlaw(rng, 1.8, 30.0, 3e4)
+            level = _powerlaw(rng, 1.8, 100.0, 1e5)
             for tb in tg + np.sort(rng.uniform(0, rng.uniform(10, 180), n)):
                 out.append(self.make_type3(rng, tb, level * rng.lognormal(0, 0.5)))
         return out
@@ -1097,12 +1097,14 @@ def render(model: SkyModel, grid: Grid, peaks: dict | None = None, events=None):
         if ia < ib and ca < cb:
             subs.append((e, ia, ib, ca, cb))
     fade = None
+    own = {}
     for e, ia, ib, ca, cb in subs:
         if e.cls == "fadeout":
             a = e.absorption_db(t_rows[ia:ib, None] + off[None, ca:cb], f[None, ca:cb])
             if fade is None:
                 fade = np.zeros_like(gal)
             fade[ia:ib, ca:cb] += a
+            own[id(e)] = a
     if fade is not None:
         fade = (10 ** (-fade / 10)).astype(np.float32)
         background = h * (fade * gal + mm) + np.float32(RECEIVER_NOISE_K)
@@ -1111,9 +1113,11 @@ def render(model: SkyModel, grid: Grid, peaks: dict | None = None, events=None):
     total = background.copy()
     for e, ia, ib, ca, cb in subs:
         if e.cls == "fadeout":
-            if peaks is not None:
-                b0 = h[:, ca:cb] * (gal[ia:ib, ca:cb] + mm[ia:ib, ca:cb]) + RECEIVER_NOISE_K
-                _track(peaks, e, background[ia:ib, ca:cb] / b0, t_rows[ia:ib, None] + off[None, ca:cb], f[ca:cb], low=True)
+            if peaks is not None:     # this fadeout's own dip, whatever others overlap it
+                g, m = gal[ia:ib, ca:cb], mm[ia:ib, ca:cb]
+                b0 = h[:, ca:cb] * (g + m) + RECEIVER_NOISE_K
+                b1 = h[:, ca:cb] * (g * 10 ** (-own[id(e)] / 10) + m) + RECEIVER_NOISE_K
+                _track(peaks, e, b1 / b0, t_rows[ia:ib, None] + off[None, ca:cb], f[ca:cb], low=True)
             continue
         tt = t_rows[ia:ib, None] + off[None, ca:cb]
         ff = f[None, ca:cb]
