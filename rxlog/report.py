@@ -200,14 +200,31 @@ def _freq_bins(cfg) -> np.ndarray:
     return np.linspace(sp["fmin_mhz"], sp["fmax_mhz"], n + 1)
 
 
-def _accumulate(sums, counts, row_bin, chan_bin, power, valid, n_bins_t):
-    """Add ``power[valid]`` into sums/counts at (row_bin[row], chan_bin[chan]) with one bincount."""
-    n_fb = sums.shape[1]
-    ok = valid & (row_bin[:, None] >= 0) & (row_bin[:, None] < n_bins_t) & (chan_bin[None, :] >= 0)
-    idx = (row_bin[:, None] * n_fb + chan_bin[None, :])[ok]
-    size = sums.size
-    sums += np.bincount(idx, weights=power[ok], minlength=size).reshape(sums.shape)
-    counts += np.bincount(idx, minlength=size).reshape(counts.shape)
+def display_channels(power, valid, chan_bin, n_fb):
+    """Sum valid cells into display channels: (sums, counts), each (n_rows, n_fb).
+
+    ``chan_bin[c]`` is channel c's display bin (-1: outside the band). One product with
+    a sparse 0/1 matrix does it for any channel order.
+    """
+    from scipy.sparse import csr_matrix
+
+    ok = chan_bin >= 0
+    m = csr_matrix((np.ones(int(ok.sum()), np.float32), (np.flatnonzero(ok), chan_bin[ok])),
+                   shape=(len(chan_bin), n_fb))
+    x = np.where(valid, power, np.float32(0))
+    return np.asarray(x @ m), np.asarray(valid.astype(np.float32) @ m)
+
+
+def add_rows(sums, counts, row_bin, x, n):
+    """Add rows of display-channel sums ``x`` and counts ``n`` into time bins ``row_bin``
+    (rising with the row; bins outside 0..len(sums)-1 are dropped), one block sum per bin."""
+    r0, r1 = np.searchsorted(row_bin, [0, sums.shape[0]])
+    if r1 <= r0:
+        return
+    rb = row_bin[r0:r1]
+    starts = np.flatnonzero(np.r_[True, rb[1:] != rb[:-1]])
+    sums[rb[starts]] += np.add.reduceat(x[r0:r1], starts, axis=0)
+    counts[rb[starts]] += np.add.reduceat(n[r0:r1], starts, axis=0)
 
 
 def _merge(intervals):
@@ -299,7 +316,8 @@ def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=Non
             chan_bin = np.searchsorted(f_edges, seg.freq_hz / 1e6, side="right") - 1
             chan_bin[(chan_bin < 0) | (chan_bin >= n_fb)] = -1
             row_bin = np.floor((times - night.t0) / width).astype(np.int64)
-            _accumulate(sums, counts, row_bin, chan_bin, power, valid, n_tb)
+            xs, ns = display_channels(power, valid, chan_bin, n_fb)
+            add_rows(sums, counts, row_bin, xs, ns)
             # Coverage: runs of rows with any data, each row lasting one cadence.
             row_has = have.any(axis=1)
             if row_has.any():
@@ -315,10 +333,11 @@ def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=Non
                 acc = data.hourly_masked.setdefault(float(h), [0.0, 0.0])
                 acc[0] += float(n_masked[sel].sum()); acc[1] += float(n_have[sel].sum())
             for z in active:
-                if z.b <= times[0] or z.a >= times[-1] + seg.cadence_s:
+                r0, r1 = np.searchsorted(times, [z.a, z.b])
+                if r1 <= r0:
                     continue
-                zb = np.floor((times - z.a) / (z.t_edges[1] - z.t_edges[0])).astype(np.int64)
-                _accumulate(z.sums, z.counts, zb, chan_bin, power, valid, len(z.t_edges) - 1)
+                zb = np.floor((times[r0:r1] - z.a) / (z.t_edges[1] - z.t_edges[0])).astype(np.int64)
+                add_rows(z.sums, z.counts, zb, xs[r0:r1], ns[r0:r1])
         if on_zoom is not None:
             still = []
             for z in active:
@@ -642,25 +661,31 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
             ax.plot(seg_c, seg_i, color="#444444", linewidth=1.0, linestyle=(0, (4, 3)))
         handles.append(ax.plot([], [], color="#444444", linewidth=1.0, linestyle=(0, (4, 3)),
                                label="this night, Jupiter up")[0])
-    shown, labelled = set(), []
-    for i, e in events:
-        c, p = e.get("cml3_deg"), e.get("io_phase_deg")
-        if c is None or p is None:
-            continue
-        colour = CLASS_COLOURS[e["class"]]
+    # One scatter call per class, the start-to-end motion as one line collection.
+    from matplotlib.collections import LineCollection
+    pts = [(i, e) for i, e in events if e.get("cml3_deg") is not None and e.get("io_phase_deg") is not None]
+    segs, seg_colours = [], []
+    for i, e in pts:
         cs, ce = e.get("cml3_start_deg"), e.get("cml3_end_deg")
         ps, pe_ = e.get("io_phase_start_deg"), e.get("io_phase_end_deg")
         if None not in (cs, ce, ps, pe_) and abs(ce - cs) < 180 and abs(pe_ - ps) < 180:
-            ax.plot([cs, ce], [ps, pe_], color=colour, linewidth=2.5, solid_capstyle="round",
-                    path_effects=None)
-        ax.scatter([c], [p], s=36, color=colour, edgecolors="black", linewidths=0.8, zorder=3,
-                   label=None if e["class"] in shown else LABEL_NAMES[e["class"]])
-        shown.add(e["class"])
-        # Numbers as on the page, where they do not pile up on each other.
+            segs.append([(cs, ps), (ce, pe_)])
+            seg_colours.append(CLASS_COLOURS[e["class"]])
+    if segs:
+        ax.add_collection(LineCollection(segs, colors=seg_colours, linewidths=2.5, capstyle="round"))
+    shown = sorted({e["class"] for _, e in pts}, key=CLASSES.index)
+    for cls in shown:
+        xy = np.array([(e["cml3_deg"], e["io_phase_deg"]) for _, e in pts if e["class"] == cls])
+        ax.scatter(xy[:, 0], xy[:, 1], s=36, color=CLASS_COLOURS[cls], edgecolors="black", linewidths=0.8,
+                   zorder=3)
+    # Numbers as on the page, where they do not pile up on each other.
+    labelled = []
+    for i, e in pts:
+        c, p = e["cml3_deg"], e["io_phase_deg"]
         if all(abs(c - c2) > 6 or abs(p - p2) > 6 for c2, p2 in labelled):
             ax.annotate(str(i + 1), (c, p), xytext=(4, 3), textcoords="offset points", fontsize=7)
             labelled.append((c, p))
-    for cls in sorted(shown, key=CLASSES.index):
+    for cls in shown:
         handles.append(ax.scatter([], [], s=36, color=CLASS_COLOURS[cls], edgecolors="black",
                                   linewidths=0.8, label=LABEL_NAMES[cls]))
     ax.set_xlim(0, 360); ax.set_ylim(0, 360)
@@ -668,8 +693,7 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
     ax.set_xlabel("central meridian longitude, System III (deg)")
     ax.set_ylabel("Io phase, geocentric (deg)")
     ax.grid(True, color="#cccccc", linewidth=0.5)
-    n = sum(1 for _, e in events if e.get("cml3_deg") is not None)
-    ax.set_title(f"Jovian candidates, night of {night.name}: {n}", loc="left", fontsize=11)
+    ax.set_title(f"Jovian candidates, night of {night.name}: {len(pts)}", loc="left", fontsize=11)
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), fontsize=8, frameon=False)
     fig.savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
     return path
@@ -805,9 +829,11 @@ class ZoomPlotter:
         self.canvas.restore_region(frame)
         for a in self.dynamic:
             self.fig.draw_artist(a)
+        # A 256-colour palette (viridis itself has 256 entries) keeps a noisy zoom near 60 kB
+        # instead of 250 kB in full colour, and is quicker to write.
         w, h = self.canvas.get_width_height()
         Image.frombuffer("RGBA", (w, h), self.canvas.buffer_rgba(), "raw", "RGBA", 0, 1).convert("RGB") \
-            .save(path, format="PNG", compress_level=1)
+            .quantize(colors=256, method=Image.Quantize.FASTOCTREE).save(path, format="PNG", compress_level=6)
         return path
 
 
@@ -1206,7 +1232,7 @@ def read_cutout(cfg, ev: dict):
     row_bin = np.floor((spec.times - spec.t0) / (t_edges[1] - t_edges[0])).astype(np.int64)
     valid = np.isfinite(spec.power_db) & ((spec.flags & DISPLAY_FLAGS) == 0)
     sums, counts = np.zeros((n_t, n_f)), np.zeros((n_t, n_f))
-    _accumulate(sums, counts, row_bin, chan_bin, spec.power_db, valid, n_t)
+    add_rows(sums, counts, row_bin, *display_channels(spec.power_db, valid, chan_bin, n_f))
     import warnings
     with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)

@@ -202,6 +202,38 @@ def test_label_with_the_token_is_saved_at_once_with_history(server, night):
     assert rows[eid]["label"] == "unsure"
 
 
+def _listed(srv) -> dict:
+    status, _, body = request(srv, "GET", "/api/events")
+    assert status == 200
+    return {r["event_id"]: r for r in json.loads(body)["events"]}
+
+
+def test_event_list_follows_labels_saved_elsewhere(server, night):
+    # A label from the shell (rxlog label) while the page is open shows on the next read.
+    cfg, n, events = night
+    eid = events[2]["event_id"]
+    assert _listed(server)[eid]["label"] != "solar_ii"
+    store = EventStore(cfg.store_path)
+    store.add_label(eid, "solar_ii", who="cli")
+    store.close()
+    assert (_listed(server)[eid]["label"], _listed(server)[eid]["label_who"]) == ("solar_ii", "cli")
+
+
+def test_event_list_after_page_labels_is_what_the_store_says(server, night):
+    cfg, n, events = night
+    token = page_token(server)
+    for e, lab in zip(events, ["noise", "jovian_l", "unsure"]):
+        assert post_label(server, token, e["event_id"], label=lab)[0] == 200
+    store = EventStore(cfg.store_path)
+    try:
+        expected = {r["event_id"]: (r["label"], r["label_note"], r["label_who"], r["label_utc"])
+                    for r in store.events(n.t0, n.t1)}
+    finally:
+        store.close()
+    listed = _listed(server)
+    assert {k: (r["label"], r["label_note"], r["label_who"], r["label_utc"]) for k, r in listed.items()} == expected
+
+
 def test_token_is_per_server_session(night):
     cfg, n, events = night
     a, b = ReviewServer(cfg, n, port=0), ReviewServer(cfg, n, port=0)
