@@ -202,6 +202,19 @@ def _galactic_relative(l_deg, b_deg):
 
 N_RINGS = 18   # zenith-angle rings of 5 degrees
 
+# ICRS -> Galactic rotation (the Hipparcos definition, ESA 1997 vol. 1 sec. 1.5.3, as astropy
+# uses it; matrix from memory, checked against astropy in the tests).
+_GALACTIC = np.array([[-0.0548755604162154, -0.8734370902348850, -0.4838350155487132],
+                      [+0.4941094278755837, -0.4448296299600112, +0.7469822444972189],
+                      [-0.8676661490190047, -0.1980763734312015, +0.4559837761750669]])
+
+
+def icrs_to_galactic_deg(ra_deg, dec_deg):
+    """Galactic longitude and latitude (degrees) of ICRS directions."""
+    ra, dec = np.radians(ra_deg), np.radians(dec_deg)
+    g = _GALACTIC @ np.stack([np.cos(dec) * np.cos(ra), np.cos(dec) * np.sin(ra), np.sin(dec)])
+    return np.mod(np.degrees(np.arctan2(g[1], g[0])), 360.0), np.degrees(np.arcsin(np.clip(g[2], -1, 1)))
+
 
 @functools.lru_cache(maxsize=8)
 def _sky_rings(lat_deg: float):
@@ -209,19 +222,14 @@ def _sky_rings(lat_deg: float):
 
     Returns (W, ring_zenith_deg): W[k, r] for LST = k degrees is the share of the
     beam-averaged sky temperature (relative units, full-sky mean 1) that arrives from
-    ring r. Fibonacci points on the sphere; the ICRS -> Galactic rotation is the IAU
-    1958 definition as used by astropy (Hipparcos J2000 frame; matrix from memory).
+    ring r. Fibonacci points on the sphere, put in Galactic coordinates by
+    ``icrs_to_galactic_deg``.
     """
     n = 4000
     i = np.arange(n) + 0.5
     dec = np.arcsin(1 - 2 * i / n)
     ra = np.mod(np.pi * (1 + 5 ** 0.5) * i, 2 * np.pi)
-    xyz = np.stack([np.cos(dec) * np.cos(ra), np.cos(dec) * np.sin(ra), np.sin(dec)])
-    rot = np.array([[-0.0548755604162154, -0.8734370902348850, -0.4838350155487132],
-                    [+0.4941094278755837, -0.4448296299600112, +0.7469822444972189],
-                    [-0.8676661490190047, -0.1980763734312015, +0.4559837761750669]])
-    g = rot @ xyz
-    t_rel = _galactic_relative(np.degrees(np.arctan2(g[1], g[0])), np.degrees(np.arcsin(np.clip(g[2], -1, 1))))
+    t_rel = _galactic_relative(*icrs_to_galactic_deg(np.degrees(ra), np.degrees(dec)))
     t_rel = t_rel / t_rel.mean()
     phi = np.radians(lat_deg)
     lst = np.radians(np.arange(361.0))[:, None]
@@ -270,11 +278,9 @@ class Event:
             self.r_t0, self.r_t1, self.r_f0, self.r_f1 = self.t_start, self.t_end, self.f_lo, self.f_hi
 
     def shape(self, t, f, dwell, df):
+        """Excess antenna temperature (K) on a grid of times ``t`` and frequencies ``f``
+        (broadcastable arrays), for cells integrating ``dwell`` s over bins ``df`` Hz wide."""
         raise NotImplementedError
-
-    def absorption_db(self, t, f):
-        """Extra absorption (dB) on the sky path; only fadeouts have one."""
-        return None
 
 
 def _fading(t, freqs_hz, phases):
@@ -376,10 +382,8 @@ class Fadeout(Event):
                         np.exp(-np.clip(x - p["rise"], 0, None) / p["decay"])) * (x >= 0)
 
     def absorption_db(self, t, f):
+        """Extra absorption (dB) of the sky path; drawn as a factor, not as a power."""
         return self.scale * self.params["a20"] * self.envelope(t) * (20e6 / f) ** 2
-
-    def shape(self, t, f, dwell, df):
-        return None
 
 
 class JovianStorm(Event):
@@ -542,9 +546,6 @@ class SkyModel:
     def node_interp(self, key_or_array, t):
         arr = self.geo[key_or_array] if isinstance(key_or_array, str) else key_or_array
         return np.interp(t, self.node_t, arr)
-
-    def sun_up(self, t):
-        return self.node_interp("sun_alt_deg", t) > 0.0
 
     def bandpass(self, f_hz):
         f = np.asarray(f_hz, dtype=np.float64)

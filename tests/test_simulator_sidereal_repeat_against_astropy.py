@@ -62,3 +62,14 @@ def test_night_background_repeats_after_a_sidereal_day(model):
     best = lags[int(np.argmin(err))]
     assert abs(best - sidereal_day) <= 10.0, (best, sidereal_day)
     assert min(err) < 0.2 * err[list(lags).index(86400.0)]
+
+
+def test_galactic_coordinates_match_astropy():
+    from astropy.coordinates import SkyCoord
+
+    rng = np.random.default_rng(2)
+    ra, dec = rng.uniform(0, 360, 200), np.degrees(np.arcsin(rng.uniform(-1, 1, 200)))
+    gal = SkyCoord(ra=ra * u.deg, dec=dec * u.deg, frame="icrs").galactic
+    l, b = sky.icrs_to_galactic_deg(ra, dec)
+    assert np.abs((l - gal.l.deg + 180) % 360 - 180).max() < 1e-4
+    assert np.abs(b - gal.b.deg).max() < 1e-4
