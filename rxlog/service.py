@@ -61,6 +61,7 @@ DISK_CHECK_S = 1.0              # look at free space at most this often
 DISK_RETRY_S = 5.0              # after a pause, wait at least this long before archiving again
 CLOCK_SYNC_CHECK_S = 60.0       # ask timedatectl/chronyc at most this often
 RETENTION_EVERY_S = 86400.0     # prune old spectra once a day
+OVERLAP_TOL = 1e-4              # of a cadence: rows this close are contiguous (the archive's own tolerance)
 STOP_JOIN_S = 2.0               # how long a stop waits for the feed thread
 CLOCK_STEPS_ENV = "RXLOG_FAKE_CLOCK_STEPS"   # test hook, see Clock.from_env
 
@@ -240,6 +241,7 @@ class Logger:
         self._resume_above_mb = 0.0
         self.clock_epoch = 0
         self.last_end: float | None = None     # end of the latest data accepted (POSIX s)
+        self._last_segment = ""
         self.segments: dict[str, dict] = {}    # segment rows to upsert at the next flush
         self.pending_events: list[dict] = []   # events the store could not take yet
         self.pending_episodes: list[dict] = []
@@ -321,16 +323,20 @@ class Logger:
     def _take(self, spec: DynamicSpectrum):
         self.counts.spectra_received += spec.n_time
         # Never overlap what is already written: after a backward clock step (or a restart
-        # behind the previous run's data) drop rows that start before the latest end.
+        # behind the previous run's data) drop rows that start before the latest end. The
+        # next rows of the same segment may start a hair early (float rounding of a
+        # continuous time line) and are kept; a new segment must start at or after it.
+        name = self._segment_name(spec)
         if self.last_end is not None:
-            times = spec.times
-            keep = int(np.searchsorted(times, self.last_end - 1e-3 * spec.cadence_s, side="left"))
+            tol = OVERLAP_TOL * spec.cadence_s if name == self._last_segment else 0.0
+            keep = int(np.searchsorted(spec.times, self.last_end - tol, side="left"))
             if keep:
                 self.counts.spectra_overlap_dropped += min(keep, spec.n_time)
                 if keep >= spec.n_time:
                     return
                 spec = spec.slice_rows(keep, spec.n_time)
-        spec.segment = self._segment_name(spec)
+        spec.segment = name
+        self._last_segment = name
         if spec.segment not in self.segments:
             log.info("segment %s: spectra from %s, %d channels every %g s", spec.segment, iso(spec.t0),
                      spec.n_chan, spec.cadence_s)
@@ -477,7 +483,7 @@ class Logger:
         cum = (int(getattr(self.feed, "samples_received", 0)), int(getattr(self.feed, "samples_dropped", 0)),
                self.queue_dropped)
         d_rx, d_drop, d_queue = (a - b for a, b in zip(cum, self._last_cumulative))
-        row = {"station": self.station, "time_utc": iso(self.clock.realtime()),
+        row = {"station": self.station, "time_utc": self._health_time(),
                "interval_s": round(now - self._last_health, 3),
                "samples_received": d_rx, "samples_dropped": d_drop,
                "queue_depth": self.queue.qsize(), "cpu_percent": round(self.cpu.percent(), 2),
@@ -501,6 +507,22 @@ class Logger:
         self.notifier.status(f"{self.receiver_state}; raw spectra {raw}; {self.totals['events']} events; "
                              f"disk {row['disk_free_mb']:.0f} MB free; clock {row['clock_sync']}")
 
+    def _health_time(self) -> str:
+        """Now, in ISO text; after a backward clock step 'now' can repeat an earlier row's time
+        to the millisecond, and health rows are keyed by time: move on by 1 ms until free."""
+        t = self.clock.realtime()
+        for _ in range(1000):
+            text = iso(t)
+            try:
+                taken = self.store.db.execute("select 1 from health where station = ? and time_utc = ?",
+                                              [self.station, text]).fetchone()
+            except sqlite3.Error:
+                return text
+            if not taken:
+                return text
+            t += 0.001
+        return text
+
     def _notable(self, text: str, level=logging.INFO):
         """Log something the morning reviewer should know and record it in a health row at once."""
         log.log(level, "%s", text)
@@ -513,9 +535,10 @@ class Logger:
         self.clock_epoch += 1
         self.totals["clock_steps"] += 1
         self.counts.clock_step_s += step
+        then = (f"rows before {iso(self.last_end)} will be dropped so data never overlap"
+                if step < 0 and self.last_end is not None else "the data jump with it")
         self._notable(f"clock step {step:+.3f} s at {iso(self.clock.realtime())} (wall clock against "
-                      f"monotonic); new segment; rows before {iso(self.last_end or 0)} are dropped",
-                      level=logging.WARNING)
+                      f"monotonic); new segment; {then}", level=logging.WARNING)
 
     def _maybe_prune(self):
         if self.prune is None or (self._prune_thread and self._prune_thread.is_alive()):
@@ -760,6 +783,7 @@ class SpectraFeed:
         self._runs = 0
         self._run = None
         self._i = 0
+        self._shift = 0.0
         self.samples_received = self.samples_dropped = 0
 
     def open(self):
@@ -805,7 +829,12 @@ class SpectraFeed:
         if self.paced:
             while (wait := spec.t_end - self._sim_now()) > 0:
                 time.sleep(min(wait, 0.25))
-            spec.t0 += (self.clock.realtime() - self.clock.monotonic()) - self._offset0
+            # The two clocks are read microseconds apart: follow their offset only when it
+            # moved by more than that jitter, so consecutive chunks stay on one time line.
+            shift = (self.clock.realtime() - self.clock.monotonic()) - self._offset0
+            if abs(shift - self._shift) > 1e-3:
+                self._shift = shift
+            spec.t0 += self._shift
         return [spec]
 
     def close(self):

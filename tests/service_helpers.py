@@ -133,7 +133,7 @@ def health_rows(store_path: Path) -> list[dict]:
     conn = sqlite3.connect(f"file:{store_path}?mode=ro", uri=True)
     conn.row_factory = sqlite3.Row
     try:
-        return [dict(r) for r in conn.execute("select * from health order by time_utc")]
+        return [dict(r) for r in conn.execute("select * from health order by rowid")]
     finally:
         conn.close()
 
