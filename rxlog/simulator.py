@@ -550,8 +550,8 @@ class SimulatedReceiver:
     """The ``simulated`` receiver kind: the receiver-source interface over IQGenerator.
 
     ``start_unix`` (default: the time of ``open()``) is the sky time of the first sample.
-    ``realtime``: reads wait for the wall clock like a dongle; otherwise they return as
-    fast as samples can be made. ``hours``: a finite simulation (then ``EndOfStream``).
+    ``realtime``: reads wait for the wall clock like a dongle (``paced``); otherwise they
+    return as fast as samples can be made. ``hours``: a finite simulation (then ``EndOfStream``).
     The sky model is planned a day at a time, so a receiver can run for weeks.
     ``truth_rows()`` lists what the sky held so far, measured on the archive grid.
     ``seed`` and ``rfi`` default to ``[receiver] sim_seed`` and ``sim_rfi``.
@@ -570,12 +570,12 @@ class SimulatedReceiver:
         self.start_unix = None if start_unix is None else float(start_unix)
         rx = cfg["receiver"]
         self.seed = int(rx["sim_seed"] if seed is None else seed)
-        self.realtime, self.cu8 = bool(realtime), bool(cu8)
-        self.paced = self.realtime
+        self.paced, self.cu8 = bool(realtime), bool(cu8)
         self.rfi = sky.check_rfi_category(rx["sim_rfi"] if rfi is None else rfi)
         self.hours = hours
         self.options = dict(include=include, inject=inject, jupiter_schedule=jupiter_schedule, event_rate=event_rate)
         self.clock, self.sleep = clock, sleep
+        self.realtime = clock             # the wall clock, under the name live sources give it
         self.rate_hz = float(cfg["receiver"]["sample_rate_hz"])
         self.gain_db = float(cfg["receiver"]["gain_db"])
         sp = cfg["spectra"]
@@ -623,7 +623,7 @@ class SimulatedReceiver:
         t0 = self.start_unix + self._count / self.rate_hz
         if t0 + n / self.rate_hz > self._gen.model.end - 60.0:
             self._model_for(t0)
-        if self.realtime:
+        if self.paced:
             due = self._wall0 + (self._count + n) / self.rate_hz
             wait = due - float(self.clock())
             if wait > 0:

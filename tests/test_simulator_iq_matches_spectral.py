@@ -98,3 +98,35 @@ def test_simulated_receiver_source_contract(cfg):
     with pytest.raises(EndOfStream):
         rx.read(1000)
     rx.close()
+
+
+def test_sweep_plan_over_the_simulated_receiver_matches_spectral_mode(tmp_path):
+    # the logger's own path: SimulatedReceiver -> Sweeper (retunes, discards) -> channelizer
+    from rxlog import sweep
+
+    cfg = config_from_text("""
+[station]
+name = "sweep-test"
+latitude_deg = 47.5
+longitude_deg = 8.7
+[receiver]
+gain_db = 40.0
+[spectra]
+channels = 512
+[sweep]
+ring_s = 0
+""", tmp_path / "station.toml")
+    rx = simulator.SimulatedReceiver(cfg, start_unix=T0, seed=5, realtime=False, rfi="quiet-rural",
+                                     include=(), hours=8 / 3600)
+    plan = sweep.SweepPlan.from_config(cfg)
+    with sweep.Sweeper(rx, plan, channelizer.Channelizer(cfg, ring_s=0)) as sw:
+        rows = list(sw.spectra())
+    got = np.concatenate([r.power_db for r in rows])
+    t_first = rows[0].t0
+    spec, _ = simulator.simulate_spectra(cfg, t_first, got.shape[0] / 3600, seed=5, include=(),
+                                         rfi="quiet-rural", noise=False)
+    np.testing.assert_allclose(rows[0].chan_offset_s, spec.chan_offset_s, atol=1e-6)
+    ok = np.isfinite(got).all(axis=0)
+    assert ok.mean() > 0.95
+    d = got[:, ok].mean(axis=0) - spec.power_db[:, ok].mean(axis=0)
+    assert abs(np.median(d)) < 0.5 and np.percentile(np.abs(d), 95) < 0.5
