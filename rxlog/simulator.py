@@ -9,8 +9,12 @@ Two outputs of ``rxlog.sky.SkyModel``:
   channel is drawn at its sweep time offset within the row. Fast: nights and weeks.
 - **IQ domain** (``simulate_iq``, ``SimulatedReceiver``): complex Gaussian noise with the
   model's power spectrum, generated block by block in the frequency domain (8192-point
-  blocks, the spectrum re-evaluated every 32 blocks), optionally quantised to cu8 like
-  an RTL2832U (offset 127.5, clipping at the rails, a DC offset at the tuned centre).
+  blocks, the spectrum re-evaluated every 32 blocks, ~0.11 s), optionally quantised to
+  cu8 like an RTL2832U (offset 127.5, clipping at the rails, a DC offset at the tuned
+  centre). Carrier lines and spurs are steady tones (spectral kurtosis below 1),
+  impulses are pulses of their own width, and S-burst storms send millisecond chirps.
+  Not modelled: the RTL2832's decimation roll-off at the window edges (the channelizer
+  uses only the middle) and direct-sampling aliases from 4.8-12.8 MHz.
 
 Levels: both outputs are in the channelizer's units. The receiver chain gives
 k_B T x 10^((gain_db + SYSTEM_GAIN_DB) / 10) full-scale^2 per hertz; the channelizer's
