@@ -181,8 +181,10 @@ def write_ics(windows: list[dict], path, station, stamp_unix: float | None = Non
 
     ``station`` is the ``[station]`` table (name, latitude_deg, longitude_deg) or a name.
     The file is written to a temporary name and renamed, so an existing file is never
-    left half-written.
+    left half-written. RFC 5545 (3.6) wants at least one event: no windows, no file.
     """
+    if not windows:
+        raise RxlogError(f"{path}: no forecast windows to write (an iCalendar file needs at least one event)")
     st = station if isinstance(station, dict) else {"name": str(station)}
     name = st.get("name", "station")
     stamp = _ics_time(dt.datetime.now(dt.timezone.utc).timestamp() if stamp_unix is None else stamp_unix)
@@ -337,7 +339,8 @@ def make_forecast(cfg, start_unix: float, days: float, min_jupiter_alt_deg: floa
     """Windows, their text table and, if paths are given, the iCalendar file and the plot.
 
     Output folders are checked before any work is done. Returns a dict with windows,
-    text, ics_path and plot_path (None when not asked for).
+    text, ics_path and plot_path (None when not asked for, and ics_path None when there
+    are no windows to put in a calendar).
     """
     for p in (ics_path, plot_path):
         if p is not None:
@@ -345,7 +348,7 @@ def make_forecast(cfg, start_unix: float, days: float, min_jupiter_alt_deg: floa
     windows = forecast_windows(cfg, start_unix, days, min_jupiter_alt_deg, max_sun_alt_deg, progress=progress)
     out = {"windows": windows, "text": format_forecast(windows, cfg["station"].get("timezone", "UTC")),
            "ics_path": None, "plot_path": None}
-    if ics_path is not None:
+    if ics_path is not None and windows:
         out["ics_path"] = write_ics(windows, ics_path, cfg["station"])
     if plot_path is not None:
         out["plot_path"] = plot_forecast(cfg, start_unix, days, plot_path, windows, min_jupiter_alt_deg,

@@ -141,6 +141,14 @@ def test_plot_is_a_png_and_shows_the_tracks(windows, tmp_path):
     assert dark(with_tracks) > dark(empty) + 500
 
 
+def test_no_windows_no_calendar(tmp_path):
+    with pytest.raises(RxlogError, match="no forecast windows"):
+        write_ics([], tmp_path / "e.ics", CFG["station"])
+    done = make_forecast(CFG, START, 1, max_sun_alt_deg=-90.0, ics_path=tmp_path / "e.ics")
+    assert done["windows"] == [] and done["ics_path"] is None and not (tmp_path / "e.ics").exists()
+    assert "no windows" in done["text"]
+
+
 def test_make_forecast_checks_output_folders_first(tmp_path):
     with pytest.raises(RxlogError, match="folder"):
         make_forecast(CFG, START, 1, plot_path=tmp_path / "nope" / "p.png")

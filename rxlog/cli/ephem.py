@@ -125,5 +125,7 @@ def forecast(cfg, start, days, ics_path, plot_path, min_jupiter_alt, max_sun_alt
     click.echo(done["text"])
     if done["ics_path"]:
         click.echo(f"calendar: {done['ics_path']} ({len(done['windows'])} events)")
+    elif ics_path:
+        click.echo(f"calendar: {ics_path} not written (no windows)")
     if done["plot_path"]:
         click.echo(f"plot: {done['plot_path']}")
