@@ -29,6 +29,7 @@ import json
 import math
 import time
 import urllib.parse
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from zoneinfo import ZoneInfo
@@ -278,18 +279,14 @@ def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=Non
     active: list[_Zoom] = []
 
     def finish(z: _Zoom, read_to: float):
-        with np.errstate(invalid="ignore", divide="ignore"):
-            power = z.sums / z.counts
-            mean = sums / counts
         # Background: the per-channel median of the overview minutes from an hour
         # before the event to half an hour after it (all read by now).
         lo = np.searchsorted(t_edges, z.a - 3600.0)
         hi = max(np.searchsorted(t_edges, min(z.b + 1800.0, read_to)), lo + 1)
-        with np.errstate(all="ignore"):
-            import warnings
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)
-                bg = np.nanmedian(mean[lo:hi], axis=0)
+        with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            power = z.sums / z.counts
+            bg = np.nanmedian(sums[lo:hi] / counts[lo:hi], axis=0)
         on_zoom(z.index, z.event, z.t_edges, f_edges, power, bg)
 
     # Chunks on whole UTC hours: the archive keeps one file per UTC hour.
@@ -321,8 +318,8 @@ def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=Non
             # Coverage: runs of rows with any data, each row lasting one cadence.
             row_has = have.any(axis=1)
             if row_has.any():
-                edges = np.diff(np.concatenate(([0], row_has.astype(np.int8), [0])))
-                starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+                step = np.diff(np.concatenate(([0], row_has.astype(np.int8), [0])))
+                starts, ends = np.flatnonzero(step == 1), np.flatnonzero(step == -1)
                 covered.extend(zip(times[starts], times[ends - 1] + seg.cadence_s))
             n_have = have.sum(axis=1)
             n_masked = (have & ((flags & FLAG_RFI) != 0)).sum(axis=1)
@@ -339,10 +336,9 @@ def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=Non
                 zb = np.floor((times[r0:r1] - z.a) / (z.t_edges[1] - z.t_edges[0])).astype(np.int64)
                 add_rows(z.sums, z.counts, zb, xs[r0:r1], ns[r0:r1])
         if on_zoom is not None:
-            still = []
-            for z in active:
-                (finish(z, c1) if z.b + 1800.0 <= c1 else still.append(z))
-            active = still
+            for z in [z for z in active if z.b + 1800.0 <= c1]:
+                finish(z, c1)
+            active = [z for z in active if z.b + 1800.0 > c1]
         if progress is not None:
             progress(k + 1, len(chunk_starts))
     if on_zoom is not None:
@@ -358,8 +354,6 @@ def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=Non
 
 def running_background(power: np.ndarray, block: int = BACKGROUND_BLOCK_BINS) -> np.ndarray:
     """Per-channel background following slow drifts: medians of hour blocks, linearly interpolated in time."""
-    import warnings
-
     n_t, n_f = power.shape
     n_blocks = max(1, int(math.ceil(n_t / block)))
     padded = np.full((n_blocks * block, n_f), np.nan, dtype=np.float64)
@@ -390,15 +384,7 @@ def night_summary(cfg, night: Night, events: list[dict], data: NightData, qualit
     per_class = {c: 0 for c in CLASSES}
     for e in events:
         per_class[e["class"]] = per_class.get(e["class"], 0) + 1
-    hourly = _hourly_masked(night, data, quality)
-    masked_total = (data.cells_masked / data.cells_valid) if data.cells_valid else None
-    q_rows = [q for q in quality if night.t0 - 3600 < parse_iso(q["hour_utc"]) < night.t1]
-    if q_rows and sum(q["covered_s"] or 0 for q in q_rows) > 0:
-        w = np.array([q["covered_s"] or 0.0 for q in q_rows])
-        m = np.array([q["masked_fraction"] if q["masked_fraction"] is not None else np.nan for q in q_rows])
-        ok = np.isfinite(m) & (w > 0)
-        if ok.any():
-            masked_total = float((m[ok] * w[ok]).sum() / w[ok].sum())
+    masked_total, hourly, masked_source = _masked(night, data, quality)
     windows = []
     for w in forecast:
         a, b = float(w["start"]), float(w["end"])
@@ -416,7 +402,7 @@ def night_summary(cfg, night: Night, events: list[dict], data: NightData, qualit
         "start": night.t0, "end": night.t1, "length_s": length,
         "recorded_s": data.covered_s, "uptime": data.covered_s / length if length else 0.0,
         "gaps": data.gaps(min_s=max(2.0 * float(cfg["spectra"]["cadence_s"]), 10.0)),
-        "masked_fraction": masked_total, "masked_source": "detection" if q_rows else "archive flags",
+        "masked_fraction": masked_total, "masked_source": masked_source,
         "hourly_masked": hourly,
         "n_events": len(events), "per_class": per_class,
         "n_labelled": sum(1 for e in events if e.get("label")),
@@ -426,14 +412,28 @@ def night_summary(cfg, night: Night, events: list[dict], data: NightData, qualit
     }
 
 
-def _hourly_masked(night: Night, data: NightData, quality: list[dict]) -> list[tuple[float, float]]:
-    """(hour start, masked fraction) for the night: the detector's record when there is one, else archive flags."""
-    rows = [(parse_iso(q["hour_utc"]), q["masked_fraction"]) for q in quality
-            if q["masked_fraction"] is not None]
-    rows = [(h, float(m)) for h, m in rows if night.t0 - 3600 < h < night.t1]
+def _masked(night: Night, data: NightData, quality: list[dict]):
+    """(night's masked fraction, [(hour start, fraction)], source), or (None, [], None) if unknown.
+
+    The detector records, per UTC hour, the fraction of cells its RFI mask removed; that
+    record is used when there is one. Otherwise flags stored in the archive (spectra
+    ingested with their mask) are counted. Without either, nothing is known yet.
+    """
+    rows = []
+    for q in quality:
+        h = parse_iso(q["hour_utc"])
+        if q["masked_fraction"] is not None and night.t0 - 3600 < h < night.t1:
+            rows.append((h, float(q["masked_fraction"]), float(q["covered_s"] or 0.0)))
     if rows:
-        return sorted(rows)
-    return sorted((h, m / v) for h, (m, v) in data.hourly_masked.items() if v > 0)
+        rows.sort()
+        w = np.array([r[2] for r in rows])
+        m = np.array([r[1] for r in rows])
+        total = float((m * w).sum() / w.sum()) if w.sum() > 0 else float(m.mean())
+        return total, [(h, f) for h, f, _ in rows], "detection"
+    if data.cells_masked > 0:
+        hourly = sorted((h, mv[0] / mv[1]) for h, mv in data.hourly_masked.items() if mv[1] > 0)
+        return data.cells_masked / data.cells_valid, hourly, "archive flags"
+    return None, [], None
 
 
 def _fmt_local(night: Night, t: float, seconds=False) -> str:
@@ -458,7 +458,9 @@ def format_summary(summary: dict, night: Night) -> str:
                  f"({100 * s['uptime']:.0f} %); {len(gaps)} gap{'s' if len(gaps) != 1 else ''}"
                  + (f": {gap_text}" if gaps else ""))
     if s["masked_fraction"] is not None:
-        lines.append(f"  masked as interference: {100 * s['masked_fraction']:.1f} % ({s['masked_source']})")
+        lines.append(f"  masked as interference: {100 * s['masked_fraction']:.1f} % (from {s['masked_source']})")
+    else:
+        lines.append("  masked as interference: not measured yet (run rxlog detect over this night)")
     counts = ", ".join(f"{c} {n}" for c, n in s["per_class"].items() if n)
     lines.append(f"  events: {s['n_events']}" + (f" ({counts})" if counts else "")
                  + f"; labelled {s['n_labelled']}")
@@ -610,6 +612,9 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
         hx = _dnum([h for h, _ in hm])
         ax_q.bar(hx, [100 * m for _, m in hm], width=1 / 24, align="edge", color="#35608D",
                  edgecolor="white", linewidth=0.5)
+    else:
+        ax_q.text(0.5, 0.5, "masked fraction not measured yet (rxlog detect)", transform=ax_q.transAxes,
+                  ha="center", va="center", fontsize=9, color="#555555")
     for a, b in summary["gaps"]:
         ax_q.axvspan(_dnum(a), _dnum(b), color="#888888", alpha=0.35, linewidth=0)
     ax_q.set_ylabel("masked (%)")
@@ -810,7 +815,6 @@ class ZoomPlotter:
         self.box.set_bounds(start - mid, ev["fmin_mhz"], max(end - start, 1e-3),
                             max(ev["fmax_mhz"] - ev["fmin_mhz"], 0.02))
         self.box.set_edgecolor(CLASS_COLOURS.get(ev["class"], "#FFFFFF"))
-        import warnings
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             lc_in = np.nanmean(excess[:, inside], axis=1)
@@ -1092,7 +1096,7 @@ def render_page(cfg, night: Night, summary: dict, events: list[dict], images: di
         ("recording", f"{_fmt_hours(s['recorded_s'])} of {_fmt_hours(s['length_s'])} ({100 * s['uptime']:.0f} %)"),
         ("gaps", (", ".join(_fmt_span(night, a, b) for a, b in gaps[:8]) + (" …" if len(gaps) > 8 else ""))
          if gaps else "none"),
-        ("masked as interference", "—" if s["masked_fraction"] is None
+        ("masked as interference", "not measured yet (rxlog detect)" if s["masked_fraction"] is None
          else f"{100 * s['masked_fraction']:.1f} % (from {s['masked_source']})"),
         ("events", f"{s['n_events']} ({s['n_labelled']} labelled when this page was made)"),
         ("Jupiter up", ", ".join(_fmt_span(night, a, b) for a, b in s["jupiter_up"]) or "not up"),
@@ -1233,7 +1237,6 @@ def read_cutout(cfg, ev: dict):
     valid = np.isfinite(spec.power_db) & ((spec.flags & DISPLAY_FLAGS) == 0)
     sums, counts = np.zeros((n_t, n_f)), np.zeros((n_t, n_f))
     add_rows(sums, counts, row_bin, *display_channels(spec.power_db, valid, chan_bin, n_f))
-    import warnings
     with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
         power = sums / counts

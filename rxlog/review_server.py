@@ -28,7 +28,6 @@ import urllib.parse
 from http import HTTPStatus
 from http.cookies import SimpleCookie
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
-from pathlib import Path
 
 from rxlog.errors import RxlogError
 from rxlog.report import Night, report_dir

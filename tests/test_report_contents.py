@@ -158,6 +158,26 @@ def test_summary_counts_what_was_recorded(built):
     assert "seen" in line and "nothing seen" not in line
 
 
+def test_masked_fraction_is_the_detectors_record_weighted_by_recorded_time(built):
+    cfg, night, events, index = built
+    store = EventStore(cfg.store_path)
+    try:
+        rows = [q for q in store.quality() if q["masked_fraction"] is not None]
+    finally:
+        store.close()
+    assert rows, "detection left no quality rows"
+    w = np.array([q["covered_s"] for q in rows])
+    m = np.array([q["masked_fraction"] for q in rows])
+    expected = 100 * (m * w).sum() / w.sum()
+    assert f"masked as interference: {expected:.1f} % (from detection)" in (index.parent / "summary.txt").read_text()
+
+
+def test_masked_fraction_unknown_before_detection(tmp_path):
+    cfg, night, events = make_night(tmp_path, hours=0.3, n_bursts=1)
+    index = report.build_report(cfg, night)
+    assert "masked as interference: not measured yet" in (index.parent / "summary.txt").read_text()
+
+
 def test_report_with_events_but_no_spectra_still_lists_them(tmp_path):
     cfg, night, events = make_night(tmp_path, hours=0.5, n_bursts=3)
     shutil.rmtree(cfg.archive_dir)
