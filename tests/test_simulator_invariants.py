@@ -93,3 +93,20 @@ def test_truth_csv_round_trip(cfg, tmp_path):
     for r, b in zip(truth, back):
         assert float(b["peak_excess_db"]) == pytest.approx(r["peak_excess_db"])
         assert b["class"] in ("jovian_l", "jovian_s", "solar_iii", "solar_ii", "solar_iv", "fadeout", "rfi")
+
+
+def test_explicit_jupiter_schedule_replaces_the_predicted_storms(cfg):
+    start = parse_iso("2026-12-05T04:00:00Z")          # Jupiter ~55 deg up over 47.5 N
+    sched = [dict(start="2026-12-05T04:10:00Z", end="2026-12-05T04:30:00Z", region="Io-B", s20=100.0)]
+    _, truth = simulator.simulate_spectra(cfg, start, 1.0, include=("jovian_l", "jovian_s"),
+                                          jupiter_schedule=sched, rfi="quiet-rural")
+    (row,) = [r for r in truth if r["class"].startswith("jovian")]
+    assert (row["start_utc"], row["end_utc"]) == ("2026-12-05T04:10:00.000Z", "2026-12-05T04:30:00.000Z")
+    assert row["source_region"] == "Io-B" and row["peak_excess_db"] > 0.5
+
+
+def test_event_rate_zero_leaves_only_injected_sky_events(cfg):
+    inject = [{"class": "solar_iii", "t": DAY + 60, "peak_excess_db": 3.0}]
+    _, truth = simulator.simulate_spectra(cfg, DAY, 2.0, include=("solar_iii", "solar_ii", "solar_iv", "fadeout"),
+                                          event_rate=0.0, inject=inject, noise=False)
+    assert [r["class"] for r in truth] == ["solar_iii"]
