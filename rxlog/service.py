@@ -242,6 +242,7 @@ class Logger:
         self.clock_epoch = 0
         self.last_end: float | None = None     # end of the latest data accepted (POSIX s)
         self._last_segment = ""
+        self._gap: tuple[float, str] | None = None   # (data end, reason) while the receiver is away
         self.segments: dict[str, dict] = {}    # segment rows to upsert at the next flush
         self.pending_events: list[dict] = []   # events the store could not take yet
         self.pending_episodes: list[dict] = []
@@ -283,6 +284,8 @@ class Logger:
                     log.warning("receiver: %s; retrying in %.0f s", reason, wait)
                 else:
                     log.error("receiver: unexpected failure; retrying in %.0f s", wait, exc_info=True)
+                if is_open:
+                    self._salvage()
                 try:
                     self.feed.close()
                 except Exception:
@@ -298,11 +301,26 @@ class Logger:
                     self.stop_event.wait(min(0.2, max(0.0, deadline - self.clock.monotonic())))
                 wait = min(wait * 2, self.retry_max_s)
         if is_open:
+            self._salvage()
             try:
                 self.feed.close()
             except Exception:
                 log.warning("receiver: error while closing", exc_info=True)
         self.receiver_state = "stopped"
+
+    def _salvage(self):
+        """Queue the rows the feed still holds (the row being averaged) before it is closed."""
+        try:
+            rows = self.feed.salvage()
+        except Exception:
+            log.debug("receiver: nothing salvaged from the row in progress", exc_info=True)
+            return
+        for spec in rows:
+            if spec.n_time:
+                try:
+                    self.queue.put_nowait(spec)
+                except queue.Full:
+                    self.queue_dropped += spec.n_time
 
     def _put(self, item, block: bool):
         """Queue an item. A receiver paced at real time cannot wait: a full queue drops the chunk."""
@@ -337,6 +355,8 @@ class Logger:
                 spec = spec.slice_rows(keep, spec.n_time)
         spec.segment = name
         self._last_segment = name
+        if self._gap is not None:
+            self._note_gap(spec)
         if spec.segment not in self.segments:
             log.info("segment %s: spectra from %s, %d channels every %g s", spec.segment, iso(spec.t0),
                      spec.n_chan, spec.cadence_s)
@@ -557,11 +577,17 @@ class Logger:
     def _on_marker(self, item):
         if isinstance(item, ReceiverLost):
             self.totals["receiver_gaps"] += 1
+            # The gap in the data runs from the end of the last spectra to the first new ones.
+            self._gap = (self.last_end if self.last_end is not None else item.t_utc, item.reason)
             self._notable(f"receiver lost at {iso(item.t_utc)}: {item.reason}", level=logging.WARNING)
         elif isinstance(item, ReceiverBack):
-            self._notable(f"receiver back at {iso(item.back_utc)}; gap {iso(item.lost_utc)} to "
-                          f"{iso(item.back_utc)} ({item.back_utc - item.lost_utc:.1f} s): {item.reason}",
-                          level=logging.WARNING)
+            log.warning("receiver back at %s after %.1f s", iso(item.back_utc), item.back_utc - item.lost_utc)
+
+    def _note_gap(self, spec: DynamicSpectrum):
+        t0, reason = self._gap
+        self._gap = None
+        self._notable(f"receiver gap {iso(t0)} to {iso(spec.t0)} ({spec.t0 - t0:.1f} s), data resumed: {reason}",
+                      level=logging.WARNING)
 
     # -- the run ------------------------------------------------------------------------------
     def request_stop(self, reason: str):
@@ -737,6 +763,10 @@ class SweepFeed:
                 return rows
             raise
 
+    def salvage(self) -> list[DynamicSpectrum]:
+        """The row in progress, as far as it got (the sweeper flags what it lacks)."""
+        return self.sweeper.finish() if self.sweeper is not None else []
+
     def close(self):
         if self.sweeper is not None:
             rx, dr = self._done
@@ -836,6 +866,9 @@ class SpectraFeed:
                 self._shift = shift
             spec.t0 += self._shift
         return [spec]
+
+    def salvage(self) -> list[DynamicSpectrum]:
+        return []
 
     def close(self):
         self._run = None
