@@ -872,6 +872,7 @@ h2 { font-size: 17px; margin: 26px 0 8px; border-bottom: 1px solid var(--line); 
 table { border-collapse: collapse; }
 td, th { padding: 3px 10px 3px 0; text-align: left; vertical-align: top; }
 th { font-size: 12px; color: var(--muted); font-weight: 600; }
+table.forecast td:nth-child(-n+4), table.forecast th { white-space: nowrap; }
 img.plot { max-width: 100%; height: auto; border: 1px solid var(--line); }
 .chip { display: inline-block; padding: 0 7px; border-radius: 9px; font-size: 12px; color: #fff;
         background: #2b2f33; border: 2px solid var(--c, #888); margin: 1px 3px 1px 0; white-space: nowrap; }
@@ -1113,7 +1114,7 @@ def render_page(cfg, night: Night, summary: dict, events: list[dict], images: di
             f"<td>{100 * w['recorded_fraction']:.0f} %</td><td>"
             + (", ".join(f'<a href="#ev-{index[x]}">#{index[x]}</a>' for x in w["seen"]) or "nothing seen")
             + "</td></tr>" for w in s["forecast"])
-        forecast = ("<table><tr><th>region</th><th>window (local)</th><th>Jupiter max alt</th>"
+        forecast = ("<table class=\"forecast\"><tr><th>region</th><th>window (local)</th><th>Jupiter max alt</th>"
                     f"<th>recorded</th><th>Jovian events seen</th></tr>{frows}</table>")
     else:
         forecast = '<p class="muted">No forecast windows fell in this night.</p>'

@@ -123,6 +123,18 @@ def _touch(a, b) -> bool:
     return a[0] <= b[1] + 1.0 and b[0] <= a[1] + 1.0 and a[2] <= b[3] + 0.01 and b[2] <= a[3] + 0.01
 
 
+def check_bind(host: str, allow_remote: bool = False, access_token: str | None = None) -> None:
+    """Refuse (RxlogError) a non-loopback address without --allow-remote and a long enough access token."""
+    if is_loopback(host):
+        return
+    if not allow_remote:
+        raise RxlogError(f"refusing to serve on {host}: only loopback (127.0.0.1) is allowed unless "
+                         f"you pass --allow-remote together with --access-token")
+    if not access_token or len(access_token) < MIN_ACCESS_TOKEN:
+        raise RxlogError(f"serving on {host} needs --access-token of at least {MIN_ACCESS_TOKEN} "
+                         f"characters; every visitor must present it")
+
+
 class ReviewServer(ThreadingHTTPServer):
     """Serves ``report_dir(cfg, night)``; ``url`` is where to point a browser."""
 
@@ -130,13 +142,7 @@ class ReviewServer(ThreadingHTTPServer):
 
     def __init__(self, cfg, night: Night, host: str = "127.0.0.1", port: int = 0,
                  allow_remote: bool = False, access_token: str | None = None):
-        if not is_loopback(host):
-            if not allow_remote:
-                raise RxlogError(f"refusing to serve on {host}: only loopback (127.0.0.1) is allowed unless "
-                                 f"you pass --allow-remote together with --access-token")
-            if not access_token or len(access_token) < MIN_ACCESS_TOKEN:
-                raise RxlogError(f"serving on {host} needs --access-token of at least {MIN_ACCESS_TOKEN} "
-                                 f"characters; every visitor must present it")
+        check_bind(host, allow_remote, access_token)
         self.cfg, self.night = cfg, night
         self.root = report_dir(cfg, night).resolve()
         if not (self.root / "index.html").is_file():

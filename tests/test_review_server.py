@@ -97,6 +97,19 @@ def test_other_addresses_need_the_flag_and_a_token(night):
         ReviewServer(cfg, n, host="0.0.0.0", port=0, allow_remote=True, access_token="short")
 
 
+def test_review_command_refuses_a_remote_bind_before_building(night):
+    from click.testing import CliRunner
+    from rxlog.cli import main
+
+    cfg, n, _ = night
+    index = report.report_dir(cfg, n) / "index.html"
+    before = index.stat().st_mtime_ns
+    r = CliRunner().invoke(main, ["review", "--config", str(cfg.path), "--night", n.name, "--serve",
+                                  "--host", "0.0.0.0"])
+    assert r.exit_code == 2 and "allow-remote" in r.output
+    assert index.stat().st_mtime_ns == before
+
+
 def test_remote_server_refuses_visitors_without_the_access_token(night):
     cfg, n, _ = night
     key = "k" * 24

@@ -52,8 +52,10 @@ def review(cfg, night, serve, port, host, allow_remote, access_token):
       rxlog review --config station.toml --night 2027-02-03 --serve --port 8765
     """
     from rxlog.report import build_report, default_night, parse_night
-    from rxlog.review_server import serve_review
+    from rxlog.review_server import check_bind, serve_review
 
+    if serve:
+        check_bind(host, allow_remote, access_token)      # before the minute of work, not after
     chosen = parse_night(cfg, night) if night else default_night(cfg)
     index = build_report(cfg, chosen, progress=_Progress(f"reading the night of {chosen.name}"))
     click.echo((index.parent / "summary.txt").read_text(encoding="utf-8").rstrip())
