@@ -205,6 +205,8 @@ class ReviewHandler(BaseHTTPRequestHandler):
         self._send(status, json.dumps(obj).encode(), "application/json", {"Cache-Control": "no-store"})
 
     def _error(self, status: int, message: str):
+        # A refused request may leave a body unread: do not reuse the connection.
+        self.close_connection = True
         self._json(status, {"error": message})
 
     def _gate(self) -> bool:

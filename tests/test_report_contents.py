@@ -223,6 +223,25 @@ def test_rebuild_drops_zooms_of_events_no_longer_stored(tmp_path):
     check_links(index, parse(index))
 
 
+def test_label_survives_redetection_into_the_rebuilt_page(tmp_path):
+    cfg, night, events = make_night(tmp_path, hours=0.5, n_bursts=3)
+    store = EventStore(cfg.store_path)
+    store.add_label(events[1]["event_id"], "solar_ii", note="slow drift", who="ana")
+    # Detection re-run with other thresholds: boxes shift a little and ids change.
+    again = []
+    for e in events:
+        shifted = {k: v for k, v in e.items() if not k.startswith("label")}
+        shifted["fmin_mhz"] += 0.05
+        shifted["event_id"] += "-b"
+        again.append(shifted)
+    store.replace_events("testsite", night.t0, night.t1, again)
+    store.close()
+    index = report.build_report(cfg, night)
+    card = index.read_text().split(f'data-event-id="{again[1]["event_id"]}"')[1].split("</section>")[0]
+    assert "label: <span class=\"current-label\">Solar type II (ana)</span>" in card
+    assert 'value="slow drift"' in card
+
+
 def test_review_command_prints_the_summary_and_the_path(tmp_path):
     cfg, night, events = make_night(tmp_path, hours=0.5, n_bursts=3)
     r = CliRunner().invoke(main, ["review", "--config", str(cfg.path), "--night", night.name])
