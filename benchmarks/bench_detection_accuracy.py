@@ -8,7 +8,8 @@ chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
   bursts injected at peak excesses of 0.5, 1, 2, 4 and 8 dB among the natural interference
   of a rural site.
 * day-long-N: five such days, each with one fadeout and one Type IV continuum, the
-  fadeout N dB deep and the Type IV N dB high.
+  fadeout N dB deep (up to 4 dB: the simulated site cannot dip deeper) and the Type IV
+  N dB high.
 * night-jovian: two nights with Jupiter up, five 30-minute Jovian storms each.
 * night-rfi-city: a 12-hour night with no sky events at all and city-level interference
   (ITU-R P.372 category "city"): every non-rfi detection there is false.
@@ -40,6 +41,9 @@ PEAKS = (0.5, 1.0, 2.0, 4.0, 8.0)
 CONFIG = Path(__file__).resolve().parents[1] / "config" / "station.example.toml"
 SLACK_S, SLACK_MHZ = 5.0, 0.2
 NATURAL = ("jovian_l", "solar_iii", "solar_ii", "solar_iv", "fadeout")
+# The simulated station's receiver noise floor limits a dip: the simulator refuses an 8-dB
+# fadeout at this site (the sky is not that far above the receiver), so depths stop at 4 dB.
+MAX_FADEOUT_DB = 4.0
 
 
 def _scenarios():
@@ -54,9 +58,10 @@ def _scenarios():
     yield "day-bursts", day0, 7.0, "rural", inject
     for k, p in enumerate(PEAKS):
         d = day0 + 86400.0 * (k + 1)
-        yield (f"day-long-{p:g}", d, 7.0, "rural",
-               [{"class": "fadeout", "t": d + 1800.0, "peak_excess_db": -p},
-                {"class": "solar_iv", "t": d + 9000.0, "peak_excess_db": p}])
+        inj = [{"class": "solar_iv", "t": d + 9000.0, "peak_excess_db": p}]
+        if p <= MAX_FADEOUT_DB:
+            inj.insert(0, {"class": "fadeout", "t": d + 1800.0, "peak_excess_db": -p})
+        yield f"day-long-{p:g}", d, 7.0, "rural", inj
     for n, night in enumerate(("2026-12-01T23:00:00Z", "2026-12-03T23:00:00Z")):
         t = parse_iso(night)
         yield (f"night-jovian-{n + 1}", t, 7.0, "rural",

@@ -181,6 +181,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "episode_gap_s": Key(NUMBER, 600.0, min=0, max=86400, help="Events of one class this close in time form an episode"),
         "sun_up_deg": Key(NUMBER, 0.0, min=-18, max=30, help="The Sun counts as up above this altitude, degrees"),
         "jupiter_up_deg": Key(NUMBER, 0.0, min=-5, max=45, help="Jupiter counts as up above this altitude, degrees"),
+        "impulse_sigma": Key(NUMBER, 8.0, min=3, max=1000,
+                             help="An impulse lights a whole sweep sub-band for one time step at this significance"),
+        "impulse_gap_s": Key(NUMBER, 60.0, min=0, max=86400,
+                             help="Impulses closer than this form one impulse storm (one rfi event)"),
     },
     "regions": {
         "boxes": Key(list, _ephemeris.DEFAULT_REGION_BOXES, check=_ephemeris.check_region_boxes,

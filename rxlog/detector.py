@@ -151,8 +151,12 @@ class _Tracker:
     ``max_rows``. Finished pixels leave the buffer, so memory holds only open events.
     """
 
-    def __init__(self, n_cols: int, gap_rows: int, merge_cols: int, max_rows: int, fields: tuple):
+    def __init__(self, n_cols: int, gap_rows: int, merge_cols: int, max_rows: int, fields: tuple,
+                 col_map: np.ndarray | None = None):
         self.n_cols = n_cols
+        # column coordinate used for the frequency overlap test: always-masked columns
+        # collapse, so fragments of one burst either side of a masked range still merge
+        self.col_map = np.arange(n_cols) if col_map is None else np.asarray(col_map)
         self.gap = max(0, int(gap_rows))
         self.merge_cols = max(0, int(merge_cols))
         self.max_rows = max(1, int(max_rows))
@@ -229,7 +233,8 @@ class _Tracker:
         if k == 1:
             return [np.array([0])]
         gap_t = np.maximum(r0[:, None] - r1[None, :], r0[None, :] - r1[:, None])   # rows between
-        ov_f = (c0[:, None] <= c1[None, :] - 1 + self.merge_cols) & (c0[None, :] <= c1[:, None] - 1 + self.merge_cols)
+        a, b = self.col_map[c0], self.col_map[c1 - 1]
+        ov_f = (a[:, None] <= b[None, :] + self.merge_cols) & (a[None, :] <= b[:, None] + self.merge_cols)
         adj = (gap_t <= self.gap) & ov_f
         ii, jj = np.nonzero(np.triu(adj, 1))
         graph = coo_matrix((np.ones(len(ii)), (ii, jj)), shape=(k, k))
@@ -394,10 +399,14 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
             and bw >= 0.5 * band and ah_spread >= 2 * cad):
         return "rfi", 0.85, (f"impulsive: {bw:.1f} MHz at once, {run:.1f} s at fixed frequency, no drift"
                              + (f", {f['n_rows']} steps over {f['span_s']:.0f} s" if f["span_s"] > 3 * cad else ""))
-    if f["resolved"] and run <= max(3 * cad, 2.0) and f["inst_bw_mhz"] * 5 <= bw and abs(drift) < 1.5:
+    if (f["resolved"] and run <= max(2 * cad, 2.0) and abs(drift) <= 0.5
+            and f["inst_bw_mhz"] <= max(0.3, 3 * abs(drift) * cad)):
         return "rfi", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)"
-    if f["resolved"] and drift > 0:
-        return "rfi", 0.6, f"upward drift {drift:+.2f} MHz/s: natural bursts here drift down"
+    # Narrowness means something only where the event is not cut by the RFI mask.
+    if bw < 0.5 and f["span_s"] <= 5.0 and not f.get("truncated"):
+        return "rfi", 0.6, f"brief narrowband flash ({bw:.2f} MHz, {f['span_s']:.0f} s): no natural burst is that small"
+    if f["resolved"] and drift > 0 and not jup_up:
+        return "rfi", 0.6, f"upward drift {drift:+.2f} MHz/s: solar bursts drift down, Jupiter is not up"
 
     # -- natural bursts ----------------------------------------------------------------
     if f["resolved"] and drift < 0:
@@ -415,7 +424,8 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
         if (f["cadence_s"] <= SBURST_MAX_CADENCE_S and SBURST_DRIFT[0] <= drift <= SBURST_DRIFT[1]
                 and run <= 0.05 and jup_up is not False):
             return "jovian_s", 0.7 if jup_up else 0.4, why(f"millisecond burst drifting {drift:.1f} MHz/s", jup_txt)
-        if TYPE2_DRIFT[0] / TYPE3_FACTOR <= drift <= TYPE2_DRIFT[1] and f["span_s"] >= 60.0:
+        if (TYPE2_DRIFT[0] * TYPE3_FACTOR <= drift <= TYPE2_DRIFT[1] and f["span_s"] >= 20.0
+                and run >= 3 * cad):
             txt = f"slow drift {drift:.2f} MHz/s over {f['span_s'] / 60:.1f} min (Type II range)"
             if sun_up:
                 return "solar_ii", 0.7, why(txt, sun_txt)
@@ -500,12 +510,21 @@ class _Segment:
         self.next_slow = 0
         self.has_sk = spec.kurtosis is not None
         fields = ("ex", "sig", "raw", "sk")
+        always = np.zeros(self.n_chan, dtype=bool)
+        for r in s.static_ranges:
+            if r.get("hours_utc") is None:
+                always |= rfi.static_mask([r], self.freq, np.zeros(1))[0]
+        col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
-                             round(s.max_event_s / cad), fields)
+                             round(s.max_event_s / cad), fields, col_map=col_map)
         slow_fields = ("ex", "sig")
         gap_b = max(1, int(round(s.merge_gap_s / self.block_s)))
-        self.slow_pos = _Tracker(self.n_groups, gap_b, 1, 10 ** 9, slow_fields)
-        self.slow_neg = _Tracker(self.n_groups, gap_b, 1, 10 ** 9, slow_fields)
+        g_always = np.bincount(self.groups, weights=always.astype(float), minlength=self.n_groups) \
+            >= np.bincount(self.groups, minlength=self.n_groups)
+        g_map = np.cumsum(~g_always) - (~g_always).astype(np.int64)
+        self.slow_pos = _Tracker(self.n_groups, gap_b, 1, 10 ** 9, slow_fields, col_map=g_map)
+        self.slow_neg = _Tracker(self.n_groups, gap_b, 1, 10 ** 9, slow_fields, col_map=g_map)
+        self.always = always
         self.quality: dict[float, list[float]] = {}
         # covered band from channels that ever carry data
         self.covered = np.zeros(self.n_chan, dtype=bool)
@@ -706,7 +725,8 @@ class _Segment:
 
     def _impulses(self, j: int, z: np.ndarray, w: np.ndarray, n: int, excess: np.ndarray):
         """Cells of impulses. An anchor is a whole sub-band lit for one time step with the
-        steps either side dark (below 0.3 of it); in the anchor's step and the next, any
+        steps either side dark (below 0.3 of it), or lit with the neighbouring sub-bands dark
+        (below 0.3 of it) in the same step; for the first kind, in the anchor's step and the next, any
         0.25-MHz group lit for at most two steps is part of the same impulse (channels near
         a sub-band edge can straddle two dwells). A Type III lasts longer than that at every
         frequency (its decay is ~2 s at 20 MHz), so it is not taken. Returns (cell mask,
@@ -720,8 +740,42 @@ class _Segment:
         scale_g = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(G))), 1.0), 4.0)
         es = np.concatenate([prev_s[-1:], S, nxt_s[:1]], axis=0) / scale_s
         Sn = es[1:-1]
-        anchor = (Sn >= self.s.impulse_sigma) & (es[:-2] <= 0.3 * Sn) & (es[2:] <= 0.3 * Sn)
-        cells = np.zeros((n, self.n_chan), dtype=bool)
+        lit_t = Sn >= self.s.impulse_sigma
+        anchor = lit_t & (es[:-2] <= 0.3 * Sn) & (es[2:] <= 0.3 * Sn)
+        # A short signal caught by a sweep lights one sub-band while its neighbours, sampled
+        # a dwell earlier or later, stay dark, however many steps the pattern lasts; a
+        # natural burst is continuous across the sub-band edge (a Type III reaches the next
+        # sub-band within its decay time), so it lights the neighbours too.
+        side = np.zeros_like(anchor)
+        nsb = S.shape[1]
+        if nsb > 1:
+            nw = np.add.reduceat(w.astype(np.float32), self.sb_start, axis=1)
+            has = nw >= np.maximum(4, 0.1 * (self.sb_stop - self.sb_start))[None, :]
+            dark_or_none = np.ones_like(anchor)
+            seen = np.zeros_like(anchor)
+            for d in (-1, 1):                  # the two neighbours
+                nb = np.clip(np.arange(nsb) + d, 0, nsb - 1)
+                valid = has[:, nb] & (np.arange(nsb) + d >= 0)[None, :] & (np.arange(nsb) + d < nsb)[None, :]
+                dark_or_none &= ~valid | (Sn[:, nb] <= 0.3 * Sn)
+                seen |= valid
+            lit_prev = es[:-2] >= self.s.impulse_sigma
+            lit_next = es[2:] >= self.s.impulse_sigma
+            side = lit_t & seen & dark_or_none & ~(lit_prev & lit_next)   # lit for at most two steps
+            edge = side[:, self.sb_id]
+            # with the channels either side of the sub-band edges (they can straddle two dwells)
+            grow = max(1, int(round(0.1 / self.chan_mhz)))
+            edge = ndimage.binary_dilation(edge, structure=np.ones((1, 2 * grow + 1), dtype=bool))
+            anchor_side = side
+        else:
+            edge = np.zeros((n, self.n_chan), dtype=bool)
+            anchor_side = side
+        cells = edge.copy()
+        if anchor_side.any():
+            rr, bb = np.nonzero(anchor_side & ~anchor)
+            if len(rr):
+                lit = np.add.reduceat(w.astype(np.float32), self.sb_start, axis=1)[rr, bb]
+                exs = np.add.reduceat(np.where(w, excess, 0.0), self.sb_start, axis=1)[rr, bb]
+                self._add_impulses(j * self.R + rr, bb, Sn[rr, bb], np.where(lit > 0, exs / np.maximum(lit, 1), 0.0))
         rows = list(np.flatnonzero(anchor.any(axis=1)))
         carry = self.carry_anchor            # an anchor in the last step of the previous block
         self.carry_anchor = bool(rows) and rows[-1] == n - 1
@@ -863,12 +917,12 @@ class _Segment:
         ipk = int(np.argmax(ex))
         fmin = float(self.f_mhz[cols.min()] - self.chan_mhz / 2)
         fmax = float(self.f_mhz[cols.max()] + self.chan_mhz / 2)
-        d = fit_drift(t + cad / 2, self.f_mhz[cols], np.clip(raw, 0, None),
-                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad)
         # Morphology from the half-maximum core: per row (instantaneous width, and whether
         # the row spans nearly the whole event band at once, as an impulse does) and per
         # channel (duration at fixed frequency).
         bw = fmax - fmin
+        lo_c, hi_c = int(cols.min()), int(cols.max())
+        truncated = ((lo_c == 0 or self.always[lo_c - 1]) and (hi_c == self.n_chan - 1 or self.always[hi_c + 1]))
         urows, inv = np.unique(rows, return_inverse=True)
         row_pk = np.zeros(len(urows)); np.maximum.at(row_pk, inv, ex)
         core = ex >= 0.5 * row_pk[inv]
@@ -881,6 +935,16 @@ class _Segment:
         col_pk = np.zeros(len(ucols)); np.maximum.at(col_pk, cinv, ex)
         ccore = ex >= 0.5 * col_pk[cinv]
         run = _row_runs_median(rows[ccore], cols[ccore])
+        # Arrival time at each frequency: the first step at half its peak (the leading
+        # edge). A burst's decay -- longer at lower frequency for a Type III -- would pull a
+        # centroid late and bias the drift slow; the rise is short at every frequency.
+        # Quantised to the time step per channel, but the true arrival moves smoothly across
+        # channels, so the fit over many channels averages the steps out.
+        first = np.full(len(ucols), np.iinfo(np.int64).max)
+        np.minimum.at(first, cinv[ccore], rows[ccore])
+        t_arr = self.t0 + first * cad + self.offsets[ucols] + cad / 2
+        d = fit_drift(t_arr, self.f_mhz[ucols], np.clip(col_pk, 0, None) ** 2,
+                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad)
         lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
         return {
             "path": "fine", "sign": 1,
@@ -893,7 +957,7 @@ class _Segment:
             "bandwidth_mhz": bw, "inst_bw_mhz": float(np.median(width[rw >= 0.5 * rw.max()])),
             "full_rows": full_rows, "n_rows": int(len(urows)),
             "sk_fraction": float(np.mean(c.values["sk"] > 0)) if self.has_sk else None,
-            "bursty": False, **d,
+            "bursty": False, "truncated": bool(truncated), **d,
         }
 
     def _impulse_features(self, st: dict) -> dict:
@@ -918,6 +982,15 @@ class _Segment:
         span_blocks = int(rows.max() - rows.min() + 1)
         if span_blocks * self.block_s < self.s.slow_min_s:
             return None
+        if sign < 0:
+            # The negative branch looks for fadeouts, which darken the whole band; a drop
+            # over a few coarse channels is the slow baseline's own wobble beside a strong
+            # event, not a phenomenon, and is not reported.
+            g_ok = ~np.isin(np.arange(self.n_groups), np.flatnonzero(np.bincount(
+                self.groups, weights=self.always.astype(float), minlength=self.n_groups)
+                >= np.bincount(self.groups, minlength=self.n_groups)))
+            if len(np.unique(cols)) < 0.5 * g_ok.sum():
+                return None
         edges = np.flatnonzero(np.isin(self.groups, np.unique(cols)))
         fmin = float(self.f_mhz[edges.min()] - self.chan_mhz / 2)
         fmax = float(self.f_mhz[edges.max()] + self.chan_mhz / 2)

@@ -40,10 +40,17 @@ class Sky:
     def lin(db):
         return 10.0 ** (db / 10.0) - 1.0
 
-    def type3(self, t_ref, peak_db, f_ref=24.0, width_s=1.0):
-        """A Type III whose peak time at f follows Alvarez & Haddock (1973)."""
+    def type3(self, t_ref, peak_db, f_ref=24.0, width_s=1.0, decay_s=None):
+        """A Type III whose peak time at f follows Alvarez & Haddock (1973): a Gaussian rise
+        of ``width_s`` and, when ``decay_s`` is given, an exponential decay of
+        decay_s x (20 MHz / f) after the peak (decametric Type III decay in seconds, from memory)."""
         tp = t_ref + (self.f ** -0.84 - f_ref ** -0.84) / (0.84 * 0.01)
-        self.extra += self.lin(peak_db) * np.exp(-0.5 * ((self.t - tp[None, :]) / width_s) ** 2)
+        x = self.t - tp[None, :]
+        prof = np.exp(-0.5 * (x / width_s) ** 2)
+        if decay_s is not None:
+            tau = decay_s * 20.0 / self.f[None, :]
+            prof = np.where(x < 0, prof, np.exp(-np.clip(x, 0, None) / tau))
+        self.extra += self.lin(peak_db) * prof
         return tp
 
     def impulse(self, t_at, peak_db):

@@ -39,7 +39,7 @@ def test_drift_fit_uses_the_true_sampling_time_of_each_channel():
     # A receiver sweeping 8 sub-bands in 2-s steps: sub-band k is sampled 0.25 k s after the row starts.
     offsets = np.repeat(np.arange(8) * 0.25, 32)
     sky = Sky(900, cadence=2.0, offsets=offsets)
-    sky.type3(300, 3.0, width_s=1.5)
+    sky.type3(300, 3.0, width_s=0.7, decay_s=2.0)
     ev = [e for e in _events(sky, sun_up).events if e["snr"] > 10]
     assert len(ev) == 1
     fc = 0.5 * (ev[0]["fmin_mhz"] + ev[0]["fmax_mhz"])
