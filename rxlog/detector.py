@@ -388,6 +388,9 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
 
     # -- interference morphology -------------------------------------------------------
     run = f["run_s"]
+    if (cad <= SBURST_MAX_CADENCE_S and f["resolved"] and SBURST_DRIFT[0] <= drift <= SBURST_DRIFT[1]
+            and run <= 0.05 and jup_up is not False):
+        return "jovian_s", 0.7 if jup_up else 0.4, why(f"millisecond burst drifting {drift:.1f} MHz/s", jup_txt)
     if f["sk_fraction"] is not None and f["sk_fraction"] >= 0.5 and bw < 0.5 * band:
         return "rfi", 0.8, f"non-Gaussian (spectral kurtosis) in {100 * f['sk_fraction']:.0f}% of cells, {bw:.2f} MHz wide"
     if bw <= max(0.1, 3 * f["chan_mhz"]):
@@ -421,9 +424,6 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
                 return "solar_iii", round(0.3 + 0.3 * closeness, 2), why(match, "no ephemeris")
             if not jup_up:
                 return "unknown", 0.4, why(match, sun_txt)
-        if (f["cadence_s"] <= SBURST_MAX_CADENCE_S and SBURST_DRIFT[0] <= drift <= SBURST_DRIFT[1]
-                and run <= 0.05 and jup_up is not False):
-            return "jovian_s", 0.7 if jup_up else 0.4, why(f"millisecond burst drifting {drift:.1f} MHz/s", jup_txt)
         if (TYPE2_DRIFT[0] * TYPE3_FACTOR <= drift <= TYPE2_DRIFT[1] and f["span_s"] >= 20.0
                 and run >= 3 * cad):
             txt = f"slow drift {drift:.2f} MHz/s over {f['span_s'] / 60:.1f} min (Type II range)"
@@ -1146,6 +1146,9 @@ class OnlineDetector:
             ctx = {k: tags[k][i] for k in tags} if tags else {}
             region = ctx.get("source_region")
             region = None if region is None or str(region).lower() in ("", "none") else str(region)
+            for k in ("sun_alt_deg", "jupiter_alt_deg"):
+                if k in ctx and (ctx[k] is None or not np.isfinite(ctx[k])):
+                    ctx[k] = None
             f.update(sun_alt=ctx.get("sun_alt_deg"), jupiter_alt=ctx.get("jupiter_alt_deg"),
                      source_region=region, band_mhz=seg.band_mhz(),
                      cadence_s=seg.cadence, chan_mhz=seg.chan_mhz)
@@ -1345,3 +1348,44 @@ def _with_gaps(rows: list[dict], gaps: list[tuple[float, float]], station: str, 
                 r["gap_s"] = float(r["gap_s"] or 0.0) + part
             h += 3600.0
     return [by_hour[k] for k in sorted(by_hour)]
+
+
+def refine_with_cutout(cfg, event: dict, cutout: DynamicSpectrum, path: str | None = None) -> dict:
+    """Look at an event again in a high-time-resolution cutout from the channelizer's ring.
+
+    Jovian S-bursts last milliseconds and drift at -5 to -30 MHz/s: they can only be seen
+    in spectra a few milliseconds apart, never in 1-s spectra. The cutout is searched with
+    the burst path scaled to its own resolution (smoothing over three time steps and
+    50 kHz); when at least three S-burst-like bursts are found (resolved drift in
+    SBURST_DRIFT, under 50 ms at fixed frequency) and Jupiter is up, the event becomes
+    ``jovian_s``. A cutout coarser than SBURST_MAX_CADENCE_S leaves the class alone.
+    Returns a new event dict (with ``cutout_path`` when given).
+    """
+    out = dict(event)
+    if path is not None:
+        out["cutout_path"] = str(path)
+    if cutout.cadence_s > SBURST_MAX_CADENCE_S or cutout.n_time < 8:
+        return out
+    jup = event.get("jupiter_alt_deg")
+    s = Settings.from_config(cfg)
+    span = cutout.n_time * cutout.cadence_s
+    block = max(cutout.cadence_s * 4, min(s.block_s, span / 8))
+    fine = s.replace(block_s=block, fast_window_s=max(10 * block, 4 * block), slow_window_s=max(1e6, 10 * span),
+                     smooth_time_s=3 * cutout.cadence_s, smooth_freq_mhz=0.05, merge_gap_s=cutout.cadence_s,
+                     max_event_s=max(1.0, span), static_ranges=())
+
+    def tags(times):
+        n = len(times)
+        return {"jupiter_alt_deg": np.full(n, np.nan if jup is None else float(jup)),
+                "sun_alt_deg": np.full(n, np.nan if event.get("sun_alt_deg") is None else float(event["sun_alt_deg"]))}
+
+    res = detect_spectrum(cfg, cutout, tags_fn=tags, settings=fine)
+    sb = [e for e in res.events if e["class"] == "jovian_s"]
+    if len(sb) >= 3 and (jup is None or jup > s.jupiter_up_deg):
+        drift = float(np.median([e["drift_mhz_s"] for e in sb]))
+        out["class"] = "jovian_s"
+        out["confidence"] = 0.8 if jup is not None else 0.5
+        out["reason"] = (f"{len(sb)} millisecond bursts drifting {drift:.1f} MHz/s in the "
+                         f"{1000 * cutout.cadence_s:.0f}-ms cutout (S-bursts)"
+                         + (f"; Jupiter up ({jup:.0f}°)" if jup is not None else ""))
+    return out
