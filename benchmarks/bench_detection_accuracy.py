@@ -7,9 +7,9 @@ chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
 * day-bursts: a winter day with Jupiter below the horizon; 20 Type III and 10 Type II
   bursts injected at peak excesses of 0.5, 1, 2, 4 and 8 dB among the natural interference
   of a rural site.
-* day-long-N: five such days, each with one fadeout and one Type IV continuum, the
-  fadeout N dB deep (up to 4 dB: the simulated site cannot dip deeper) and the Type IV
-  N dB high.
+* day-long-N: five quiet-rural days, each with one fadeout and one Type IV continuum,
+  the fadeout N dB deep and the Type IV N dB high. The simulator refuses a dip deeper
+  than the sky's share of the background; such fadeouts are listed as skipped.
 * night-jovian: two nights with Jupiter up, five 30-minute Jovian storms each.
 * night-rfi-city: a 12-hour night with no sky events at all and city-level interference
   (ITU-R P.372 category "city"): every non-rfi detection there is false.
@@ -32,6 +32,7 @@ import numpy as np
 
 from rxlog.config import load_config
 from rxlog.detector import OnlineDetector
+from rxlog.errors import RxlogError
 from rxlog.simulator import iter_spectra
 from rxlog.timeutil import parse_iso
 
@@ -61,7 +62,7 @@ def _scenarios():
         inj = [{"class": "solar_iv", "t": d + 9000.0, "peak_excess_db": p}]
         if p <= MAX_FADEOUT_DB:
             inj.insert(0, {"class": "fadeout", "t": d + 1800.0, "peak_excess_db": -p})
-        yield f"day-long-{p:g}", d, 7.0, "rural", inj
+        yield f"day-long-{p:g}", d, 7.0, "quiet-rural", inj
     for n, night in enumerate(("2026-12-01T23:00:00Z", "2026-12-03T23:00:00Z")):
         t = parse_iso(night)
         yield (f"night-jovian-{n + 1}", t, 7.0, "rural",
@@ -135,9 +136,17 @@ def score(results):
 
 def run():
     cfg = load_config(CONFIG)
-    results = []
+    results, skipped = [], []
     for name, start, hours, rfi, inject in _scenarios():
-        truth, events = run_scenario(cfg, start, hours, rfi, inject)
+        try:
+            truth, events = run_scenario(cfg, start, hours, rfi, inject)
+        except RxlogError as e:
+            # the simulator refuses a dip deeper than the sky's share of the background
+            if "fadeout" not in str(e):
+                raise
+            skipped.append(f"{name}: {str(e).split(':')[0]}")
+            inject = [x for x in inject if x["class"] != "fadeout"]
+            truth, events = run_scenario(cfg, start, hours, rfi, inject)
         results.append((name, truth, events, inject))
     found, right, drift_err, false_city, n_det, n_matched = score(results)
     rows = []
@@ -162,6 +171,8 @@ def run():
         rows.append(("Type III drift error, median", round(100 * med, 1), "%", "<= 20", med <= 0.2))
         rows.append(("Type III drift error, share within 20 %", round(within, 2), f"(worst {100 * worst:.0f} %)",
                      "1.0", within >= 0.999))
+    for note in skipped:
+        rows.append(("not simulable here (skipped)", note, "", "", True))
     return rows
 
 

@@ -188,7 +188,8 @@ class _Tracker:
         objs = ndimage.find_objects(lab)
         r0 = np.array([o[0].start for o in objs]); r1 = np.array([o[0].stop for o in objs])
         c0 = np.array([o[1].start for o in objs]); c1 = np.array([o[1].stop for o in objs])
-        seeded = ndimage.maximum(self.seed, lab, index=np.arange(1, nl + 1)).astype(bool)
+        seeded = np.zeros(nl, dtype=bool)
+        seeded[np.unique(lab[self.seed]) - 1] = True
         touching = r1 >= n   # may still grow into the next row
         drop = ~seeded & (~touching | final)
         keep_idx = np.flatnonzero(seeded)
