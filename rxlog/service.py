@@ -687,10 +687,12 @@ class Logger:
 
 # -- assembling the real stages ---------------------------------------------------------------
 
-def run(cfg, duration_s: float | None = None, install_signals: bool = True) -> dict:
+def run(cfg, duration_s: float | None = None, install_signals: bool = True,
+        sim_hours: float | None = None) -> dict:
     """Run the logger on a station config until SIGTERM/SIGINT, the end of the feed, or
     ``duration_s`` seconds; return a summary. Raises RxlogError if another logger holds
-    the storage root."""
+    the storage root. ``sim_hours`` (simulated receiver only) ends the feed after that
+    much simulated data, for benchmarks and dry runs."""
     from rxlog.store import EventStore
 
     lock = hl.RunLock(cfg.storage_root)
@@ -703,7 +705,7 @@ def run(cfg, duration_s: float | None = None, install_signals: bool = True) -> d
         store = EventStore(cfg.store_path)
         store.upsert_station(cfg["station"])
         clock = Clock.from_env()
-        logger = Logger(cfg, feed=open_feed(cfg, clock), archive_factory=lambda: open_archive(cfg),
+        logger = Logger(cfg, feed=open_feed(cfg, clock, sim_hours), archive_factory=lambda: open_archive(cfg),
                         detector_factory=lambda: open_detector(cfg), store=store, clock=clock,
                         prune=lambda: prune_archive(cfg))
         if install_signals:
@@ -723,9 +725,9 @@ class SweepFeed:
     Live receivers read the wall clock through ``clock`` so their sample times follow it
     (and a fake clock step reaches them as a real one would)."""
 
-    def __init__(self, cfg, clock: Clock, realtime_sim: bool = True):
+    def __init__(self, cfg, clock: Clock, realtime_sim: bool = True, sim_hours: float | None = None):
         self.cfg, self.clock = cfg, clock
-        self.realtime_sim = realtime_sim
+        self.realtime_sim, self.sim_hours = realtime_sim, sim_hours
         self.sweeper = None
         self.paced = cfg["receiver"]["kind"] != "recording" and (
             cfg["receiver"]["kind"] != "simulated" or realtime_sim)
@@ -740,7 +742,7 @@ class SweepFeed:
         if kind in ("rtlsdr", "rtltcp"):
             source = open_source(self.cfg, monotonic=self.clock.monotonic, realtime=self.clock.realtime)
         elif kind == "simulated":
-            source = open_source(self.cfg, realtime=self.realtime_sim)
+            source = open_source(self.cfg, realtime=self.realtime_sim, hours=self.sim_hours)
         else:
             source = open_source(self.cfg)
         plan = SweepPlan.from_config(self.cfg, source.rate_hz)
@@ -874,13 +876,13 @@ class SpectraFeed:
         self._run = None
 
 
-def open_feed(cfg, clock: Clock):
+def open_feed(cfg, clock: Clock, sim_hours: float | None = None):
     """The configured data feed: the receiver through sweep and channelizer, or for a
     simulated receiver with ``[service] sim_feed = "spectra"`` the spectral simulator."""
     svc = cfg["service"]
     if cfg["receiver"]["kind"] == "simulated" and svc["sim_feed"] == "spectra":
-        return SpectraFeed(cfg, clock, realtime=svc["sim_realtime"])
-    return SweepFeed(cfg, clock, realtime_sim=svc["sim_realtime"])
+        return SpectraFeed(cfg, clock, realtime=svc["sim_realtime"], hours=sim_hours)
+    return SweepFeed(cfg, clock, realtime_sim=svc["sim_realtime"], sim_hours=sim_hours)
 
 
 def open_archive(cfg):
