@@ -16,7 +16,7 @@ the README describes; a test keeps the two in step.
 
 from __future__ import annotations
 
-import shlex
+import re
 import sys
 from pathlib import Path
 
@@ -73,7 +73,8 @@ Description=rxlog morning review report{station}
 Type=oneshot
 User={user}
 Group={user}
-ExecStart={python} -m rxlog review --config {config}
+# The report of the night that began yesterday (local noon to noon), as far as it got.
+ExecStart=/bin/sh -c 'exec {python} -m rxlog review --config {config} --night "$$({tz}date -d yesterday +%%F)"'
 SyslogIdentifier=rxlog-review
 Nice=10
 NoNewPrivileges=yes
@@ -108,26 +109,29 @@ _UDEV_HEAD = """\
 _UDEV_LINE = 'SUBSYSTEM=="usb", ATTRS{{idVendor}}=="{vid}", ATTRS{{idProduct}}=="{pid}", GROUP="{user}", MODE="0660"\n'
 
 
-def _unit_text(value: str) -> str:
-    """Escape systemd's specifier '%' and variable '$' characters (systemd.unit(5), systemd.service(5))."""
-    return str(value).replace("%", "%%").replace("$", "$$")
+# Characters a path may hold to go into the units unquoted: systemd splits command lines
+# and ReadWritePaths= on white space and interprets quotes, backslashes and '$'; the
+# review unit also hands its command line to /bin/sh.
+_SAFE_PATH = re.compile(r"[A-Za-z0-9_./+,:=@%~-]+")
 
 
-def _path_arg(p: str) -> str:
-    """A path as a unit-file command argument (systemd.service(5) quoting is shell-like)."""
-    return shlex.quote(_unit_text(p))
+def _unit_path(what: str, p: str) -> str:
+    """A path for the unit files, its '%' escaped as systemd's specifier syntax wants (systemd.unit(5))."""
+    p = str(p)
+    if not _SAFE_PATH.fullmatch(p):
+        from rxlog.errors import RxlogError
+        raise RxlogError(f"{what} {p!r}: systemd unit files cannot carry this path safely (white space, "
+                         "quotes, '$' or backslashes); use a path of letters, digits and ./_+,:=@%~-")
+    return p.replace("%", "%%")
 
 
 def render(station: str, user: str, python: str, config: str, storage: str,
            watchdog_s: float, review_time: str, timezone: str | None) -> dict[str, str]:
     """The unit files' texts by file name, from plain values."""
-    if any(c.isspace() for c in str(storage)):
-        # ReadWritePaths= splits on white space; quoting there is not portable across systemd versions.
-        from rxlog.errors import RxlogError
-        raise RxlogError(f"storage root {storage!r} contains white space; systemd's ReadWritePaths= "
-                         "cannot name it: choose a storage root without spaces")
     v = dict(station=f", station {station}" if station else "", user=user,
-             python=_path_arg(python), config=_path_arg(config), storage=_unit_text(storage), watchdog=f"{int(round(watchdog_s))}s", review_time=review_time,
+             python=_unit_path("python", python), config=_unit_path("config", config),
+             storage=_unit_path("storage root", storage), tz=f"TZ={timezone} " if timezone else "",
+             watchdog=f"{int(round(watchdog_s))}s", review_time=review_time,
              zone=timezone or "system local time", zone_suffix=f" {timezone}" if timezone else "")
     udev = _UDEV_HEAD.format(**v) + "".join(_UDEV_LINE.format(vid=a, pid=b, user=user) for a, b in RTLSDR_USB_IDS)
     return {

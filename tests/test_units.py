@@ -5,11 +5,13 @@ unit as systemd would and complains about unknown settings, bad values and missi
 executables; it exits 0 even for some of those warnings, so any output counts as failure.
 """
 
+import datetime as dt
 import re
 import shutil
 import subprocess
 import sys
 from pathlib import Path
+from zoneinfo import ZoneInfo
 
 import pytest
 
@@ -88,8 +90,22 @@ def test_timer_fires_at_review_time_in_station_zone(cfg):
     s = _settings(units_for_config(cfg)["rxlog-review.timer"])
     assert s["OnCalendar"] == ["*-*-* 06:45:00 Europe/Zurich"] and s["Persistent"] == ["true"]
     r = _settings(units_for_config(cfg)["rxlog-review.service"])
-    assert r["ExecStart"] == [f"{sys.executable} -m rxlog review --config {cfg.path}"]
     assert r["User"] == ["radiolog"]
+
+
+def test_review_runs_on_the_night_that_began_yesterday_in_station_time(cfg):
+    # systemd.service(5): '$$' is a literal '$', '%%' a literal '%'; the single-quoted
+    # argument goes to /bin/sh -c. Run that shell line with `echo` in place of rxlog.
+    exec_start = _settings(units_for_config(cfg)["rxlog-review.service"])["ExecStart"][0]
+    prefix = "/bin/sh -c '"
+    assert exec_start.startswith(prefix) and exec_start.endswith("'")
+    line = exec_start[len(prefix):-1].replace("$$", "$").replace("%%", "%")
+    head = f"exec {sys.executable} -m rxlog review"
+    assert line.startswith(head)
+    out = subprocess.run(["/bin/sh", "-c", "echo" + line[len(head):]], capture_output=True, text=True,
+                         timeout=10).stdout.split()
+    yesterday = (dt.datetime.now(ZoneInfo("Europe/Zurich")) - dt.timedelta(days=1)).date().isoformat()
+    assert out == ["--config", str(cfg.path), "--night", yesterday]
 
 
 @needs_analyze
@@ -115,15 +131,17 @@ def test_udev_rule_grants_the_service_group_rtl2832u_devices(cfg):
 
 
 def test_unit_specifiers_in_paths_are_escaped(tmp_path):
-    cfg = config_from_text(CONFIG.format(root=tmp_path / "st%h$x"), tmp_path / "a%b.toml")
+    cfg = config_from_text(CONFIG.format(root=tmp_path / "st%h"), tmp_path / "a%b.toml")
     s = _settings(units_for_config(cfg)["rxlog.service"])
-    assert s["ReadWritePaths"][0].endswith("st%%h$$x")
+    assert s["ReadWritePaths"][0].endswith("st%%h")
     assert "a%%b.toml" in s["ExecStart"][0]
 
 
-def test_storage_root_with_spaces_is_refused(tmp_path):
-    cfg = config_from_text(CONFIG.format(root=tmp_path / "my data"), tmp_path / "station.toml")
-    with pytest.raises(RxlogError, match="white space"):
+@pytest.mark.parametrize("root", ["my data", "it's", "cost$1", 'q"uote'])
+def test_paths_units_cannot_carry_are_refused(tmp_path, root):
+    cfg = config_from_text(CONFIG.format(root=(tmp_path / root).as_posix().replace('"', '\\"')),
+                           tmp_path / "station.toml")
+    with pytest.raises(RxlogError, match="cannot carry this path"):
         units_for_config(cfg)
 
 
