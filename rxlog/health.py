@@ -173,18 +173,37 @@ def running_logger(storage_root: str | os.PathLike) -> int | None:
 
 def station_status(cfg) -> dict:
     """What ``rxlog status`` shows: {'pid': running logger's pid or None, 'health': the latest
-    health row or None, 'age_s': seconds since that row, 'store': path}. Creates nothing."""
-    from rxlog.store import EventStore
+    health row or None, 'age_s': seconds since that row, 'store': path}.
 
-    out = {"pid": running_logger(cfg.storage_root), "health": None, "age_s": None, "store": cfg.store_path}
-    if cfg.store_path.exists():
-        store = EventStore(cfg.store_path)
+    Reads the event store read-only and creates nothing: run as root, an ordinary open
+    would leave SQLite's -wal/-shm files owned by root, which the service user then could
+    not write. Without a -wal file (no logger has the store open) the file is read as
+    immutable, which needs neither.
+    """
+    import sqlite3
+
+    from rxlog.timeutil import parse_iso
+
+    path = cfg.store_path
+    out = {"pid": running_logger(cfg.storage_root), "health": None, "age_s": None, "store": path}
+    if not path.exists():
+        return out
+    wal = path.with_name(path.name + "-wal").exists()
+    uri = f"{path.resolve().as_uri()}?mode=ro" + ("" if wal else "&immutable=1")
+    try:
+        conn = sqlite3.connect(uri, uri=True, timeout=5)
+        conn.row_factory = sqlite3.Row
         try:
-            out["health"] = store.latest_health(cfg["station"]["name"])
+            row = conn.execute("select * from health where station = ? order by time_utc desc limit 1",
+                               [cfg["station"]["name"]]).fetchone()
         finally:
-            store.close()
-    if out["health"]:
-        from rxlog.timeutil import parse_iso
-
-        out["age_s"] = time.time() - parse_iso(out["health"]["time_utc"])
+            conn.close()
+    except sqlite3.Error as e:
+        if "no such table" in str(e):
+            return out
+        from rxlog.errors import RxlogError
+        raise RxlogError(f"{path}: cannot read the event store ({e})") from None
+    if row is not None:
+        out["health"] = dict(row)
+        out["age_s"] = time.time() - parse_iso(row["time_utc"])
     return out

@@ -44,9 +44,14 @@ def test_status_before_during_and_after_a_run(tmp_path):
         assert run.wait(10) == 0
     finally:
         run.kill()
+    store = tmp_path / "store" / "events.sqlite"
+    sidecars = lambda: sorted(x.name for x in store.parent.glob("events.sqlite-*"))  # noqa: E731
+    before = sidecars()
     p = _rxlog("status", "--config", str(path))
     assert p.returncode == 0
     assert "logger: not running" in p.stdout and "note: logger stopped: SIGTERM" in p.stdout
+    # read-only: no SQLite -wal/-shm files appear (as root they would lock the service user out)
+    assert sidecars() == before
 
 
 def test_status_with_a_bad_config_exits_2(tmp_path):
