@@ -337,6 +337,19 @@ def _receiver_and_sweep_checks(cfg: dict, at) -> list[str]:
 CROSS_CHECKS.append(_receiver_and_sweep_checks)
 
 
+def _service_checks(cfg: dict, at) -> list[str]:
+    """The watchdog must outlast the receiver's own reconnect attempts (the pipeline waits on them)."""
+    rx, svc = cfg.get("receiver", {}), cfg.get("service", {})
+    if rx.get("kind") == "rtltcp" and {"reconnect_max_s", "watchdog_s"} <= rx.keys() | svc.keys():
+        if rx["reconnect_max_s"] >= svc["watchdog_s"]:
+            return [f"{at('service', 'watchdog_s')}: expected more than [receiver] reconnect_max_s "
+                    f"({rx['reconnect_max_s']:g} s), or systemd restarts the logger while it reconnects"]
+    return []
+
+
+CROSS_CHECKS.append(_service_checks)
+
+
 class Config(dict):
     """A validated station config: ``cfg['station']['name']``; ``path`` and ``storage_root`` resolved."""
 
