@@ -71,6 +71,7 @@ class NightLabels:
         self.lock = threading.Lock()
         self.sig = None
         self.rows: dict[str, dict] = {}
+        self.boxes: dict[str, tuple] = {}    # parsed (start, end, fmin, fmax) per event
 
     def _signature(self, store: EventStore) -> tuple:
         labels = store.db.execute("select count(*), coalesce(max(label_id), 0) from labels").fetchone()
@@ -82,6 +83,7 @@ class NightLabels:
         sig = self._signature(store)
         if sig != self.sig:
             self.rows = {r["event_id"]: r for r in store.events(self.t0, self.t1, station=self.station)}
+            self.boxes = {k: _box(r) for k, r in self.rows.items()}
             self.sig = sig
 
     def all(self, store: EventStore) -> list[dict]:
@@ -104,8 +106,8 @@ class NightLabels:
             store.add_label(event_id, label, note=note, who=who)
             # Only an event overlapping the new label's box (the event's own) can own it;
             # re-read those in one pass over the span of their peaks.
-            box = _box(ev)
-            peaks = [parse_iso(r["peak_utc"]) for r in self.rows.values() if _touch(box, _box(r))]
+            box = self.boxes[event_id]
+            peaks = [parse_iso(self.rows[k]["peak_utc"]) for k, b in self.boxes.items() if _touch(box, b)]
             for row in store.events(min(peaks), max(peaks) + 0.001, station=self.station):
                 if row["event_id"] in self.rows:
                     self.rows[row["event_id"]] = row
