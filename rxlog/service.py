@@ -14,8 +14,9 @@ Two threads and a bounded queue between them:
 
 What the logger does about each fault:
 
-- **receiver lost**: a health row notes the gap (start, end, reason) the moment it is
-  back; nothing is glued over, the archive simply has no rows there;
+- **receiver lost**: a health row says so at once, another gives the gap in the data
+  (from the last spectra to the first new ones, and why) when they resume; nothing is
+  glued over, the archive simply has no rows there;
 - **stop** (SIGTERM / SIGINT): the chunk in progress is flushed, the detector's
   pending events stored, a last health row written; exit status 0 within a few seconds;
 - **SIGKILL / power cut**: nothing to do here — the archive's chunks and SQLite's WAL
@@ -42,6 +43,7 @@ import sys
 import threading
 import time
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
@@ -434,7 +436,27 @@ class Logger:
                       iso(spec.t0), iso(spec.t_end), exc_info=True)
             self.detector = self.detector_factory()
             return
-        self._store_events(events)
+        self._store_events(self._with_cutouts(events))
+
+    def _with_cutouts(self, events: list[dict]) -> list[dict]:
+        """Keep each new event's stretch of the channelizer's full-resolution ring as a FITS
+        cutout under ``<storage root>/cutouts/YYYY/MM/DD/`` and let the detector look at it
+        again (S-bursts are only visible there). Interference events get none; nothing is
+        kept while raw spectra are paused for lack of space, or when the ring has moved on."""
+        ring = getattr(self.feed, "ring", None)
+        if ring is None or self.raw_paused or not events:
+            return events
+        out = []
+        for ev in events:
+            if ev.get("class") != "rfi":
+                try:
+                    ev = save_cutout(self.cfg, ev, ring)
+                except (RxlogError, OSError) as e:
+                    log.warning("cutout for %s not kept: %s", ev.get("event_id"), e)
+                except Exception:
+                    log.error("cutout for %s failed", ev.get("event_id"), exc_info=True)
+            out.append(ev)
+        return out
 
     def _store_events(self, events):
         """Store new events (and the detector's episodes and hourly quality rows); what the
@@ -567,7 +589,8 @@ class Logger:
         def work():
             try:
                 removed = self.prune()
-                log.info("retention: removed %s", removed)
+                log.info("retention: %d files older than %g days removed", len(removed),
+                         self.cfg["storage"]["retention_days"])
             except Exception:
                 log.error("retention: prune failed", exc_info=True)
 
@@ -668,7 +691,7 @@ class Logger:
                 self._take(item)
         if self.detector is not None:
             try:
-                self._store_events(self.detector.flush())
+                self._store_events(self._with_cutouts(self.detector.flush()))
             except Exception:
                 log.error("detector: flush failed at stop", exc_info=True)
         self._flush()
@@ -775,6 +798,11 @@ class SweepFeed:
             self._done = (rx + self.sweeper.samples_received, dr + self.sweeper.samples_dropped)
             sweeper, self.sweeper = self.sweeper, None
             sweeper.close()
+
+    @property
+    def ring(self):
+        """The sweeper's ring of full-resolution spectra (for event cutouts), or None."""
+        return self.sweeper.ring if self.sweeper is not None else None
 
     @property
     def samples_received(self) -> int:
@@ -898,7 +926,64 @@ def open_detector(cfg):
     return OnlineDetector(cfg)
 
 
-def prune_archive(cfg):
+def prune_archive(cfg, now: float | None = None) -> list:
+    """Daily retention: archived spectra and event cutouts older than ``retention_days``."""
     from rxlog.archive import prune
 
-    return prune(cfg.archive_dir, cfg["storage"]["retention_days"])
+    days = cfg["storage"]["retention_days"]
+    return prune(cfg.archive_dir, days, now=now) + prune_cutouts(cfg, days, now=now)
+
+
+CUTOUT_MARGIN_S = 2.0       # kept either side of an event in its cutout
+
+
+def cutout_relpath(ev: dict) -> Path:
+    """``cutouts/YYYY/MM/DD/<event_id>.fits`` (by the event's UTC start), relative to the storage root."""
+    d = ev["start_utc"][:10].split("-")
+    return Path("cutouts", *d, f"{ev['event_id']}.fits")
+
+
+def save_cutout(cfg, ev: dict, ring) -> dict:
+    """Write the ring's rows around ``ev`` as a FITS file in the archive's layout and return
+    the event as ``rxlog.detector.refine_with_cutout`` sees it then (with ``cutout_path``,
+    relative to the storage root). Without rows in the ring the event comes back as it was."""
+    from rxlog.archive import write_spectrum_fits
+    from rxlog.detector import refine_with_cutout
+
+    t0 = parse_iso(ev["start_utc"]) - CUTOUT_MARGIN_S
+    t1 = parse_iso(ev["end_utc"]) + CUTOUT_MARGIN_S
+    cut = ring.cutout(t0, t1)
+    if cut is None or cut.n_time == 0:
+        return ev
+    rel = cutout_relpath(ev)
+    write_spectrum_fits(cut, Path(cfg.storage_root) / rel, cfg["station"], lossless=cfg["storage"]["lossless"])
+    return refine_with_cutout(cfg, ev, cut, path=str(rel))
+
+
+def prune_cutouts(cfg, retention_days: float, now: float | None = None) -> list[Path]:
+    """Delete cutout files of UTC days that ended more than ``retention_days`` ago, and
+    their emptied folders; only ``cutouts/YYYY/MM/DD/*.fits`` is touched."""
+    import datetime as dt
+
+    root = Path(cfg.storage_root) / "cutouts"
+    if not root.is_dir():
+        return []
+    cutoff = (time.time() if now is None else float(now)) - float(retention_days) * 86400.0
+    deleted = []
+    for day in sorted(root.glob("[0-9][0-9][0-9][0-9]/[0-9][0-9]/[0-9][0-9]")):
+        try:
+            y, m, d = (int(x) for x in day.relative_to(root).parts)
+            end = dt.datetime(y, m, d, tzinfo=dt.timezone.utc).timestamp() + 86400.0
+        except ValueError:
+            continue
+        if end > cutoff:
+            continue
+        for f in day.glob("*.fits"):
+            f.unlink()
+            deleted.append(f)
+        for folder in (day, day.parent, day.parent.parent):
+            try:
+                folder.rmdir()
+            except OSError:
+                break
+    return deleted
