@@ -15,7 +15,8 @@ chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
   (ITU-R P.372 category "city"): every non-rfi detection there is false.
 
 A truth row counts as detected when a detection overlaps its time-frequency box (with
-5 s and 0.2 MHz of slack). Each detection is matched to the truth row it overlaps most;
+5 s and 0.2 MHz of slack). Each detection is matched to the truth row that holds the
+largest share of its box (the most specific one among equals);
 class accuracy is, per true class, the share of its matched detections given that class.
 Type III drift error compares the best-SNR matching detection with the simulated drift at
 the detection's centre frequency (Alvarez & Haddock law, as the simulator draws it).
@@ -83,6 +84,24 @@ def _overlap(a, b) -> float:
     return dt * df if dt > 0 and df > 0 else 0.0
 
 
+def _area(b) -> float:
+    return (b[1] - b[0] + 2 * SLACK_S) * (b[3] - b[2] + 2 * SLACK_MHZ)
+
+
+def _match(eb, tboxes) -> int | None:
+    """The truth row a detection belongs to: the one holding the largest share of the
+    detection's box; among equals the smallest (most specific) box."""
+    best, key = None, None
+    for i, tb in enumerate(tboxes):
+        ov = _overlap(eb, tb)
+        if ov <= 0:
+            continue
+        k = (round(ov / _area(eb), 3), -_area(tb))
+        if key is None or k > key:
+            best, key = i, k
+    return best
+
+
 def run_scenario(cfg, start, hours, rfi, inject):
     run = iter_spectra(cfg, start, hours, seed=3, rfi=rfi, include=("rfi",), inject=inject, chunk_s=60.0)
     det = OnlineDetector(cfg)
@@ -104,8 +123,7 @@ def score(results):
         for e in events:
             n_det += 1
             eb = _box(e)
-            ov = [_overlap(eb, tb) for tb in tboxes]
-            best = int(np.argmax(ov)) if ov and max(ov) > 0 else None
+            best = _match(eb, tboxes)
             if best is None:
                 if name == "night-rfi-city" and e["class"] != "rfi":
                     false_city += 1

@@ -257,13 +257,13 @@ class _Tracker:
 # ------------------------------------------------------------------------------------
 
 def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
-              cadence_s: float) -> dict:
+              cadence_s: float, fc_mhz: float | None = None) -> dict:
     """Drift rate from a weighted fit of arrival time against frequency.
 
     Cells are binned in frequency (``bin_mhz``); each bin's arrival time is the
     excess-weighted mean of its cells' true times. A line t = a + s (f - fc) (a
-    quadratic when the bins span more than 2 MHz, so the slope is the local one at the
-    centre fc) is fitted by weighted least squares with the bins' total weights; the
+    quadratic when the bins span more than 2 MHz, so the slope is the local one at fc,
+    by default the weighted centre of the bins) is fitted by weighted least squares with the bins' total weights; the
     slope's error comes from the residual scatter. Drift = 1/s MHz/s, error s_err/s^2.
     ``resolved`` is False when the arrival spread across the band is under half a
     time step or under three standard errors: then the event is simultaneous at this
@@ -284,7 +284,7 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
     tb = np.bincount(b, weights=w * t, minlength=nb)[ok] / W[ok]
     fb = np.bincount(b, weights=w * f_mhz, minlength=nb)[ok] / W[ok]
     Wb = W[ok] / W[ok].mean()
-    fc = float(np.sum(Wb * fb) / np.sum(Wb))
+    fc = float(np.sum(Wb * fb) / np.sum(Wb)) if fc_mhz is None else float(fc_mhz)
     x = fb - fc
     span = float(np.ptp(fb))
     deg = 2 if (span > 2.0 and len(fb) >= 8) else 1
@@ -859,6 +859,7 @@ class _Segment:
 
         nbox = self.F * self.T
         num, den, exs = box(zw), box(w), box(ew)
+
         with np.errstate(invalid="ignore", divide="ignore"):
             sig = np.where(den > 0, num * math.sqrt(nbox) / np.sqrt(den), 0.0).astype(np.float32)
             ex_s = np.where(den > 0, exs / den, 0.0).astype(np.float32)
@@ -936,14 +937,30 @@ class _Segment:
         col_pk = np.zeros(len(ucols)); np.maximum.at(col_pk, cinv, ex)
         ccore = ex >= 0.5 * col_pk[cinv]
         run = _row_runs_median(rows[ccore], cols[ccore])
-        # Arrival time at each frequency: the first step at half its peak (the leading
-        # edge). A burst's decay -- longer at lower frequency for a Type III -- would pull a
-        # centroid late and bias the drift slow; the rise is short at every frequency.
-        # Quantised to the time step per channel, but the true arrival moves smoothly across
-        # channels, so the fit over many channels averages the steps out.
-        first = np.full(len(ucols), np.iinfo(np.int64).max)
-        np.minimum.at(first, cinv[ccore], rows[ccore])
-        t_arr = self.t0 + first * cad + self.offsets[ucols] + cad / 2
+        # Arrival time at each frequency: the time of its (smoothed) peak, interpolated between time
+        # steps by the parabola through the peak step and its neighbours. (A centroid would be
+        # pulled late by the decay, which is longer at lower frequency for a Type III, and a
+        # leading edge is quantised to whole steps wherever a sweep samples many channels at
+        # once.)
+        key = cinv.astype(np.int64) * (int(rows.max()) + 3) + (rows - int(rows.min()) + 1)
+        order = np.argsort(key)
+        skey, sex = key[order], ex[order]
+        pk_idx = np.full(len(ucols), -1)
+        is_pk = ex >= col_pk[cinv]
+        pk_idx[cinv[is_pk]] = np.flatnonzero(is_pk)
+        kp = key[pk_idx]
+
+        def at(k):
+            i = np.searchsorted(skey, k)
+            i = np.clip(i, 0, len(skey) - 1)
+            return np.where(skey[i] == k, sex[i], np.nan)
+
+        e0, em, ep = ex[pk_idx], at(kp - 1), at(kp + 1)
+        em = np.where(np.isfinite(em), em, 0.0)
+        ep = np.where(np.isfinite(ep), ep, 0.0)
+        den = em - 2 * e0 + ep
+        delta = np.where(den < 0, np.clip(0.5 * (em - ep) / np.where(den < 0, den, -1.0), -0.5, 0.5), 0.0)
+        t_arr = self.t0 + (rows[pk_idx] + delta) * cad + self.offsets[ucols] + cad / 2
         d = fit_drift(t_arr, self.f_mhz[ucols], np.clip(col_pk, 0, None) ** 2,
                       max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad)
         lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
