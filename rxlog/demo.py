@@ -91,8 +91,28 @@ def pick_night(cfg) -> tuple[float, dict]:
     return local_noon_before(0.5 * (window["start"] + window["end"]), cfg["station"]["timezone"]), window
 
 
-def simulate_into_archive(cfg, start: float, hours: float, rfi: str, clock_error_s: float = 0.0,
-                          label: str = "simulating") -> list[dict]:
+def scenario_bursts(night_start: float, window: dict) -> list[dict]:
+    """The night's memorable bursts, on top of the simulated sky's own: a Jovian storm in the
+    forecast window, a Type IV continuum that afternoon, and next morning a Type III group and a Type II.
+    Times are hours after the local noon that starts the night."""
+    def at(hours):
+        return night_start + hours * 3600.0
+
+    storm_start = window["start"] + 15 * 60.0
+    storm_s = min(3000.0, window["end"] - storm_start - 60.0)
+    return [
+        dict(**{"class": "jovian_l"}, t=storm_start, duration_s=storm_s, region=window["region"], peak_excess_db=3.0),
+        dict(**{"class": "solar_iv"}, t=at(1.5), peak_excess_db=1.5),
+        dict(**{"class": "solar_iii"}, t=at(21.6), peak_excess_db=6.0),
+        dict(**{"class": "solar_iii"}, t=at(21.6) + 26.0, peak_excess_db=2.5),
+        dict(**{"class": "solar_iii"}, t=at(21.6) + 61.0, peak_excess_db=4.0),
+        dict(**{"class": "solar_iii"}, t=at(21.6) + 95.0, peak_excess_db=1.5),
+        dict(**{"class": "solar_ii"}, t=at(22.2), peak_excess_db=2.5),
+    ]
+
+
+def simulate_into_archive(cfg, start: float, hours: float, rfi: str, inject: list[dict],
+                          clock_error_s: float = 0.0, label: str = "simulating") -> list[dict]:
     """Simulate ``hours`` of spectra into the station's archive; return the truth rows.
 
     ``clock_error_s`` shifts the station's time stamps as a wrong clock would: the sky is
@@ -101,7 +121,7 @@ def simulate_into_archive(cfg, start: float, hours: float, rfi: str, clock_error
     from rxlog.archive import ArchiveWriter
     from rxlog.simulator import iter_spectra
 
-    run = iter_spectra(cfg, start, hours, seed=SEED, rfi=rfi)
+    run = iter_spectra(cfg, start, hours, seed=SEED, rfi=rfi, inject=inject)
     # A batch that can simply be re-run needs no minute-by-minute crash safety: hour-long
     # chunks spare the archive 59 of every 60 file writes.
     n_chunks = -(-run.n_rows // run.chunk_rows)
@@ -170,7 +190,8 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     echo(f"  night         {night_date} (local noon to noon, {tz}); forecast {window['region']} "
          f"{window['start_utc'][11:16]}-{window['end_utc'][11:16]} UTC")
 
-    truth = simulate_into_archive(cfg, night_start, 24.0, home[9], label="simulating the night")
+    bursts = scenario_bursts(night_start, window)
+    truth = simulate_into_archive(cfg, night_start, 24.0, home[9], bursts, label="simulating the night")
     wrote["truth"] = write_truth_csv(truth, cfg.storage_root / "truth.csv")
     summary = detect_quietly(cfg, "detecting bursts")
     events = EventStore(cfg.store_path).events()
@@ -199,7 +220,7 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     export_events(cfg, lists[0], "csv")
     for spec in partners:
         pcfg = write_station(out, spec)
-        simulate_into_archive(pcfg, night_start, 24.0, spec[9], clock_error_s=spec[10],
+        simulate_into_archive(pcfg, night_start, 24.0, spec[9], bursts, clock_error_s=spec[10],
                               label=f"simulating partner {spec[0]}")
         detect_quietly(pcfg, f"detecting at {spec[0]}")
         path = exchange_dir / f"{spec[0]}-events.csv"
