@@ -859,7 +859,7 @@ class ArchiveWriter:
 
     def close(self) -> None:
         """Flush and consolidate every hour this writer touched."""
-        self.flush()
+        self._write_chunk(self._buf_rows, hour_done=True)
         self._consolidate(set(self._pending))
 
     def __enter__(self):
@@ -888,7 +888,7 @@ class ArchiveWriter:
             contiguous = same and abs(piece.t0 - last.t_end) <= _tol(last.cadence_s)
             new_hour = _hour_index(piece.t0, piece.cadence_s) != _hour_index(last.t0, last.cadence_s)
             if not contiguous or new_hour:
-                self._write_chunk(self._buf_rows)
+                self._write_chunk(self._buf_rows, hour_done=new_hour)
         hour = _hour_index(piece.t0, piece.cadence_s)
         done = {h for h in self._pending if h != hour}
         if done:
@@ -899,19 +899,33 @@ class ArchiveWriter:
         while self._buf_rows >= rows:
             self._write_chunk(rows)
 
-    def _write_chunk(self, rows: int) -> None:
-        """Write the first ``rows`` buffered rows as one chunk file."""
+    def _write_chunk(self, rows: int, hour_done: bool = False) -> None:
+        """Write the first ``rows`` buffered rows as one chunk file.
+
+        When they are all of an hour that is over and nothing else of that hour is on
+        disk (bulk writes with long chunks), they go straight to the hour file instead:
+        the same atomic write, without writing and merging a chunk.
+        """
         if rows <= 0 or not self._buf:
             return
         spec = self._buf[0] if len(self._buf) == 1 else _concat(self._buf)
         part, rest = spec.slice_rows(0, rows), spec.slice_rows(rows, spec.n_time)
         hour = _hour_index(part.t0, part.cadence_s)
         sub, stem = _hour_stem(self.name, hour)
-        path = self.root / sub / f"{stem}.{os.getpid()}-{self._count:06d}.chunk.fits"
+        folder = self.root / sub
         with _locked(self.root):
-            _write_atomic(path, [_primary(self.station, "chunk")] + _hdu_set(part, self.station, self.lossless, 1))
+            hour_done = hour_done or part.t_end >= (hour + 1) * _HOUR - _tol(part.cadence_s)
+            alone = (hour_done and hour not in self._pending
+                     and not (folder / f"{stem}.fits").exists()
+                     and not (folder.is_dir() and any(folder.glob(f"{stem}.*.chunk.fits"))))
+            if alone:
+                _write_atomic(folder / f"{stem}.fits",
+                              [_primary(self.station, "hour")] + _hdu_set(part, self.station, self.lossless, 1))
+            else:
+                path = folder / f"{stem}.{os.getpid()}-{self._count:06d}.chunk.fits"
+                _write_atomic(path, [_primary(self.station, "chunk")] + _hdu_set(part, self.station, self.lossless, 1))
+                self._pending.add(hour)
         self._count += 1
-        self._pending.add(hour)
         self._buf = [rest] if rest.n_time else []
         self._buf_rows = rest.n_time
 
