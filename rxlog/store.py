@@ -9,6 +9,7 @@ whichever event overlaps them best in time and frequency, so a change of thresho
 
 from __future__ import annotations
 
+import functools
 import sqlite3
 import time
 from pathlib import Path
@@ -215,34 +216,33 @@ class EventStore:
         return rows
 
     def _attach_labels(self, events: list[dict]):
-        """Give each event the latest label that belongs to it (best time-frequency overlap)."""
+        """Give each event the latest label that belongs to it (best time-frequency overlap).
+
+        The owner of a label is chosen among all events of the store near it, not just the
+        ones asked for, so a listing filtered by class shows the same labels. Two queries
+        per call (labels in range, events near them); boxes are parsed once.
+        """
         for e in events:
             e.update(label=None, label_note=None, label_who=None, label_utc=None)
         if not events:
             return
         lo = min(e["start_utc"] for e in events)
         hi = max(e["end_utc"] for e in events)
-        labels = list(self.db.query(
-            "select * from labels where start_utc <= ? and end_utc >= ? order by label_id", [hi, lo]))
+        labels = [dict(r) for r in self.db.query(
+            "select * from labels where start_utc <= ? and end_utc >= ? order by label_id", [hi, lo])]
         if not labels:
             return
-        by_station: dict[str, list[dict]] = {}
-        for e in events:
-            by_station.setdefault(e["station"], []).append(e)
-        # The owner of a label is chosen among all events of the store near it, not just
-        # the ones asked for, so a listing filtered by class shows the same labels.
-        for lab in labels:
-            cands = by_station.get(lab["station"], [])
-            owner = _best_overlap(lab, cands + self._neighbours(lab, cands))
-            if owner is not None and owner in cands:
-                owner.update(label=lab["label"], label_note=lab["note"], label_who=lab["who"],
-                             label_utc=lab["created_utc"])
-
-    def _neighbours(self, lab: dict, known: list[dict]) -> list[dict]:
-        ids = {e["event_id"] for e in known}
-        rows = self.db.query("select * from events where station = ? and start_utc <= ? and end_utc >= ?",
-                             [lab["station"], lab["end_utc"], lab["start_utc"]])
-        return [dict(r) for r in rows if r["event_id"] not in ids]
+        lab_lo = min(lab["start_utc"] for lab in labels)
+        lab_hi = max(lab["end_utc"] for lab in labels)
+        asked = {e["event_id"]: e for e in events}
+        near = [asked.get(r["event_id"], r) for r in (dict(r) for r in self.db.query(
+            "select event_id, station, start_utc, end_utc, fmin_mhz, fmax_mhz from events "
+            "where start_utc <= ? and end_utc >= ?", [lab_hi, lab_lo]))]
+        for lab in labels:   # later labels overwrite earlier ones: the latest wins
+            owner = _best_overlap(lab, near)
+            if owner is not None and owner["event_id"] in asked:
+                asked[owner["event_id"]].update(label=lab["label"], label_note=lab["note"],
+                                                label_who=lab["who"], label_utc=lab["created_utc"])
 
     # -- labels ---------------------------------------------------------------------------
     def add_label(self, event_id: str, label: str, note: str = "", who: str = "") -> dict:
@@ -260,14 +260,16 @@ class EventStore:
     def label_history(self, event_id: str) -> list[dict]:
         """Every label (oldest first) that belongs to this event now."""
         ev = self.get_event(event_id)
-        labels = self.db.query("select * from labels where station = ? and start_utc <= ? and end_utc >= ? "
-                               "order by label_id", [ev["station"], ev["end_utc"], ev["start_utc"]])
-        out = []
-        for lab in labels:
-            cands = [ev] + self._neighbours(lab, [ev])
-            if _best_overlap(lab, cands) is ev:
-                out.append(dict(lab))
-        return out
+        labels = [dict(r) for r in self.db.query(
+            "select * from labels where station = ? and start_utc <= ? and end_utc >= ? order by label_id",
+            [ev["station"], ev["end_utc"], ev["start_utc"]])]
+        if not labels:
+            return []
+        near = [dict(r) for r in self.db.query(
+            "select event_id, station, start_utc, end_utc, fmin_mhz, fmax_mhz from events "
+            "where station = ? and start_utc <= ? and end_utc >= ?",
+            [ev["station"], max(lab["end_utc"] for lab in labels), min(lab["start_utc"] for lab in labels)])]
+        return [lab for lab in labels if (o := _best_overlap(lab, near)) is not None and o["event_id"] == event_id]
 
     # -- quality and health ---------------------------------------------------------------
     def record_quality(self, rows: list[dict]):
@@ -315,8 +317,13 @@ class EventStore:
         return [dict(r) for r in self.db.query(sql, args)]
 
 
+@functools.lru_cache(maxsize=65536)
+def _t(text: str) -> float:
+    return parse_iso(text)
+
+
 def _box(row: dict) -> tuple[float, float, float, float]:
-    return parse_iso(row["start_utc"]), parse_iso(row["end_utc"]), row["fmin_mhz"], row["fmax_mhz"]
+    return _t(row["start_utc"]), _t(row["end_utc"]), row["fmin_mhz"], row["fmax_mhz"]
 
 
 def _overlap_fraction(a: dict, b: dict) -> float:
@@ -337,6 +344,8 @@ def _overlap_fraction(a: dict, b: dict) -> float:
 def _best_overlap(label: dict, events: list[dict]) -> dict | None:
     best, score = None, LABEL_MIN_OVERLAP
     for e in events:
+        if e["station"] != label["station"]:
+            continue
         f = _overlap_fraction(label, e)
         if f >= score:
             best, score = e, f
