@@ -77,6 +77,7 @@ class Run:
                                      stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                                      env=full_env, cwd=REPO)
         self.lines: list[str] = []
+        self.seen: list[float] = []             # wall time each line arrived
         self._new: queue.Queue = queue.Queue()
         self._reader = threading.Thread(target=self._read, daemon=True)
         self._reader.start()
@@ -84,6 +85,7 @@ class Run:
     def _read(self):
         for line in self.proc.stderr:
             line = line.rstrip("\n")
+            self.seen.append(time.time())
             self.lines.append(line)
             self._new.put(line)
 
@@ -102,6 +104,10 @@ class Run:
             if text in line:
                 return time.time()
         raise AssertionError(f"no line with {text!r} within {timeout} s; stderr:\n" + "\n".join(self.lines[-30:]))
+
+    def seen_at(self, text: str) -> float:
+        """Wall time the first stderr line containing ``text`` arrived."""
+        return next(t for t, ln in zip(self.seen, self.lines) if text in ln)
 
     def signal(self, sig) -> float:
         t = time.time()

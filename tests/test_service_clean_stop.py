@@ -1,10 +1,9 @@
 """SIGTERM and SIGINT stop `rxlog run` cleanly: the chunk in progress reaches disk, a last
-health row says why it stopped, and the process exits with status 0 within 5 s."""
+health row says why it stopped, and the process exits with status 0 within 5 s; so does
+the end of `--duration`. The three runs go side by side, each on its own storage root."""
 
 import signal
 import time
-
-import pytest
 
 from rxlog.config import load_config
 from service_helpers import NARROW_IQ, Run, archive_rows, health_rows, integrity, write_config
@@ -14,41 +13,45 @@ from service_helpers import NARROW_IQ, Run, archive_rows, health_rows, integrity
 MAX_UNFLUSHED_S = 2.5
 
 
-@pytest.mark.parametrize("sig, feed", [(signal.SIGTERM, NARROW_IQ), (signal.SIGINT, {})],
-                         ids=["SIGTERM-iq", "SIGINT-spectra"])
-def test_signal_flushes_and_exits_zero_within_5_s(tmp_path, sig, feed):
-    path = write_config(tmp_path, **feed)
-    cfg = load_config(path)
-    run = Run(path)
-    try:
-        run.wait_for("segment ")
-        time.sleep(2.5)                           # a few chunks in, one in progress
-        t_sig = run.signal(sig)
-        rc = run.wait(timeout=10)
-        took = time.time() - t_sig
-    finally:
-        run.kill()
-    assert rc == 0, run.stderr
-    assert took <= 5.0, f"stop took {took:.1f} s"
-    assert f"stopping: {sig.name}" in run.stderr
+def _check_stopped(cfg, run, t_sig, reason):
+    assert f"stopping: {reason}" in run.stderr
     got = archive_rows(cfg.archive_dir)
     assert got.segments, "nothing archived"
     last_end = max(s.t_end for s in got.segments)
-    assert t_sig - last_end <= MAX_UNFLUSHED_S, f"last {t_sig - last_end:.2f} s before the signal not archived"
+    assert t_sig - last_end <= MAX_UNFLUSHED_S, f"last {t_sig - last_end:.2f} s before the stop not archived"
     rows = health_rows(cfg.store_path)
-    assert rows[-1]["note"] == f"logger stopped: {sig.name}" and rows[-1]["receiver_state"] == "stopped"
+    assert rows[-1]["note"] == f"logger stopped: {reason}" and rows[-1]["receiver_state"] == "stopped"
     assert integrity(cfg.store_path) == "ok"
     assert not list(cfg.archive_dir.rglob("*.tmp")), "temporary files left behind"
 
 
-def test_duration_ends_the_run_with_status_zero(tmp_path):
-    path = write_config(tmp_path)
-    run = Run(path, "--duration", "3")
+def test_sigterm_sigint_and_duration_stop_cleanly(tmp_path):
+    cases = {"SIGTERM": NARROW_IQ, "SIGINT": {}, "duration": {}}     # SIGTERM through the IQ path
+    cfgs, runs = {}, {}
+    for name, feed in cases.items():
+        (tmp_path / name).mkdir()
+        path = write_config(tmp_path / name, **feed)
+        cfgs[name] = load_config(path)
+        runs[name] = Run(path, *(["--duration", "6"] if name == "duration" else []))
     try:
-        rc = run.wait(timeout=30)
+        sent = {}
+        for name in ("SIGTERM", "SIGINT"):
+            runs[name].wait_for("segment ", timeout=40)
+        time.sleep(2.0)                                   # a few chunks in, one in progress
+        for name in ("SIGTERM", "SIGINT"):
+            sent[name] = runs[name].signal(getattr(signal, name))
+        for name in ("SIGTERM", "SIGINT"):
+            assert runs[name].wait(timeout=10) == 0, runs[name].stderr
+            took = time.time() - sent[name]
+            assert took <= 5.0, f"{name}: stop took {took:.1f} s"
+        assert runs["duration"].wait(timeout=40) == 0, runs["duration"].stderr
     finally:
-        run.kill()
-    assert rc == 0, run.stderr
-    out = run.proc.stdout.read()
+        for r in runs.values():
+            r.kill()
+    for name in ("SIGTERM", "SIGINT"):
+        _check_stopped(cfgs[name], runs[name], sent[name], name)
+    _check_stopped(cfgs["duration"], runs["duration"], runs["duration"].seen_at("stopping: duration reached"),
+                   "duration reached")
+    out = runs["duration"].proc.stdout.read()
     assert out.startswith("stopped (duration reached):"), out
-    assert "INFO logging station faulty" in run.stderr
+    assert "INFO logging station faulty" in runs["duration"].stderr

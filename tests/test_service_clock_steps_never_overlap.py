@@ -14,20 +14,21 @@ from rxlog.config import load_config
 from rxlog.timeutil import parse_iso
 from service_helpers import Run, archive_rows, health_rows, integrity, write_config
 
-FORWARD, BACK = 5.0, -4.0
+FORWARD, BACK = 3.0, -2.0
 
 
 def test_forward_and_backward_steps(tmp_path):
     path = write_config(tmp_path)
     cfg = load_config(path)
-    # Steps 8 s and 12 s after the logger's clock starts: spectra flow by then.
-    run = Run(path, env={"RXLOG_FAKE_CLOCK_STEPS": f"8:{FORWARD:+g},12:{BACK:+g}"})
+    # Steps 7 s and 9 s after the logger's clock starts (spectra flow by then); 9 - 7 = -BACK,
+    # so the wall clock repeats the time of the first step: health rows must not collide.
+    run = Run(path, env={"RXLOG_FAKE_CLOCK_STEPS": f"7:{FORWARD:+g},9:{BACK:+g}"})
     try:
         run.wait_for("segment ")
         run.wait_for(f"clock step {FORWARD:+.3f} s", timeout=20)
         run.wait_for(f"clock step {BACK:+.3f} s", timeout=20)
         # after a step back, rows are dropped until time passes the last row written
-        time.sleep(abs(BACK) + 3.0)
+        time.sleep(abs(BACK) + 2.0)
         run.signal(signal.SIGTERM)
         assert run.wait(10) == 0, run.stderr
     finally:

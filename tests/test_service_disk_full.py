@@ -40,12 +40,11 @@ def _free_mb(path):
 
 def _fill(path, leave_mb):
     """Grow a ballast file until only ``leave_mb`` is free (0: until the disk is full)."""
-    with open(path, "ab") as f:
+    with open(path, "ab", buffering=0) as f:         # unbuffered: nothing left to flush at close
         block = b"\0" * 65536
         try:
             while _free_mb(path.parent) > leave_mb:
                 f.write(block)
-                f.flush()
         except OSError:
             pass
 
@@ -61,12 +60,12 @@ def test_disk_nearly_full_pauses_raw_spectra_then_resumes(tmp_path, small_fs):
     run = Run(path)
     try:
         run.wait_for("segment ")
-        time.sleep(1.5)
+        time.sleep(1.0)
         _fill(ballast, MIN_FREE_MB - 2)
         t_pause = run.wait_for("WARNING raw spectra paused", timeout=10)
         time.sleep(1.5)                      # an in-flight chunk may still land
         rows_at_pause = _archived_rows(cfg)
-        time.sleep(2.0)
+        time.sleep(1.5)
         assert _archived_rows(cfg) == rows_at_pause, "raw spectra still archived below the threshold"
         paused = [h for h in health_rows(cfg.store_path) if h["raw_archiving"] == "paused"]
         assert len(paused) >= 3 and sum(h["spectra_not_archived"] for h in paused) > 0
@@ -74,12 +73,12 @@ def test_disk_nearly_full_pauses_raw_spectra_then_resumes(tmp_path, small_fs):
 
         # Completely full: SQLite and FITS writes fail; the logger must keep running.
         _fill(ballast, 0)
-        time.sleep(2.5)
+        time.sleep(2.0)
         assert run.proc.poll() is None, run.stderr
 
         ballast.unlink()
         t_resume = run.wait_for("WARNING raw spectra resumed", timeout=15)
-        time.sleep(3.0)
+        time.sleep(2.5)
         assert run.proc.poll() is None
         t_sig = run.signal(signal.SIGTERM)
         assert run.wait(10) == 0, run.stderr

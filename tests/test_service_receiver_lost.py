@@ -9,7 +9,7 @@ from rxlog.config import load_config
 from rxlog.timeutil import parse_iso
 from service_helpers import NARROW_IQ, RtlTcpServer, Run, archive_rows, health_rows, integrity, write_config
 
-OUTAGE_S = 3.0
+OUTAGE_S = 2.0
 RTL_SET_FREQ = 0x01
 
 
@@ -23,13 +23,13 @@ def test_rtl_tcp_server_gone_and_back(tmp_path):
     back = None
     try:
         run.wait_for("segment ", timeout=40)
-        time.sleep(2.0)
+        time.sleep(1.5)
         server.stop()
         run.wait_for("WARNING receiver lost at", timeout=20)
         time.sleep(OUTAGE_S)
         back = RtlTcpServer(rate=250_000, port=server.port).start()
         run.wait_for("data resumed", timeout=30)
-        time.sleep(1.5)
+        time.sleep(1.0)
         assert run.proc.poll() is None, "the logger exited instead of waiting for its receiver"
         run.signal(signal.SIGTERM)
         assert run.wait(10) == 0, run.stderr
