@@ -406,6 +406,9 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
     if (f["resolved"] and run <= max(2 * cad, 2.0) and abs(drift) <= 0.5
             and f["inst_bw_mhz"] <= max(0.3, 3 * abs(drift) * cad)):
         return "rfi", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)"
+    if f.get("one_subband") and f["span_s"] <= 3 * cad and run <= 2 * cad and not f["resolved"]:
+        return "rfi", 0.6, ("lit inside one sweep sub-band for a step or two: a short signal caught "
+                            "by the sweep")
     # Narrowness means something only where the event is not cut by the RFI mask.
     if bw < 0.5 and f["span_s"] <= 5.0 and not f.get("truncated"):
         return "rfi", 0.6, f"brief narrowband flash ({bw:.2f} MHz, {f['span_s']:.0f} s): no natural burst is that small"
@@ -761,7 +764,13 @@ class _Segment:
                 seen |= valid
             lit_prev = es[:-2] >= self.s.impulse_sigma
             lit_next = es[2:] >= self.s.impulse_sigma
-            side = lit_t & seen & dark_or_none & ~(lit_prev & lit_next)   # lit for at most two steps
+            # Only between two neighbours: at the band's edge sub-bands a drifting burst can
+            # light one sub-band before it reaches the only neighbour.
+            interior = np.zeros(nsb, dtype=bool)
+            interior[1:-1] = True
+            nb_ok = np.zeros_like(anchor)
+            nb_ok[:, 1:-1] = has[:, :-2] & has[:, 2:]
+            side = lit_t & seen & dark_or_none & nb_ok & interior[None, :] & ~(lit_prev & lit_next)
             edge = side[:, self.sb_id]
             # with the channels either side of the sub-band edges (they can straddle two dwells)
             grow = max(1, int(round(0.1 / self.chan_mhz)))
@@ -975,7 +984,8 @@ class _Segment:
             "bandwidth_mhz": bw, "inst_bw_mhz": float(np.median(width[rw >= 0.5 * rw.max()])),
             "full_rows": full_rows, "n_rows": int(len(urows)),
             "sk_fraction": float(np.mean(c.values["sk"] > 0)) if self.has_sk else None,
-            "bursty": False, "truncated": bool(truncated), **d,
+            "bursty": False, "truncated": bool(truncated),
+            "one_subband": bool(len(self.sb_start) > 1 and self.sb_id[lo_c] == self.sb_id[hi_c]), **d,
         }
 
     def _impulse_features(self, st: dict) -> dict:
