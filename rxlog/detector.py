@@ -1134,6 +1134,9 @@ class OnlineDetector:
     def pop_episodes(self) -> list[dict]:
         eps = [dict(self._episodes[i]) for i in sorted(self._touched)]
         self._touched.clear()
+        still = {ep["episode_id"] for ep in self._open}
+        for k in [k for k in self._episodes if k not in still]:     # closed and handed out: forget
+            del self._episodes[k]
         return eps
 
     def pop_quality(self) -> list[dict]:

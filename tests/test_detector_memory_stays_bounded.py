@@ -1,0 +1,33 @@
+"""Invariant: the online detector's state stays bounded however long it runs (a day of
+rows fed minute by minute holds no more than a few minutes of bursts and half a slow
+window of coarse block levels)."""
+
+import numpy as np
+
+from detector_helpers import Sky, cfg_with, sun_up
+from rxlog.detector import OnlineDetector
+
+
+def test_state_is_bounded_over_hours_of_feeding():
+    cfg = cfg_with(slow_window_s=1800.0, max_event_s=120.0)
+    sky = Sky(4 * 3600, n_chan=64, cadence=2.0)
+    for t in np.arange(300, 4 * 3600, 900):
+        sky.type3(t, 2.0)
+        sky.impulse(t + 400, 3.0)
+    spec = sky.spectrum(seed=1)
+    det = OnlineDetector(cfg, tags_fn=sun_up)
+    peak_rows, peak_blocks, peak_coarse, n_events = 0, 0, 0, 0
+    for i in range(0, spec.n_time, 30):
+        n_events += len(det.feed(spec.slice_rows(i, i + 30)))
+        seg = det.seg
+        peak_rows = max(peak_rows, seg.fine.grow.shape[0] + sum(p.n_time for p in seg.pending))
+        peak_blocks = max(peak_blocks, len(seg.blocks) + len(seg.stage_m))
+        peak_coarse = max(peak_coarse, len(seg.coarse))
+        det.pop_episodes()
+        det.pop_quality()
+        assert len(det._episodes) <= 10           # open episodes only (32 events in all)
+    n_events += len(det.flush())
+    assert n_events >= 16                            # the bursts were found along the way
+    assert peak_rows <= 120 / 2.0 + 2 * seg.R        # the longest burst plus a block
+    assert peak_blocks <= 2 * (seg.W + 4)            # the fast window and its look-ahead
+    assert peak_coarse <= 2 * seg.half_slow + 3      # the slow window
