@@ -762,15 +762,23 @@ class _Segment:
                 valid = has[:, nb] & (np.arange(nsb) + d >= 0)[None, :] & (np.arange(nsb) + d < nsb)[None, :]
                 dark_or_none &= ~valid | (Sn[:, nb] <= 0.3 * Sn)
                 seen |= valid
-            lit_prev = es[:-2] >= self.s.impulse_sigma
-            lit_next = es[2:] >= self.s.impulse_sigma
+            p2 = prev_s[-2:] if prev_s.shape[0] >= 2 else np.concatenate([np.zeros_like(prev_s[:1]), prev_s[-1:]])
+            e2 = np.concatenate([p2, S, nxt_s[:2]], axis=0) / scale_s            # rows -2 .. n+1
+            lit = e2 >= self.s.impulse_sigma
+
+            def lit_at(k):                      # lit k steps from each row of the block
+                return lit[2 + k:2 + k + n]
+
+            # the lit run through the step is at most two steps long (a slow Type II lane
+            # stays in a sub-band for many steps)
+            short_run = ~(lit_at(-1) & lit_at(1)) & ~(lit_at(-1) & lit_at(-2)) & ~(lit_at(1) & lit_at(2))
             # Only between two neighbours: at the band's edge sub-bands a drifting burst can
             # light one sub-band before it reaches the only neighbour.
             interior = np.zeros(nsb, dtype=bool)
             interior[1:-1] = True
             nb_ok = np.zeros_like(anchor)
             nb_ok[:, 1:-1] = has[:, :-2] & has[:, 2:]
-            side = lit_t & seen & dark_or_none & nb_ok & interior[None, :] & ~(lit_prev & lit_next)
+            side = lit_t & seen & dark_or_none & nb_ok & interior[None, :] & short_run
             edge = side[:, self.sb_id]
             # with the channels either side of the sub-band edges (they can straddle two dwells)
             grow = max(1, int(round(0.1 / self.chan_mhz)))
@@ -985,8 +993,20 @@ class _Segment:
             "full_rows": full_rows, "n_rows": int(len(urows)),
             "sk_fraction": float(np.mean(c.values["sk"] > 0)) if self.has_sk else None,
             "bursty": False, "truncated": bool(truncated),
-            "one_subband": bool(len(self.sb_start) > 1 and self.sb_id[lo_c] == self.sb_id[hi_c]), **d,
+            "one_subband": self._fills_one_subband(lo_c, hi_c), **d,
         }
+
+    def _fills_one_subband(self, lo_c: int, hi_c: int) -> bool:
+        """The event spans the whole usable part of one sweep sub-band and nothing else,
+        as a short signal caught by one dwell does (edges within 50 kHz)."""
+        if len(self.sb_start) < 2 or self.sb_id[lo_c] != self.sb_id[hi_c]:
+            return False
+        b = self.sb_id[lo_c]
+        usable = np.flatnonzero(~self.always[self.sb_start[b]:self.sb_stop[b]]) + self.sb_start[b]
+        if len(usable) == 0:
+            return False
+        tol = max(2, int(round(0.05 / self.chan_mhz)))
+        return lo_c <= usable[0] + tol and hi_c >= usable[-1] - tol
 
     def _impulse_features(self, st: dict) -> dict:
         def t_of(row, sb):
