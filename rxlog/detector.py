@@ -410,8 +410,12 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
         return "rfi", 0.6, ("lit inside one sweep sub-band for a step or two: a short signal caught "
                             "by the sweep")
     # Narrowness means something only where the event is not cut by the RFI mask.
-    if bw < 0.5 and f["span_s"] <= 5.0 and not f.get("truncated"):
-        return "rfi", 0.6, f"brief narrowband flash ({bw:.2f} MHz, {f['span_s']:.0f} s): no natural burst is that small"
+    if bw < 0.5 and f["span_s"] <= 5.0:
+        if not f.get("truncated"):
+            return "rfi", 0.6, f"brief narrowband flash ({bw:.2f} MHz, {f['span_s']:.0f} s): no natural burst is that small"
+        if not jup_up:
+            return "rfi", 0.5, (f"brief flash ({bw:.2f} MHz, {f['span_s']:.0f} s) in a gap of the RFI mask, "
+                                "seen nowhere else in the band")
     if f["resolved"] and drift > 0 and not jup_up:
         return "rfi", 0.6, f"upward drift {drift:+.2f} MHz/s: solar bursts drift down, Jupiter is not up"
 
