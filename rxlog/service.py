@@ -327,6 +327,7 @@ class Logger:
     def _put(self, item, block: bool):
         """Queue an item. A receiver paced at real time cannot wait: a full queue drops the chunk."""
         while not self.stop_event.is_set():
+            self.feed_heartbeat = self.clock.monotonic()   # waiting on the main thread is no stall
             try:
                 self.queue.put(item, timeout=0.2 if block else 0)
                 return
@@ -621,7 +622,9 @@ class Logger:
     def run(self, duration_s: float | None = None) -> dict:
         clock = self.clock
         start = clock.monotonic()
-        self.last_end = self._previous_end()
+        # A live receiver restarted after a crash must not write over what the last run
+        # stored (its clock may since have stepped back); a replayed recording keeps its times.
+        self.last_end = self._previous_end() if getattr(self.feed, "paced", True) else None
         self._feed_thread = threading.Thread(target=self._feed_loop, name="rxlog-feed", daemon=True)
         self._feed_thread.start()
         log.info("logging station %s to %s (chunk %g s, health every %g s)", self.station,
