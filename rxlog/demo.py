@@ -9,6 +9,7 @@ is real data.
 from __future__ import annotations
 
 import datetime as dt
+import sys
 import time
 from pathlib import Path
 from zoneinfo import ZoneInfo
@@ -25,11 +26,11 @@ CLUB = "Birchwater Radio Sky Circle"
 STATIONS = [
     ("birchwater", 46.083, -73.412, 310.0, "America/Toronto",
      "two crossed half-wave dipoles for 20.1 MHz, 3 m above a hayfield",
-     "Birchwater Radio Sky Circle, night log keeper", 1024, 1.0, "rural", 0.0),
+     "Birchwater Radio Sky Circle, night log keeper", 1024, 1.0, "quiet-rural", 0.0),
     ("kestrel-ridge", 43.212, -77.940, 180.0, "America/New_York",
      "single E-W dipole for 20.1 MHz", "Kestrel Ridge schoolyard radio club", 512, 1.0, "residential", 1.8),
     ("saltmarsh-point", 44.402, -68.215, 25.0, "America/New_York",
-     "phased pair of dipoles, 21 MHz", "Saltmarsh Point lighthouse volunteers", 256, 2.0, "quiet-rural", 0.2),
+     "phased pair of dipoles, 21 MHz", "Saltmarsh Point lighthouse volunteers", 256, 2.0, "rural", 0.2),
 ]
 
 # The scenario: the club's first winter of logging, Jupiter a few weeks past opposition.
@@ -38,7 +39,8 @@ SCENARIO_DAYS = 14
 SEED = 20270201
 
 
-def station_config_text(name, lat, lon, elev, tz, antenna, contact, channels=1024, cadence_s=1.0) -> str:
+def station_config_text(name, lat, lon, elev, tz, antenna, contact, channels=1024, cadence_s=1.0,
+                        rfi="rural") -> str:
     return f"""# rxlog station config for the demo station "{name}" ({CLUB}, fictional).
 # A working config: rxlog run, detect, review, export and the rest accept it as it is.
 
@@ -53,6 +55,8 @@ operator_contact = "{contact}"
 
 [receiver]
 kind = "simulated"
+sim_rfi = "{rfi}"          # the simulated site's man-made noise (ITU-R P.372 category)
+sim_seed = {SEED}        # one seed, one sky: the partner stations hear the same bursts
 
 [spectra]
 fmin_mhz = 16.0
@@ -67,7 +71,7 @@ retention_days = 3650
 
 
 def write_station(out: Path, spec: tuple) -> Config:
-    return config_from_text(station_config_text(*spec[:9]), out / spec[0] / "station.toml")
+    return config_from_text(station_config_text(*spec[:10]), out / spec[0] / "station.toml")
 
 
 def local_noon_before(t_unix: float, tz: str) -> float:
@@ -111,9 +115,9 @@ def scenario_bursts(night_start: float, window: dict) -> list[dict]:
     ]
 
 
-def simulate_into_archive(cfg, start: float, hours: float, rfi: str, inject: list[dict],
+def simulate_into_archive(cfg, start: float, hours: float, inject: list[dict],
                           clock_error_s: float = 0.0, label: str = "simulating") -> list[dict]:
-    """Simulate ``hours`` of spectra into the station's archive; return the truth rows.
+    """Simulate ``hours`` of spectra (the config's sim_seed and sim_rfi) into the archive; return the truth rows.
 
     ``clock_error_s`` shifts the station's time stamps as a wrong clock would: the sky is
     the same, the station writes it down late (positive) or early (negative).
@@ -121,13 +125,13 @@ def simulate_into_archive(cfg, start: float, hours: float, rfi: str, inject: lis
     from rxlog.archive import ArchiveWriter
     from rxlog.simulator import iter_spectra
 
-    run = iter_spectra(cfg, start, hours, seed=SEED, rfi=rfi, inject=inject)
+    run = iter_spectra(cfg, start, hours, inject=inject)
     # A batch that can simply be re-run needs no minute-by-minute crash safety: hour-long
     # chunks spare the archive 59 of every 60 file writes.
     n_chunks = -(-run.n_rows // run.chunk_rows)
     with ArchiveWriter(cfg.archive_dir, cfg["station"], lossless=cfg["storage"]["lossless"],
                        chunk_s=3600.0) as writer, \
-            click.progressbar(length=n_chunks, label=f"  {label}", file=click.get_text_stream("stderr")) as bar:
+            click.progressbar(length=n_chunks, label=f"  {label}", file=sys.stderr) as bar:
         for chunk in run:
             chunk.t0 += clock_error_s
             writer.write(chunk)
@@ -153,7 +157,7 @@ def score_against_truth(truth: list[dict], events: list[dict]) -> tuple[int, int
 def detect_quietly(cfg, label: str) -> dict:
     from rxlog.detector import detect_range
 
-    with click.progressbar(length=100, label=f"  {label}", file=click.get_text_stream("stderr")) as bar:
+    with click.progressbar(length=100, label=f"  {label}", file=sys.stderr) as bar:
         done = [0]
 
         def progress(a, b):
@@ -172,7 +176,6 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     from rxlog.report import build_report
     from rxlog.simulator import write_truth_csv
     from rxlog.store import EventStore
-    from rxlog.timeutil import iso
 
     out = Path(out).resolve()
     out.mkdir(parents=True, exist_ok=True)
@@ -191,7 +194,7 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
          f"{window['start_utc'][11:16]}-{window['end_utc'][11:16]} UTC")
 
     bursts = scenario_bursts(night_start, window)
-    truth = simulate_into_archive(cfg, night_start, 24.0, home[9], bursts, label="simulating the night")
+    truth = simulate_into_archive(cfg, night_start, 24.0, bursts, label="simulating the night")
     wrote["truth"] = write_truth_csv(truth, cfg.storage_root / "truth.csv")
     summary = detect_quietly(cfg, "detecting bursts")
     events = EventStore(cfg.store_path).events()
@@ -220,7 +223,7 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     export_events(cfg, lists[0], "csv")
     for spec in partners:
         pcfg = write_station(out, spec)
-        simulate_into_archive(pcfg, night_start, 24.0, spec[9], bursts, clock_error_s=spec[10],
+        simulate_into_archive(pcfg, night_start, 24.0, bursts, clock_error_s=spec[10],
                               label=f"simulating partner {spec[0]}")
         detect_quietly(pcfg, f"detecting at {spec[0]}")
         path = exchange_dir / f"{spec[0]}-events.csv"
