@@ -63,6 +63,7 @@ DISK_CHECK_S = 1.0              # look at free space at most this often
 DISK_RETRY_S = 5.0              # after a pause, wait at least this long before archiving again
 CLOCK_SYNC_CHECK_S = 60.0       # ask timedatectl/chronyc at most this often
 RETENTION_EVERY_S = 86400.0     # prune old spectra once a day
+PREVIOUS_AHEAD_MAX_S = 3600.0   # a previous run's data further ahead than this are not waited for
 OVERLAP_TOL = 1e-4              # of a cadence: rows this close are contiguous (the archive's own tolerance)
 STOP_JOIN_S = 2.0               # how long a stop waits for the feed thread
 CLOCK_STEPS_ENV = "RXLOG_FAKE_CLOCK_STEPS"   # test hook, see Clock.from_env
@@ -670,13 +671,27 @@ class Logger:
         return self._finish(ended)
 
     def _previous_end(self) -> float | None:
-        """End of the data a previous run stored, so a restart never overlaps it."""
+        """End of the data a previous run stored, so a restart never overlaps it.
+
+        Data more than PREVIOUS_AHEAD_MAX_S ahead of the clock cannot be a clock that
+        stepped back (NTP steps are seconds) but a simulation run ahead of time in the same
+        storage root: waiting for it would drop everything, so it is ignored with a warning."""
         try:
             row = self.store.db.execute("select max(end_utc) from segments where station = ?",
                                         [self.station]).fetchone()
         except sqlite3.Error:
             return None
-        return parse_iso(row[0]) if row and row[0] else None
+        if not (row and row[0]):
+            return None
+        end, now = parse_iso(row[0]), self.clock.realtime()
+        if end > now + PREVIOUS_AHEAD_MAX_S:
+            log.warning("stored data reach %s, %.0f s ahead of the clock (a simulation run ahead of "
+                        "time?); new spectra are archived beside them", row[0], end - now)
+            return None
+        if end > now:
+            log.warning("stored data reach %s, %.1f s ahead of the clock: spectra before that are "
+                        "dropped so data never overlap", row[0], end - now)
+        return end
 
     def _finish(self, ended: bool) -> dict:
         t_stop = self.clock.monotonic()
