@@ -30,7 +30,7 @@ STATIONS = [
     ("kestrel-ridge", 43.212, -77.940, 180.0, "America/New_York",
      "single E-W dipole for 20.1 MHz", "Kestrel Ridge schoolyard radio club", 512, 1.0, "residential", 1.8),
     ("saltmarsh-point", 44.402, -68.215, 25.0, "America/New_York",
-     "phased pair of dipoles, 21 MHz", "Saltmarsh Point lighthouse volunteers", 256, 2.0, "rural", 0.2),
+     "phased pair of dipoles, 21 MHz", "Saltmarsh Point lighthouse volunteers", 256, 1.0, "rural", 0.2),
 ]
 
 # The scenario: the club's first winter of logging, Jupiter a few weeks past opposition.
