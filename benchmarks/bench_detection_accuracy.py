@@ -17,8 +17,9 @@ chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
 A truth row counts as detected when a detection overlaps its time-frequency box (with
 5 s and 0.2 MHz of slack). Each detection is matched to the truth row that holds the
 largest share of its box (the most specific one among equals). Class accuracy is given
-two ways per true class: the share of detected truth rows whose best detection (highest
-intersection over union) has that class (the target), and, stricter, the share of all
+two ways per true class: the share of truth rows whose best detection (the one with the
+highest intersection over union among the detections that belong to the row) has that
+class (the target), and, stricter, the share of all
 detections matched to such rows (fragments, and interference inside a long event's box).
 Type III drift error compares the best-SNR matching detection with the simulated drift at
 the detection's centre frequency (Alvarez & Haddock law, as the simulator draws it).
@@ -123,10 +124,13 @@ def score(results):
     false_city, n_det, n_matched = 0, 0, 0
     for name, truth, events, _inject in results:
         tboxes = [_box(t) for t in truth]
+        owned = defaultdict(list)                # truth row -> the detections that belong to it
         for e in events:
             n_det += 1
             eb = _box(e)
             best = _match(eb, tboxes)
+            if best is not None:
+                owned[best].append(e)
             if best is None:
                 if name == "night-rfi-city" and e["class"] != "rfi":
                     false_city += 1
@@ -137,10 +141,9 @@ def score(results):
             right[tcls][0] += e["class"] == tcls
             if name == "night-rfi-city" and e["class"] != "rfi":
                 false_city += 1
-        for t, tb in zip(truth, tboxes):
-            hits = [e for e in events if _overlap(_box(e), tb) > 0]
-            if hits:
-                best = max(hits, key=lambda e: _iou(_box(e), tb))
+        for k, (t, tb) in enumerate(zip(truth, tboxes)):
+            if owned.get(k):
+                best = max(owned[k], key=lambda e: _iou(_box(e), tb))
                 per_truth[t["class"]][1] += 1
                 per_truth[t["class"]][0] += best["class"] == t["class"]
             if not t["reason"].startswith("injected"):
