@@ -375,6 +375,12 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
                 return "unknown", 0.5, why(f"band-wide drop of {-depth:.1f} dB", sun_txt, "not a fadeout at night")
             return "unknown", 0.4, why(f"drop of {-depth:.1f} dB over {bw:.1f} MHz only", "not band-wide")
         long_bb = f["span_s"] >= 600.0 and bw >= 0.5 * band
+        drift = f["drift"]
+        if f["resolved"] and drift is not None and TYPE2_DRIFT[0] * TYPE3_FACTOR <= drift <= TYPE2_DRIFT[1] \
+                and not long_bb:
+            txt = f"slow drift {drift:.2f} MHz/s over {f['span_s'] / 60:.1f} min (Type II range)"
+            if sun_up:
+                return "solar_ii", 0.65, why(txt, sun_txt)
         if long_bb and sun_up and not (f["bursty"] and jup_up):
             return "solar_iv", 0.7, why(f"broadband continuum {depth:.1f} dB over {bw:.1f} MHz "
                                         f"for {f['span_s'] / 60:.0f} min", sun_txt)
@@ -432,7 +438,7 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
                 return "solar_iii", round(0.3 + 0.3 * closeness, 2), why(match, "no ephemeris")
             if not jup_up:
                 return "unknown", 0.4, why(match, sun_txt)
-        if (TYPE2_DRIFT[0] * TYPE3_FACTOR <= drift <= TYPE2_DRIFT[1] and f["span_s"] >= 20.0
+        if (TYPE2_DRIFT[0] * TYPE3_FACTOR <= drift <= TYPE2_DRIFT[1] and f["span_s"] >= 10.0
                 and run >= 3 * cad):
             txt = f"slow drift {drift:.2f} MHz/s over {f['span_s'] / 60:.1f} min (Type II range)"
             if sun_up:
@@ -1055,6 +1061,15 @@ class _Segment:
         prof = np.bincount(rows - rows.min(), weights=sign * ex) / np.maximum(np.bincount(rows - rows.min()), 1)
         rough = float(np.median(np.abs(np.diff(prof))) / max(np.median(prof), 1e-6)) if len(prof) > 3 else 0.0
         gmhz = self.s.slow_freq_mhz
+        # Drift on the coarse grid: the block of peak excess in each coarse channel (a slow
+        # Type II lane crosses the band in minutes; a continuum or fadeout shows none).
+        ucols, cinv = np.unique(cols, return_inverse=True)
+        pk = np.full(len(ucols), -np.inf); np.maximum.at(pk, cinv, sign * ex)
+        at_pk = (sign * ex) >= pk[cinv]
+        first = np.full(len(ucols), np.iinfo(np.int64).max); np.minimum.at(first, cinv[at_pk], rows[at_pk])
+        g_f = np.array([self.f_mhz[self.groups == g].mean() for g in ucols])   # a few dozen groups
+        d = fit_drift(self.t0 + (first + 0.5) * self.block_s, g_f, np.clip(pk, 0, None) ** 2,
+                      gmhz, self.block_s)
         lin = np.power(10.0, ex.astype(np.float64) / 10.0) - 1.0
         return {
             "path": "slow", "sign": sign,
@@ -1065,9 +1080,7 @@ class _Segment:
             "run_s": float(np.median(np.bincount(cols)[np.unique(cols)]) * self.block_s),
             "span_s": float(end - start), "bandwidth_mhz": fmax - fmin, "inst_bw_mhz": fmax - fmin,
             "full_rows": 1.0, "n_rows": span_blocks, "sk_fraction": None,
-            "bursty": rough > 0.3,
-            "drift": None, "drift_err": None, "dtdf": 0.0, "dtdf_err": math.inf, "resolved": False,
-            "spread_s": 0.0, "n_bins": 0,
+            "bursty": rough > 0.3, **d,
         }
 
     def hours_before(self, t: float) -> list[tuple[float, list[float]]]:
