@@ -335,7 +335,8 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
     and cadence_s. Rules and their thresholds:
     Type III -- resolved negative drift within a factor TYPE3_FACTOR of Alvarez & Haddock
     1973 at the event's centre frequency, seconds at fixed frequency, Sun up;
-    Type II -- drift in TYPE2_DRIFT, a minute or more long; Type IV -- long (10 min or
+    Type II -- drift in TYPE2_DRIFT (down to twice its faster end), lasting several time
+    steps at fixed frequency, Sun up, from either path; Type IV -- long (10 min or
     more) broadband (half the band or more) positive continuum, Sun up; fadeout --
     band-wide drop with the Sun up; Jovian L -- Jupiter up, the rest of the morphology
     natural (in an Io source region raises the confidence); rfi -- impulsive (every
