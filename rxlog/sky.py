@@ -232,20 +232,24 @@ def _sky_rings(lat_deg: float):
     t_rel = _galactic_relative(*icrs_to_galactic_deg(np.degrees(ra), np.degrees(dec)))
     t_rel = t_rel / t_rel.mean()
     phi = np.radians(lat_deg)
-    lst = np.radians(np.arange(361.0))[:, None]
-    ha = lst - ra[None, :]
-    sin_alt = np.sin(phi) * np.sin(dec) + np.cos(phi) * np.cos(dec) * np.cos(ha)
-    alt = np.degrees(np.arcsin(np.clip(sin_alt, -1, 1)))
-    az = np.degrees(np.arctan2(-np.cos(dec) * np.sin(ha),
-                               np.sin(dec) * np.cos(phi) - np.cos(dec) * np.sin(phi) * np.cos(ha)))
-    zen = 90.0 - alt
-    beam = dipole_beam(zen, az)
-    ring = np.clip((zen / (90.0 / N_RINGS)).astype(int), 0, N_RINGS - 1)
     w = np.zeros((361, N_RINGS))
-    for r in range(N_RINGS):   # 18 rings, once per latitude
-        sel = (ring == r) & (alt > 0)
-        w[:, r] = (beam * t_rel * sel).sum(axis=1)
-    w /= (beam * (alt > 0)).sum(axis=1)[:, None]
+    norm = np.zeros(361)
+    # In blocks of LST rows: the whole 361 x 4000 grid at once held ~120 MB of temporaries.
+    for k0 in range(0, 361, 40):
+        lst = np.radians(np.arange(k0, min(361, k0 + 40), dtype=np.float64))[:, None]
+        ha = lst - ra[None, :]
+        sin_alt = np.sin(phi) * np.sin(dec) + np.cos(phi) * np.cos(dec) * np.cos(ha)
+        alt = np.degrees(np.arcsin(np.clip(sin_alt, -1, 1)))
+        az = np.degrees(np.arctan2(-np.cos(dec) * np.sin(ha),
+                                   np.sin(dec) * np.cos(phi) - np.cos(dec) * np.sin(phi) * np.cos(ha)))
+        zen = 90.0 - alt
+        up_beam = dipole_beam(zen, az) * (alt > 0)
+        ring = np.clip((zen / (90.0 / N_RINGS)).astype(int), 0, N_RINGS - 1)
+        rows = slice(k0, k0 + lst.shape[0])
+        for r in range(N_RINGS):   # 18 rings, once per latitude
+            w[rows, r] = (up_beam * t_rel * (ring == r)).sum(axis=1)
+        norm[rows] = up_beam.sum(axis=1)
+    w /= norm[:, None]
     ring_z = (np.arange(N_RINGS) + 0.5) * 90.0 / N_RINGS
     return w, ring_z
 
