@@ -221,9 +221,14 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     exchange_dir = out / "exchange"
     lists = [exchange_dir / f"{name}-events.csv"]
     export_events(cfg, lists[0], "csv")
+    # The partners log from an hour before the forecast window to the night's end: the
+    # storm and the morning's solar bursts, in less time than a whole night.
+    p_start = max(night_start, window["start"] - 3600.0)
+    p_hours = (night_start + 86400.0 - p_start) / 3600.0
+    p_bursts = [b for b in bursts if b["t"] >= p_start]
     for spec in partners:
         pcfg = write_station(out, spec)
-        simulate_into_archive(pcfg, night_start, 24.0, bursts, clock_error_s=spec[10],
+        simulate_into_archive(pcfg, p_start, p_hours, p_bursts, clock_error_s=spec[10],
                               label=f"simulating partner {spec[0]}")
         detect_quietly(pcfg, f"detecting at {spec[0]}")
         path = exchange_dir / f"{spec[0]}-events.csv"
