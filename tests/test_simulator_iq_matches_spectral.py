@@ -1,5 +1,5 @@
 """IQ mode through rxlog's channelizer reproduces the spectral mode: background level
-within 0.5 dB (the issue's check), and the cell scatter the spectral mode's gamma shape
+within 0.5 dB (rxlog's own consistency check), and the cell scatter the spectral mode's gamma shape
 predicts. Also: the SimulatedReceiver source contract and seeded reproducibility."""
 
 import numpy as np
