@@ -600,8 +600,7 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
         handles = [Rectangle((0, 0), 1, 1, facecolor="#444444", edgecolor=CLASS_COLOURS[c], linewidth=2)
                    for c in present]
         fig.legend(handles, [f"{LABEL_NAMES[c]} ({c})" for c in present], loc="lower center",
-                   bbox_to_anchor=(left + width / 2, 0.0), fontsize=8, ncol=len(present), frameon=False,
-                   title="event boxes", title_fontsize=8)
+                   bbox_to_anchor=(left + width / 2, 0.0), fontsize=8, ncol=min(len(present), 4), frameon=False)
     ax.set_ylabel("frequency (MHz)")
     ax.set_ylim(f0, f1)
     ax.tick_params(axis="x", labelbottom=False)
