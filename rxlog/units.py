@@ -29,6 +29,20 @@ DEFAULT_STORAGE = "/var/lib/rxlog"
 # rules file carries for the common dongles): Realtek's reference ids and the Generic RTL2832U.
 RTLSDR_USB_IDS = (("0bda", "2838"), ("0bda", "2832"))
 
+# The sandbox both services run in: write access only to the storage root.
+_HARDENING = """\
+NoNewPrivileges=yes
+ProtectSystem=strict
+ProtectHome=read-only
+ReadWritePaths={storage}
+PrivateTmp=yes
+ProtectKernelTunables=yes
+ProtectKernelModules=yes
+ProtectControlGroups=yes
+RestrictSUIDSGID=yes
+LockPersonality=yes
+"""
+
 _SERVICE = """\
 [Unit]
 Description=rxlog decametric radio logger{station}
@@ -50,17 +64,7 @@ Restart=on-failure
 RestartSec=10
 # rxlog stops cleanly on SIGTERM within 5 s; allow more before systemd kills it.
 TimeoutStopSec=20
-NoNewPrivileges=yes
-ProtectSystem=strict
-ProtectHome=read-only
-ReadWritePaths={storage}
-PrivateTmp=yes
-ProtectKernelTunables=yes
-ProtectKernelModules=yes
-ProtectControlGroups=yes
-RestrictSUIDSGID=yes
-LockPersonality=yes
-
+""" + _HARDENING + """
 [Install]
 WantedBy=multi-user.target
 """
@@ -77,17 +81,7 @@ Group={user}
 ExecStart=/bin/sh -c 'exec {python} -m rxlog review --config {config} --night "$$({tz}date -d yesterday +%%F)"'
 SyslogIdentifier=rxlog-review
 Nice=10
-NoNewPrivileges=yes
-ProtectSystem=strict
-ProtectHome=read-only
-ReadWritePaths={storage}
-PrivateTmp=yes
-ProtectKernelTunables=yes
-ProtectKernelModules=yes
-ProtectControlGroups=yes
-RestrictSUIDSGID=yes
-LockPersonality=yes
-"""
+""" + _HARDENING
 
 _REVIEW_TIMER = """\
 [Unit]
