@@ -28,6 +28,7 @@ reason; and ephemeris tags at peak, start and end.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -54,6 +55,14 @@ TYPE2_DRIFT = (-0.5, -0.02)
 # millisecond resolution: never inferred from spectra coarser than this.
 SBURST_DRIFT = (-40.0, -3.0)
 SBURST_MAX_CADENCE_S = 0.01
+# A Jovian storm is made of seconds-long L-bursts of scintillating intensity
+# (../shared/domain.md), which widen the second-to-second scatter of a long event's
+# blocks; a steady broadband rise (power-line arcing, a switching supply) keeps it, since
+# the noise of a power in dB does not depend on its level. The slow path's "texture" is
+# that scatter against the quiet quarter of the slow window. Threshold from rxlog's own
+# simulated storms (1.5-2.6) and steady rises (1.0-1.1): a first setting, to check on
+# real nights.
+STORM_TEXTURE = 1.25
 
 EVENT_FIELDS = ("station", "event_id", "episode_id", "start_utc", "end_utc", "peak_utc",
                 "fmin_mhz", "fmax_mhz", "peak_excess_db", "snr", "integrated_excess",
@@ -385,6 +394,11 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
         if long_bb and sun_up and not (f["bursty"] and jup_up):
             return "solar_iv", 0.7, why(f"broadband continuum {depth:.1f} dB over {bw:.1f} MHz "
                                         f"for {f['span_s'] / 60:.0f} min", sun_txt)
+        tx = f.get("texture")
+        if jup_up and tx is not None and tx < STORM_TEXTURE and not sun_up:
+            return "rfi", 0.5, why(f"steady rise of {depth:.1f} dB over {bw:.1f} MHz for {f['span_s'] / 60:.0f} min "
+                                   f"without the seconds-long texture of L-bursts (scatter x{tx:.2f}): man-made "
+                                   "(power-line arcing, a switching supply)", jup_txt)
         if jup_up:
             conf = 0.75 if region else 0.55
             return "jovian_l", conf, why(f"storm {depth:.1f} dB over {bw:.1f} MHz for {f['span_s'] / 60:.0f} min",
@@ -413,9 +427,14 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
     if (f["resolved"] and run <= max(2 * cad, 2.0) and abs(drift) <= 0.5
             and f["inst_bw_mhz"] <= max(0.3, 3 * abs(drift) * cad)):
         return "rfi", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)"
-    if f.get("one_subband") and f["span_s"] <= 3 * cad and run <= 2 * cad and not f["resolved"]:
+    # (A drift fitted inside one dwell over two steps is only the two steps: every channel
+    # of a sub-band is sampled at the same moment.)
+    if f.get("one_subband") and f["span_s"] <= 3 * cad and run <= 2 * cad:
         return "rfi", 0.6, ("lit inside one sweep sub-band for a step or two: a short signal caught "
                             "by the sweep")
+    if f.get("subband_rows") and run <= 2 * cad:
+        return "rfi", 0.6, (f"each of {f['n_rows']} steps lit in exactly one sweep sub-band, edge to edge: "
+                            "pulses caught by the sweep, not a burst")
     # Narrowness means something only where the event is not cut by the RFI mask.
     if bw < 0.5 and f["span_s"] <= 5.0:
         if not f.get("truncated"):
@@ -502,6 +521,34 @@ class _Segment:
         self.storms_done: list[dict] = []
         self.carry_anchor = False
         self.sb_id = np.repeat(np.arange(len(self.sb_start)), self.sb_stop - self.sb_start)
+        # Each sub-band in eighths (sub-bands of 16 channels or more), to tell a dwell lit
+        # evenly from edge to edge (a pulse) from a lane crossing part of it.
+        parts, owner = [], []
+        for b, (a, z) in enumerate(zip(self.sb_start, self.sb_stop)):
+            cuts = np.unique(np.linspace(a, z, 9).astype(np.int64)[:-1]) if z - a >= 16 else np.array([a])
+            parts.append(cuts)
+            owner.append(np.full(len(cuts), b))
+        self.q_start = np.concatenate(parts).astype(np.int64)
+        self.q_owner = np.concatenate(owner).astype(np.int64)
+        # Channels the static mask always covers (ranges without hours).
+        always = np.zeros(self.n_chan, dtype=bool)
+        for r in s.static_ranges:
+            if r.get("hours_utc") is None:
+                always |= rfi.static_mask([r], self.freq, np.zeros(1))[0]
+        # Beside each sub-band: the first 0.15 MHz of channels outside the static mask,
+        # starting 0.1 MHz past each edge (clear of channels that straddle two dwells) and
+        # at most 0.6 MHz away; none at the band's edges.
+        k1, k2 = max(1, int(round(0.1 / self.chan_mhz))), max(1, int(round(0.6 / self.chan_mhz)))
+        m = max(4, int(round(0.15 / self.chan_mhz)))
+        self.sb_beside = []
+        for a, z in zip(self.sb_start, self.sb_stop):
+            sides = []
+            for cand in (np.arange(a - k1 - 1, a - k2 - 1, -1), np.arange(z + k1, z + k2)):
+                cand = cand[(cand >= 0) & (cand < self.n_chan)]
+                cand = cand[~always[cand]][:m]
+                if len(cand) >= 4:
+                    sides.append(cand)
+            self.sb_beside.append(sides)
         self.groups = bg.coarse_groups(self.freq, s.slow_freq_mhz)
         self.n_groups = int(self.groups.max()) + 1
         gchange = np.flatnonzero(np.diff(self.groups) != 0) + 1
@@ -518,6 +565,7 @@ class _Segment:
         self.fast: dict[int, tuple] = {}
         self.stage_m: dict[int, dict] = {}
         self.coarse: dict[int, np.ndarray] = {}
+        self.coarse_sig: dict[int, np.ndarray] = {}    # coarse second-to-second noise of each block
         self.n_blocks = 0          # blocks cut so far
         self.next_fast = 0
         self.next_m = 0
@@ -525,14 +573,10 @@ class _Segment:
         self.next_slow = 0
         self.has_sk = spec.kurtosis is not None
         fields = ("ex", "sig", "raw", "sk")
-        always = np.zeros(self.n_chan, dtype=bool)
-        for r in s.static_ranges:
-            if r.get("hours_utc") is None:
-                always |= rfi.static_mask([r], self.freq, np.zeros(1))[0]
         col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
                              round(s.max_event_s / cad), fields, col_map=col_map)
-        slow_fields = ("ex", "sig")
+        slow_fields = ("ex", "sig", "tx")
         gap_b = max(1, int(round(s.merge_gap_s / self.block_s)))
         g_always = np.bincount(self.groups, weights=always.astype(float), minlength=self.n_groups) \
             >= np.bincount(self.groups, minlength=self.n_groups)
@@ -621,6 +665,7 @@ class _Segment:
         self.level[j] = np.where(cmask, np.nan, level).astype(np.float32)
         self.sigma[j] = sigma
         self.coarse[j] = bg.coarse_levels(self.level[j], self.groups, self.n_groups)
+        self.coarse_sig[j] = bg.coarse_levels(np.where(cmask, np.nan, sigma), self.groups, self.n_groups)
 
     # -- scheduling ------------------------------------------------------------------
     def _advance(self, final: bool) -> list:
@@ -682,7 +727,8 @@ class _Segment:
         for d, keep_from in ((self.blocks, self.next_m), (self.stage_m, self.next_s - 1),
                              (self.fast, self.next_m - 1), (self.chan_mask, self.next_m),
                              (self.sigma, self.next_fast - self.W), (self.level, self.next_fast - self.W),
-                             (self.coarse, self.next_slow - self.half_slow)):
+                             (self.coarse, self.next_slow - self.half_slow),
+                             (self.coarse_sig, self.next_slow - self.half_slow)):
             for k in [k for k in d if k < keep_from]:
                 del d[k]
 
@@ -713,7 +759,7 @@ class _Segment:
         st = rfi.sum_threshold(hp, st, 0, s.sumthreshold_chi1, self.st_t)
         st &= w
         w &= ~st
-        imp, sub = self._impulses(j, z, w, n, excess)
+        imp, sub = self._impulses(j, z, w, n, excess, good)
         w &= ~imp
         st |= imp
         sk_anom = np.zeros_like(w)
@@ -738,7 +784,7 @@ class _Segment:
         nw = np.add.reduceat(w.astype(np.float32), starts, axis=1)
         return np.where(nw > 0, zw / np.sqrt(np.maximum(nw, 1.0)), 0.0).astype(np.float32)
 
-    def _impulses(self, j: int, z: np.ndarray, w: np.ndarray, n: int, excess: np.ndarray):
+    def _impulses(self, j: int, z: np.ndarray, w: np.ndarray, n: int, excess: np.ndarray, good: np.ndarray):
         """Cells of impulses. An anchor is a whole sub-band lit for one time step with the
         steps either side dark (below 0.3 of it), or lit with the neighbouring sub-bands dark
         (below 0.3 of it) in the same step; for the first kind, in the anchor's step and the next, any
@@ -751,8 +797,10 @@ class _Segment:
         prev_s, prev_g = (self.stage_m[j - 1]["sub"] if (j - 1) in self.stage_m else
                           (np.zeros((1, S.shape[1]), np.float32), np.zeros((1, G.shape[1]), np.float32)))
         nxt_s, nxt_g = self._next_rows(j + 1)
-        scale_s = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(S))), 1.0), 4.0)
-        scale_g = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(G))), 1.0), 4.0)
+        # Robust widths about the median (a pulse train lifts the fast background a little,
+        # so dark sub-bands sit slightly below zero: the spread, not the offset, is the noise).
+        scale_s = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(S - np.median(S)))), 1.0), 4.0)
+        scale_g = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(G - np.median(G)))), 1.0), 4.0)
         es = np.concatenate([prev_s[-1:], S, nxt_s[:1]], axis=0) / scale_s
         Sn = es[1:-1]
         lit_t = Sn >= self.s.impulse_sigma
@@ -783,6 +831,11 @@ class _Segment:
             # the lit run through the step is at most two steps long (a slow Type II lane
             # stays in a sub-band for many steps)
             short_run = ~(lit_at(-1) & lit_at(1)) & ~(lit_at(-1) & lit_at(-2)) & ~(lit_at(1) & lit_at(2))
+            # ... unless the sub-band is lit evenly from edge to edge with its neighbours dark:
+            # a train of pulses a little slower than the sweep (an electric fence) lands in
+            # the same dwell for several steps; a slow lane fills only part of a sub-band.
+            filled = self._filled(z, w, good)
+            short_run |= filled
             # Only between two neighbours: at the band's edge sub-bands a drifting burst can
             # light one sub-band before it reaches the only neighbour.
             interior = np.zeros(nsb, dtype=bool)
@@ -790,6 +843,19 @@ class _Segment:
             nb_ok = np.zeros_like(anchor)
             nb_ok[:, 1:-1] = has[:, :-2] & has[:, 2:]
             side = lit_t & seen & dark_or_none & nb_ok & interior[None, :] & short_run
+            # An edge sub-band lit evenly with its only neighbour dark in this step, and in
+            # the step after either the neighbour still dark or this sub-band dark again: a
+            # burst drifting in across the band's top edge reaches the neighbour within a
+            # step and stays in both for its decay time; a train of pulses moves on from one
+            # dwell to the next. Natural bursts drift down, so at the bottom edge one comes
+            # from the neighbour: there it must also have been dark the step before.
+            top = int(np.argmax([self.f_mhz[a] for a in self.sb_start]))
+            for b, nb in ((0, 1), (nsb - 1, nsb - 2)):
+                dark = lambda k, c: e2[2 + k:2 + k + n, c] <= 0.3 * Sn[:, b]
+                quiet = dark(0, nb) & (dark(1, nb) | dark(1, b))
+                if b != top:
+                    quiet &= dark(-1, nb)
+                side[:, b] |= lit_t[:, b] & filled[:, b] & has[:, nb] & quiet
             edge = side[:, self.sb_id]
             # with the channels either side of the sub-band edges (they can straddle two dwells)
             grow = max(1, int(round(0.1 / self.chan_mhz)))
@@ -827,6 +893,38 @@ class _Segment:
             gcells = short[:, self.groups]                                     # (n + 1, C): rows -1 .. n-1
             cells |= gcells[1:] | gcells[:-1]                                # the anchor's step and the next
         return cells & w, (S, G)
+
+    def _filled(self, z: np.ndarray, w: np.ndarray, good: np.ndarray) -> np.ndarray:
+        """Per row and sub-band: lit evenly from edge to edge. Every eighth of the sub-band
+        that has data (4 channels or more; two such eighths at least) has a mean excess of 0.7
+        of their mean or more. A pulse's spectrum is nearly flat across one dwell (its
+        f^-1.5 slope changes it by under 20 % over 2 MHz); a lane or a burst's edge is not."""
+        nq = np.add.reduceat(w.astype(np.float32), self.q_start, axis=1)
+        Q = np.add.reduceat(np.where(w, z, 0.0), self.q_start, axis=1) / np.maximum(nq, 1.0)   # mean excess / noise
+        has = nq >= 4
+        nsb = len(self.sb_start)
+        k = np.zeros((Q.shape[0], nsb), np.float32)
+        tot = np.zeros_like(k)
+        np.add.at(k.T, self.q_owner, has.T.astype(np.float32))
+        np.add.at(tot.T, self.q_owner, np.where(has, Q, 0.0).T)
+        mean = tot / np.maximum(k, 1.0)
+        weak = has & (Q < 0.7 * mean[:, self.q_owner])
+        any_weak = np.zeros_like(k, dtype=bool)
+        np.logical_or.at(any_weak.T, self.q_owner, weak.T)
+        # ... and it stops at the sub-band's edges: just past an edge (``sb_beside``) the
+        # neighbour's median is under a quarter of it. A lane as wide as a sub-band is
+        # still half as bright there.
+        spills = np.zeros_like(k, dtype=bool)
+        checked = np.zeros_like(k, dtype=bool)
+        for b, side in enumerate(self.sb_beside):
+            for cols in side:
+                ww = good[:, cols]
+                ok = ww.sum(axis=1) >= 4
+                with np.errstate(all="ignore"):
+                    out = np.nan_to_num(bg.nanmedian(np.where(ww, z[:, cols], np.nan), axis=1))
+                checked[:, b] |= ok
+                spills[:, b] |= ok & (out > 0.25 * mean[:, b])
+        return (k >= 2) & ~any_weak & (mean > 0) & checked & ~spills
 
     def _next_rows(self, k: int) -> tuple[np.ndarray, np.ndarray]:
         """Group significances of the first two rows of block k from its raw power (the
@@ -917,21 +1015,45 @@ class _Segment:
             sg = np.where(scatter > 0, e / scatter, 0.0)
         e = np.nan_to_num(e).astype(np.float32)[None, :]
         sg = np.nan_to_num(sg).astype(np.float32)[None, :]
+        # Texture: this block's second-to-second noise against the quiet quarter of the
+        # window's. Multiplicative noise keeps its width in dB under a steady rise (a
+        # continuum, arcing); the seconds-long L-bursts of a Jovian storm widen it.
+        sw = np.stack([self.coarse_sig[i] for i in ks])
+        with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)           # groups with no data at all
+            ref = np.nanpercentile(sw, 25, axis=0)
+            tx = np.nan_to_num(self.coarse_sig[k] / ref, nan=1.0).astype(np.float32)[None, :]
         out = []
         for sign, tracker, tag in ((1, self.slow_pos, "slow+"), (-1, self.slow_neg, "slow-")):
             es, ss = sign * e, sign * sg
             grow = (es >= s.slow_grow_db) & (ss >= s.slow_grow_sigma)
             seed = grow & (es >= s.slow_seed_db) & (ss >= s.slow_seed_sigma)
-            out += [(tag, c) for c in tracker.push(grow, seed, {"ex": e, "sig": sg})]
+            out += [(tag, c) for c in tracker.push(grow, seed, {"ex": e, "sig": sg, "tx": tx})]
         return out
 
     # -- features ----------------------------------------------------------------------
     def features(self, kind: str, c) -> dict | None:
         if kind == "fine":
-            return self._fine_features(c)
+            f = self._fine_features(c)
+            if f is not None and self._absorbed(f):
+                return None
+            return f
         if kind == "impulse":
             return self._impulse_features(c)
         return self._slow_features(c, 1 if kind == "slow+" else -1)
+
+    def _absorbed(self, f: dict) -> bool:
+        """A pulse left over in one dwell (one sub-band, a step or two) while an impulse
+        storm is open joins that storm instead of becoming an event of its own."""
+        st, cad = self.storm, self.cadence
+        if st is None or not (f.get("one_subband") and f["span_s"] <= 3 * cad and f["run_s"] <= 2 * cad):
+            return False
+        first = self.t0 + st["first"] * cad
+        last = self.t0 + st["last"] * cad
+        if not first - self.s.impulse_gap_s <= f["start"] <= last + self.s.impulse_gap_s:
+            return False
+        st["n"] += 1
+        return True
 
     def band_mhz(self) -> float:
         cov = np.flatnonzero(self.covered)
@@ -989,8 +1111,9 @@ class _Segment:
         den = em - 2 * e0 + ep
         delta = np.where(den < 0, np.clip(0.5 * (em - ep) / np.where(den < 0, den, -1.0), -0.5, 0.5), 0.0)
         t_arr = self.t0 + (rows[pk_idx] + delta) * cad + self.offsets[ucols] + cad / 2
+        # The slope is taken at the event's centre frequency, where the drift is reported.
         d = fit_drift(t_arr, self.f_mhz[ucols], np.clip(col_pk, 0, None) ** 2,
-                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad)
+                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad, fc_mhz=0.5 * (fmin + fmax))
         lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
         return {
             "path": "fine", "sign": 1,
@@ -1004,20 +1127,24 @@ class _Segment:
             "full_rows": full_rows, "n_rows": int(len(urows)),
             "sk_fraction": float(np.mean(c.values["sk"] > 0)) if self.has_sk else None,
             "bursty": False, "truncated": bool(truncated),
-            "one_subband": self._fills_one_subband(lo_c, hi_c), **d,
+            "one_subband": self._fills_one_subband(lo_c, hi_c),
+            "subband_rows": len(urows) <= 10 and all(self._fills_one_subband(int(a), int(b)) for a, b in zip(rmin, rmax)),
+            **d,
         }
 
     def _fills_one_subband(self, lo_c: int, hi_c: int) -> bool:
         """The event spans the whole usable part of one sweep sub-band and nothing else,
-        as a short signal caught by one dwell does (edges within 50 kHz)."""
-        if len(self.sb_start) < 2 or self.sb_id[lo_c] != self.sb_id[hi_c]:
+        as a short signal caught by one dwell does (edges within 50 kHz, plus the half
+        width of the frequency smoothing, which spreads a lit dwell past its edges)."""
+        if len(self.sb_start) < 2:
             return False
-        b = self.sb_id[lo_c]
+        b = self.sb_id[(lo_c + hi_c) // 2]
         usable = np.flatnonzero(~self.always[self.sb_start[b]:self.sb_stop[b]]) + self.sb_start[b]
         if len(usable) == 0:
             return False
         tol = max(2, int(round(0.05 / self.chan_mhz)))
-        return lo_c <= usable[0] + tol and hi_c >= usable[-1] - tol
+        spread = tol + self.F // 2
+        return (usable[0] - spread <= lo_c <= usable[0] + tol) and (usable[-1] - tol <= hi_c <= usable[-1] + spread)
 
     def _impulse_features(self, st: dict) -> dict:
         def t_of(row, sb):
@@ -1081,7 +1208,7 @@ class _Segment:
             "run_s": float(np.median(np.bincount(cols)[np.unique(cols)]) * self.block_s),
             "span_s": float(end - start), "bandwidth_mhz": fmax - fmin, "inst_bw_mhz": fmax - fmin,
             "full_rows": 1.0, "n_rows": span_blocks, "sk_fraction": None,
-            "bursty": rough > 0.3, **d,
+            "bursty": rough > 0.3, "texture": float(np.median(c.values["tx"])), **d,
         }
 
     def hours_before(self, t: float) -> list[tuple[float, list[float]]]:

@@ -76,6 +76,22 @@ class Sky:
         fw = np.clip(np.minimum(self.f - f_lo, f_hi - self.f) / 0.2, 0, 1)
         self.extra += self.lin(peak_db) * tw * fw[None, :]
 
+    def pulse_train(self, period_s, peak_db, dwell_s, t_first=0.0):
+        """Sub-millisecond pulses every ``period_s`` (an electric fence): each lights the
+        channels whose dwell [true time, + dwell_s) holds it, as a sweep sees it."""
+        pulses = np.arange(t_first, self.t_row[-1] + self.cadence, period_s)
+        n = np.searchsorted(pulses, self.t + dwell_s) - np.searchsorted(pulses, self.t)
+        self.extra += n * self.lin(peak_db)
+
+    def storm(self, t_start, t_end, f_lo, f_hi, mean_db, seed=1, rise_s=60.0):
+        """A Jovian-like storm: a smooth envelope whose intensity in each cell is drawn
+        anew, exponentially distributed with mean 1 (L-bursts of about one time step in
+        strong scintillation; a drastic simplification of their shapes)."""
+        rng = np.random.default_rng(seed)
+        tw = np.clip(np.minimum(self.t - t_start, t_end - self.t) / rise_s, 0, 1)
+        fw = np.clip(np.minimum(self.f - f_lo, f_hi - self.f) / 0.2, 0, 1)
+        self.extra += self.lin(mean_db) * tw * fw[None, :] * rng.exponential(1.0, self.t.shape)
+
     def fadeout(self, t_start, depth_db, rise_s=120.0, decay_s=900.0):
         x = self.t - t_start
         env = np.where(x < rise_s, np.clip(x, 0, None) / rise_s, np.exp(-np.clip(x - rise_s, 0, None) / decay_s))

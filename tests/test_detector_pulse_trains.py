@@ -1,0 +1,73 @@
+"""Man-made interference that a sweeping receiver turns into burst-like shapes.
+
+Checks rxlog's own rules on synthetic spectra (tests/detector_helpers.py): a pulse train
+a little slower than the sweep (an electric fence) lands in one dwell at a time and
+walks across the sub-bands like a drifting burst; a steady broadband rise (power-line
+arcing) looks like a storm in block levels but has none of the seconds-long texture of
+L-bursts (../shared/domain.md). Both must end as ``rfi``, never as a Jovian event, while a
+textured storm and a slow lane in the same band are still found.
+"""
+
+import numpy as np
+import pytest
+
+from detector_helpers import Sky, cfg_with, jupiter_up, sun_up
+from rxlog.detector import detect_spectrum
+from rxlog.timeutil import parse_iso
+
+# Five sub-bands of 1.6 MHz, each dwelled 0.2 s in a 1-s cycle (the example station's sweep).
+OFFSETS = np.repeat(np.arange(5) * 0.2, 256 // 5 + 1)[:256]
+DWELL = 0.19
+
+
+def _run(sky, tags, seed=0):
+    return detect_spectrum(cfg_with(), sky.spectrum(seed=seed), tags_fn=tags)
+
+
+@pytest.mark.parametrize("period_s", [1.04, 1.2, 1.45])
+def test_fence_pulse_train_is_one_rfi_storm_not_jovian_bursts(period_s):
+    sky = Sky(1800, offsets=OFFSETS)
+    sky.pulse_train(period_s, 2.0, DWELL, t_first=0.05)
+    res = _run(sky, jupiter_up)
+    assert res.events, "the pulses must be reported, not thrown away silently"
+    assert all(e["class"] == "rfi" for e in res.events), {e["class"]: e["reason"] for e in res.events}
+    storms = [e for e in res.events if "impulse storm" in e["reason"]]
+    assert storms and max(s["end_utc"] for s in storms) > min(s["start_utc"] for s in storms)
+    # a handful of leftovers at most, not one event per pulse
+    assert len(res.events) < 1800 / period_s / 20
+
+
+def test_fence_does_not_hide_a_storm_in_the_same_night():
+    sky = Sky(1800, offsets=OFFSETS)
+    sky.pulse_train(1.2, 2.0, DWELL, t_first=0.05)
+    sky.storm(600, 900, 18.0, 23.0, 2.0)
+    res = _run(sky, jupiter_up)
+    jov = [parse_iso(e["peak_utc"]) - sky.t0 for e in res.events if e["class"] == "jovian_l"]
+    assert jov and all(590 <= t <= 910 for t in jov)
+
+
+def test_slow_lane_as_wide_as_a_sub_band_is_not_taken_for_pulses():
+    # A Type II-like lane entering across the band's top edge by day: f = 24.5 MHz
+    # exp(-t / 600 s) (-0.033 MHz/s at 20 MHz), Gaussian in frequency with sigma 3.5 % of
+    # f, about as wide as one 1.6-MHz sub-band. Evenly lit dwells with dark neighbours
+    # would make it a pulse train; it must stay one slow-drift burst.
+    sky = Sky(1500, offsets=OFFSETS)
+    fc = 24.5 * np.exp(-(sky.t - 300.0) / 600.0)
+    lane = np.exp(-0.5 * ((sky.f[None, :] - fc) / (0.035 * fc)) ** 2) * ((sky.t > 300) & (sky.t < 900))
+    sky.extra += sky.lin(3.0) * lane
+    res = _run(sky, sun_up)
+    assert not [e for e in res.events if "impulse" in e["reason"]], [e["reason"] for e in res.events]
+    assert [e for e in res.events if e["class"] == "solar_ii"]
+
+
+def test_steady_broadband_rise_at_night_is_rfi_but_a_textured_storm_is_jovian():
+    steady = Sky(4 * 3600, n_chan=128)
+    steady.patch(7200, 7500, 16.0, 24.0, 1.0, rise_s=2)           # five minutes of arcing
+    ev = [e for e in _run(steady, jupiter_up).events if e["duration_s"] >= 120]
+    assert ev and all(e["class"] == "rfi" for e in ev)
+    assert "texture" in ev[0]["reason"]
+
+    storm = Sky(4 * 3600, n_chan=128)
+    storm.storm(7200, 7500, 16.0, 24.0, 1.0, rise_s=30)
+    ev = [e for e in _run(storm, jupiter_up).events if e["duration_s"] >= 120]
+    assert ev and all(e["class"] == "jovian_l" for e in ev), [e["reason"] for e in ev]
