@@ -63,6 +63,9 @@ SBURST_MAX_CADENCE_S = 0.01
 # simulated storms (1.5-2.6) and steady rises (1.0-1.1): a first setting, to check on
 # real nights.
 STORM_TEXTURE = 1.25
+# Narrowband cells masked by SumThreshold are reported as an event once they line up over
+# this much of the band (a swept transmitter); less is a signal staying put, only masked.
+LINE_MIN_MHZ = 0.5
 
 EVENT_FIELDS = ("station", "event_id", "episode_id", "start_utc", "end_utc", "peak_utc",
                 "fmin_mhz", "fmax_mhz", "peak_excess_db", "snr", "integrated_excess",
@@ -270,10 +273,12 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
     """Drift rate from a weighted fit of arrival time against frequency.
 
     Cells are binned in frequency (``bin_mhz``); each bin's arrival time is the
-    excess-weighted mean of its cells' true times. A line t = a + s (f - fc) (a
-    quadratic when the bins span more than 2 MHz, so the slope is the local one at fc,
-    by default the weighted centre of the bins) is fitted by weighted least squares with the bins' total weights; the
-    slope's error comes from the residual scatter. Drift = 1/s MHz/s, error s_err/s^2.
+    excess-weighted mean of its cells' true times, and its weight the bin's total, capped
+    at the median bin's. A line t = a + s (f - fc) (a quadratic when the bins span more
+    than 2 MHz, so the slope is the local one at fc, by default the weighted centre of
+    the bins) is fitted by weighted least squares, leaving out bins far off the curve
+    (see below); the slope's error comes from the residual scatter. Drift = 1/s MHz/s,
+    error s_err/s^2.
     ``resolved`` is False when the arrival spread across the band is under half a
     time step or under three standard errors: then the event is simultaneous at this
     resolution (drift None).
@@ -292,23 +297,51 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
         return out
     tb = np.bincount(b, weights=w * t, minlength=nb)[ok] / W[ok]
     fb = np.bincount(b, weights=w * f_mhz, minlength=nb)[ok] / W[ok]
-    Wb = W[ok] / W[ok].mean()
+    # A bin's weight saturates at the median: past some signal to noise its arrival time
+    # is as good as the time step allows, and one strong narrow signal inside the event
+    # must not outweigh the rest of it.
+    Wb = np.minimum(W[ok], np.median(W[ok]))
+    Wb = Wb / Wb.mean()
     fc = float(np.sum(Wb * fb) / np.sum(Wb)) if fc_mhz is None else float(fc_mhz)
     x = fb - fc
     span = float(np.ptp(fb))
     deg = 2 if (span > 2.0 and len(fb) >= 8) else 1
     A = np.stack([x ** k for k in range(deg + 1)], axis=1)
-    AtW = A.T * Wb
-    try:
-        cov0 = np.linalg.inv(AtW @ A)
-    except np.linalg.LinAlgError:
-        return out
-    coef = cov0 @ (AtW @ tb)
-    resid = tb - A @ coef
-    dof = max(len(tb) - (deg + 1), 1)
-    s2 = float(np.sum(Wb * resid ** 2) / dof)
+    # Weighted least squares, then up to three rounds leaving out bins more than three
+    # robust sigmas (and a time step) off the curve: a signal crossing the event (an
+    # ionosonde sweep through a Type III) owns a minority of the bins and would bend the
+    # slope. Never fewer than half the bins, nor fewer than the curve's parameters + 2.
+    # The first cut is against a Theil-Sen line (the median of the pairwise slopes), which
+    # a minority of such bins cannot bend the way they bend a least-squares curve.
+    i, j = np.triu_indices(len(tb), 1)
+    dx = fb[j] - fb[i]
+    pair = np.abs(dx) > 1e-9
+    keep = np.ones(len(tb), dtype=bool)
+    if pair.sum() >= 3:
+        ts = float(np.median((tb[j] - tb[i])[pair] / dx[pair]))
+        r0 = tb - ts * fb
+        r0 = r0 - np.median(r0)
+        cut = np.abs(r0) <= max(3.0 * bg.MAD_TO_SIGMA * float(np.median(np.abs(r0))), cadence_s)
+        if cut.sum() >= max(deg + 3, 0.5 * len(tb)):
+            keep = cut
+    for _ in range(4):
+        AtW = A[keep].T * Wb[keep]
+        try:
+            cov0 = np.linalg.inv(AtW @ A[keep])
+        except np.linalg.LinAlgError:
+            return out
+        coef = cov0 @ (AtW @ tb[keep])
+        r_all = tb - A @ coef
+        mad = bg.MAD_TO_SIGMA * float(np.median(np.abs(r_all[keep])))
+        new_keep = np.abs(r_all) <= max(3.0 * mad, cadence_s)
+        if new_keep.sum() < max(deg + 3, 0.5 * len(tb)) or np.array_equal(new_keep, keep):
+            break
+        keep = new_keep
+    resid = r_all[keep]
+    dof = max(int(keep.sum()) - (deg + 1), 1)
+    s2 = float(np.sum(Wb[keep] * resid ** 2) / dof)
     # Arrival times are quantised by the time step: never claim better than that.
-    s2 = max(s2, cadence_s ** 2 / 12.0 / max(len(tb), 1))
+    s2 = max(s2, cadence_s ** 2 / 12.0 / max(int(keep.sum()), 1))
     s_err = math.sqrt(max(cov0[1, 1] * s2, 0.0))
     s = float(coef[1])
     spread = abs(s) * span
@@ -365,6 +398,11 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
     def why(*parts):
         return "; ".join(p for p in parts if p)
 
+    if f["path"] == "line":
+        if f["resolved"]:
+            return "rfi", 0.85, (f"swept narrowband line, drift {drift:+.2f} MHz/s over {bw:.1f} MHz "
+                                 "(ionosonde-like), masked")
+        return "rfi", 0.7, f"narrowband signals over {bw:.1f} MHz for {f['span_s']:.0f} s, masked"
     if f["path"] == "impulse":
         n = f["n_impulses"]
         if n == 1:
@@ -576,6 +614,12 @@ class _Segment:
         col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
                              round(s.max_event_s / cad), fields, col_map=col_map)
+        # Narrowband cells SumThreshold took out, joined into lines: a sweep across the
+        # band (an ionosonde) is reported as an rfi event; a line that stays put is not.
+        self.lines = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
+                              round(s.max_event_s / cad), fields, col_map=col_map)
+        self.line_join = max(1, int(round(0.1 / self.chan_mhz)))
+        self.lines_done: list[Component] = []
         slow_fields = ("ex", "sig", "tx")
         gap_b = max(1, int(round(s.merge_gap_s / self.block_s)))
         g_always = np.bincount(self.groups, weights=always.astype(float), minlength=self.n_groups) \
@@ -611,6 +655,7 @@ class _Segment:
             self._cut_block(self.pending_rows)
         out += self._advance(final=True)
         out += [("fine", c) for c in self.fine.finish()]
+        out += [("line", c) for c in self.lines.finish()]
         out += [("slow+", c) for c in self.slow_pos.finish()]
         out += [("slow-", c) for c in self.slow_neg.finish()]
         return out
@@ -683,6 +728,8 @@ class _Segment:
             self._stage_m(self.next_m, last=(final and self.next_m + 1 >= nb))
             self.next_m += 1
         out += [("impulse", c) for c in self._impulse_storms(final)]
+        out += [("line", c) for c in self.lines_done]
+        self.lines_done = []
         # stage S(j) needs M(j + 1)
         while self.next_s < self.next_m and (final or self.next_s + 1 < self.next_m):
             out += [("fine", c) for c in self._stage_s(self.next_s)]
@@ -759,6 +806,10 @@ class _Segment:
         st = rfi.sum_threshold(hp, st, 0, s.sumthreshold_chi1, self.st_t)
         st &= w
         w &= ~st
+        join = ndimage.binary_dilation(st, structure=np.ones((1, 2 * self.line_join + 1), dtype=bool))
+        zero = np.zeros_like(excess)
+        self.lines_done += self.lines.push(join, st, {"ex": np.where(st, excess, 0.0), "sig": np.where(st, z, 0.0),
+                                                      "raw": np.where(st, excess, 0.0), "sk": zero})
         imp, sub = self._impulses(j, z, w, n, excess, good)
         w &= ~imp
         st |= imp
@@ -1040,6 +1091,12 @@ class _Segment:
             return f
         if kind == "impulse":
             return self._impulse_features(c)
+        if kind == "line":
+            f = self._fine_features(c)
+            if f is None or f["bandwidth_mhz"] < LINE_MIN_MHZ:
+                return None
+            f["path"] = "line"
+            return f
         return self._slow_features(c, 1 if kind == "slow+" else -1)
 
     def _absorbed(self, f: dict) -> bool:

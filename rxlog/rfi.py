@@ -209,15 +209,24 @@ def kurtosis_flags(sk: np.ndarray, valid: np.ndarray, threshold_sigma: float) ->
     return np.abs(np.nan_to_num(d)) > threshold_sigma * scale
 
 
-def neighbour_mean(z: np.ndarray, w: np.ndarray, width_ch: int) -> tuple[np.ndarray, np.ndarray]:
-    """Running mean over 2 width_ch + 1 channels of z where w, and the count of cells used."""
+def neighbour_mean(z: np.ndarray, w: np.ndarray, width_ch: int, skip_ch: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """Mean of z where w over the channels within ``width_ch`` of each channel but more
+    than ``skip_ch`` away from it (the cell and its nearest neighbours, where a narrow
+    signal sits, are left out), and the count of cells used."""
     from scipy import ndimage
 
     size = 2 * width_ch + 1
-    num = ndimage.uniform_filter1d(np.where(w, z, 0.0).astype(np.float32), size, axis=1, mode="constant")
-    den = ndimage.uniform_filter1d(w.astype(np.float32), size, axis=1, mode="constant")
-    mean = np.where(den > 0, num / np.maximum(den, 1e-12), 0.0)
-    return mean.astype(np.float32), den * size
+    inner = min(2 * skip_ch + 1, size - 2)
+    zw = np.where(w, z, 0.0).astype(np.float32)
+    wf = w.astype(np.float32)
+    num = ndimage.uniform_filter1d(zw, size, axis=1, mode="constant") * size
+    den = ndimage.uniform_filter1d(wf, size, axis=1, mode="constant") * size
+    if inner >= 1:
+        num = num - ndimage.uniform_filter1d(zw, inner, axis=1, mode="constant") * inner
+        den = den - ndimage.uniform_filter1d(wf, inner, axis=1, mode="constant") * inner
+    den = np.clip(den, 0.0, None)
+    mean = np.where(den > 0.5, num / np.maximum(den, 1e-12), 0.0)
+    return mean.astype(np.float32), den
 
 
 def hour_quality(times: np.ndarray, flags: np.ndarray, cadence_s: float) -> dict[float, list[float]]:

@@ -111,3 +111,17 @@ def test_settings_are_physical_units_not_pixels():
     assert a[0]["drift_mhz_s"] == pytest.approx(b[0]["drift_mhz_s"], rel=0.1)
     assert parse_iso(a[0]["start_utc"]) == pytest.approx(parse_iso(b[0]["start_utc"]), abs=2.0)
     assert a[0]["bandwidth_mhz"] == pytest.approx(b[0]["bandwidth_mhz"], rel=0.1)
+
+
+def test_type3_drift_survives_an_ionosonde_sweep_crossing_it():
+    # A strong narrowband sweep (-0.1 MHz/s) runs through a weak Type III: its channels
+    # peak at the sweep's time, not the burst's, and must not bend the fitted drift.
+    sky = Sky(900)
+    sky.type3(300, 1.0, decay_s=2.0)
+    sky.chirp(285, 21.5, -0.1, 12.0)
+    ev = [e for e in _events(sky, sun_up).events if e["drift_mhz_s"] is not None and e["bandwidth_mhz"] > 4]
+    assert ev
+    e = max(ev, key=lambda x: x["bandwidth_mhz"])
+    fc = 0.5 * (e["fmin_mhz"] + e["fmax_mhz"])
+    assert abs(e["drift_mhz_s"] / ah_drift(fc) - 1) < 0.15          # Alvarez & Haddock 1973
+    assert e["class"] == "solar_iii"
