@@ -39,7 +39,7 @@ from collections import defaultdict
 import numpy as np
 
 from rxlog.config import load_config
-from rxlog.detector import OnlineDetector
+from rxlog.detector import OnlineDetector, latest
 from rxlog.errors import RxlogError
 from rxlog.simulator import iter_spectra
 from rxlog.timeutil import parse_iso
@@ -116,7 +116,7 @@ def run_scenario(cfg, start, hours, rfi, inject):
     for chunk in run:
         events += det.feed(chunk)
     events += det.flush()
-    return run.truth_rows(), events
+    return run.truth_rows(), latest(events)
 
 
 def score(results):

@@ -130,7 +130,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
                       help="FFT window"),
         "overlap": Key(NUMBER, 0.0, choices=(0, 0.0, 0.5, 0.75), help="Overlap of FFT frames: 0, 0.5 or 0.75"),
         "kurtosis": Key(bool, True, help="Compute spectral kurtosis per cell (for the RFI mask)"),
-        "ring_s": Key(NUMBER, 120.0, min=0, max=3600, help="Seconds of full-resolution spectra kept in memory for cutouts (0: none)"),
+        "ring_s": Key(NUMBER, 360.0, min=0, max=3600, help="Seconds of full-resolution spectra kept in memory for cutouts (0: none); at least the detector's latency plus a minute (~4.5 min with the default [detector])"),
         "ring_resolution_s": Key(NUMBER, 0.002, min=1e-5, max=60, help="single: time step of the full-resolution spectra, seconds"),
     },
     "rfi": {

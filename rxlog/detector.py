@@ -18,6 +18,11 @@ Two paths find the two kinds of events:
   coarse channels against the slow baseline, with a positive and a *negative* branch,
   thresholded in dB and in noise units. Reported half a slow window after they happen.
 
+Interference that looks like an event is reported as an ``rfi`` event rather than
+masked silently: impulses and trains of them (one storm per train, also when a sweep
+catches each pulse in a different dwell), and narrowband cells masked by SumThreshold
+that line up across the band (an ionosonde sweep).
+
 Each event gets start, end and peak time; fmin, fmax; peak excess (dB) and SNR;
 integrated excess; a drift rate from a weighted fit of arrival time against frequency
 using the true sampling time of each channel (``chan_offset_s``), with its error;
@@ -66,6 +71,8 @@ STORM_TEXTURE = 1.25
 # Narrowband cells masked by SumThreshold are reported as an event once they line up over
 # this much of the band (a swept transmitter); less is a signal staying put, only masked.
 LINE_MIN_MHZ = 0.5
+# Long events whose short pieces, found first by the burst path, take their class.
+LONG_NAMES = {"solar_iv": "Type IV continuum", "jovian_l": "Jovian storm"}
 
 EVENT_FIELDS = ("station", "event_id", "episode_id", "start_utc", "end_utc", "peak_utc",
                 "fmin_mhz", "fmax_mhz", "peak_excess_db", "snr", "integrated_excess",
@@ -1304,7 +1311,9 @@ class OnlineDetector:
     events finished so far; ``flush()`` ends the current segment and returns the rest.
     ``pop_episodes()`` and ``pop_quality()`` return the episodes updated and the hourly
     quality rows finished since the last call. Fine bursts come out a few minutes after
-    they end; long events half a slow window (``slow_window_s`` / 2) after.
+    they end; long events half a slow window (``slow_window_s`` / 2) after, together with
+    updated versions (same event_id) of the "unknown" bursts that turned out to be pieces
+    of them: keep the last version of each event (``latest``; the event store upserts).
     """
 
     def __init__(self, cfg, tags_fn: TagsFn | None = None, settings: Settings | None = None,
@@ -1319,6 +1328,7 @@ class OnlineDetector:
         self._touched: set[str] = set()
         self._quality: list[dict] = []
         self._hours: dict[float, list[float]] = {}
+        self._pieces: list[dict] = []   # recent "unknown" bursts a long event may still claim
 
     # -- feeding -----------------------------------------------------------------------
     def feed(self, spec: DynamicSpectrum) -> list[dict]:
@@ -1406,11 +1416,41 @@ class OnlineDetector:
                      source_region=region, band_mhz=seg.band_mhz(),
                      cadence_s=seg.cadence, chan_mhz=seg.chan_mhz)
             cls, conf, reason = classify(f, self.s)
-            events.append(self._event_dict(f, ctx, cls, conf, reason))
-        events.sort(key=lambda e: e["peak_utc"])
-        for e in events:
+            events.append((f, self._event_dict(f, ctx, cls, conf, reason)))
+        events.sort(key=lambda fe: fe[1]["peak_utc"])
+        for _, e in events:
             self._assign_episode(e)
-        return events
+        updates = self._fragments(events)
+        return [e for _, e in events] + updates
+
+    def _fragments(self, events: list[tuple[dict, dict]]) -> list[dict]:
+        """Short pieces of a long event found by the burst path before the long event was
+        known (the fluctuations of a Type IV continuum or a storm, left "unknown") take the
+        long event's class once it is reported: their updated versions (same event_id)
+        come out with it. Pieces are remembered for two slow windows."""
+        updates = []
+        for f, e in events:
+            if f["path"] == "fine" and e["class"] == "unknown":
+                self._pieces.append(e)
+        for f, e in events:
+            if f["path"] != "slow" or f["sign"] < 0 or e["class"] not in LONG_NAMES:
+                continue
+            a, b = _unix(e["start_utc"]) - self.s.block_s, _unix(e["end_utc"]) + self.s.block_s
+            keep = []
+            for x in self._pieces:
+                inside = (a <= _unix(x["start_utc"]) and _unix(x["end_utc"]) <= b
+                          and x["fmin_mhz"] < e["fmax_mhz"] and x["fmax_mhz"] > e["fmin_mhz"])
+                if not inside:
+                    keep.append(x)
+                    continue
+                updates.append(dict(x, **{"class": e["class"], "confidence": round(0.9 * e["confidence"], 2),
+                                          "reason": f"within the {LONG_NAMES[e['class']]} {e['event_id']}; "
+                                                    f"{x['reason']}"}))
+            self._pieces = keep
+        if events:
+            newest = max(_unix(e["end_utc"]) for _, e in events)
+            self._pieces = [x for x in self._pieces if _unix(x["end_utc"]) >= newest - 2 * self.s.slow_window_s]
+        return updates
 
     def _tags(self, feats: list[dict]) -> dict | None:
         if self.tags_fn is None:
@@ -1494,6 +1534,16 @@ class DetectionResult:
     mask: np.ndarray | None = None
 
 
+def latest(events: list[dict]) -> list[dict]:
+    """The final state of a stream of events from ``OnlineDetector``: the last version of
+    each event_id (a piece of a long event comes out again once that event is known), in
+    peak order."""
+    last = {}
+    for e in events:
+        last[e["event_id"]] = e
+    return sorted(last.values(), key=lambda e: e["peak_utc"])
+
+
 def detect_spectrum(cfg, spec: DynamicSpectrum, tags_fn: TagsFn | None = None,
                     settings: Settings | None = None, chunk_s: float = 900.0) -> DetectionResult:
     """Detect events in one dynamic spectrum (one segment) in one call.
@@ -1515,8 +1565,7 @@ def detect_spectrum(cfg, spec: DynamicSpectrum, tags_fn: TagsFn | None = None,
     events = []
     for i in range(0, spec.n_time, step):
         events += det.feed(spec.slice_rows(i, min(i + step, spec.n_time)))
-    events += det.flush()
-    events.sort(key=lambda e: e["peak_utc"])
+    events = latest(events + det.flush())
     return DetectionResult(events=events, episodes=det.pop_episodes(), quality_rows=det.pop_quality(), mask=mask)
 
 
@@ -1564,7 +1613,7 @@ def detect_range(cfg, t0: float | None = None, t1: float | None = None,
         if progress is not None:
             progress(min(max(hi - a, 0.0), b - a), b - a)
         cursor += step
-    events += det.flush()
+    events = latest(events + det.flush())
     keep = [e for e in events if t0 <= _unix(e["peak_utc"]) < t1]
     episodes = [ep for ep in det.pop_episodes() if t0 <= _unix(ep["start_utc"]) < t1]
     quality = _with_gaps([q for q in det.pop_quality() if t0 - 3600.0 < _unix(q["hour_utc"]) < t1],

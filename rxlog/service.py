@@ -630,6 +630,11 @@ class Logger:
         self._feed_thread.start()
         log.info("logging station %s to %s (chunk %g s, health every %g s)", self.station,
                  self.cfg.storage_root, self.chunk_s, self.health_s)
+        need = cutout_ring_needed_s(self.cfg)
+        ring_s = float(self.cfg.get("sweep", {}).get("ring_s", 0.0))
+        if self.detector is not None and 0 < ring_s < need:
+            log.warning("[sweep] ring_s = %g s is shorter than the detector's latency plus a minute (%g s): "
+                        "most events will get no cutout", ring_s, need)
         self._health(note="logger started")
         self.notifier.ready(f"logging station {self.station}")
         wd = self.notifier.watchdog_s
@@ -953,6 +958,14 @@ def prune_archive(cfg, now: float | None = None) -> list:
 
 
 CUTOUT_MARGIN_S = 2.0       # kept either side of an event in its cutout
+
+
+def cutout_ring_needed_s(cfg) -> float:
+    """Seconds of ring a cutout needs: a burst comes out of the detector half a fast
+    window plus three blocks after it ends (rxlog.detector), and a minute-long burst must
+    still be in the ring then."""
+    d = cfg.get("detector", {})
+    return float(d.get("fast_window_s", 240.0)) / 2 + 3 * float(d.get("block_s", 30.0)) + 60.0 + 2 * CUTOUT_MARGIN_S
 
 
 def cutout_relpath(ev: dict) -> Path:

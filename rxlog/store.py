@@ -154,9 +154,20 @@ class EventStore:
         return row
 
     def upsert_events(self, events: list[dict]):
-        """Insert or update events by event_id (re-processing never duplicates)."""
+        """Insert or update events by event_id (re-processing never duplicates). An update
+        without a cutout keeps the cutout the stored event already has."""
         rows = [self._event_row(e) for e in events]
         if rows:
+            bare = [r["event_id"] for r in rows if not r.get("cutout_path")]
+            had = {}
+            for i in range(0, len(bare), 500):
+                part = bare[i:i + 500]
+                q = ("select event_id, cutout_path from events where cutout_path is not null and event_id in ("
+                     + ",".join("?" * len(part)) + ")")
+                had.update(dict(self.db.execute(q, part).fetchall()))
+            for r in rows:
+                if not r.get("cutout_path") and r["event_id"] in had:
+                    r["cutout_path"] = had[r["event_id"]]
             with self.db.conn:
                 self.db["events"].upsert_all(rows, pk="event_id")
 

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from detector_helpers import CFG, Sky, cfg_with, jupiter_up, sun_down, sun_up
-from rxlog.detector import ah_drift, detect_spectrum, fit_drift
+from rxlog.detector import OnlineDetector, ah_drift, detect_spectrum, fit_drift, latest
 from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 
@@ -125,3 +125,29 @@ def test_type3_drift_survives_an_ionosonde_sweep_crossing_it():
     fc = 0.5 * (e["fmin_mhz"] + e["fmax_mhz"])
     assert abs(e["drift_mhz_s"] / ah_drift(fc) - 1) < 0.15          # Alvarez & Haddock 1973
     assert e["class"] == "solar_iii"
+
+
+def test_pieces_of_a_type4_continuum_take_its_class_once_it_is_known():
+    # A continuum with slow swells (the burst path sees each swell as a short "unknown"
+    # event) and a Type III on top of it: the swells become part of the Type IV when the
+    # long event is reported, in an updated version of the same event; the Type III keeps
+    # its own class.
+    sky = Sky(4 * 3600, n_chan=128)
+    sky.patch(9000, 10800, 16.0, 24.0, 0.8, rise_s=300)
+    for t in (9400, 9900, 10400):
+        sky.patch(t, t + 60, 17.0, 24.0, 0.6, rise_s=15)
+    sky.type3(10100, 3.0)
+    det = OnlineDetector(CFG, tags_fn=sun_up)
+    spec = sky.spectrum(seed=2)
+    stream = []
+    for i in range(0, spec.n_time, 600):
+        stream += det.feed(spec.slice_rows(i, min(i + 600, spec.n_time)))
+    stream += det.flush()
+    final = {e["event_id"]: e for e in latest(stream)}
+    iv = [e for e in final.values() if e["class"] == "solar_iv" and "within" not in e["reason"]]
+    assert len(iv) == 1
+    pieces = [e for e in final.values() if "within the Type IV continuum" in e["reason"]]
+    assert pieces and all(e["class"] == "solar_iv" for e in pieces)
+    first = {e["event_id"]: e for e in reversed(stream)}          # the first version of each
+    assert all(first[e["event_id"]]["class"] == "unknown" for e in pieces)
+    assert [e["class"] for e in final.values() if 10090 <= parse_iso(e["peak_utc"]) - sky.t0 <= 10130] == ["solar_iii"]

@@ -82,3 +82,29 @@ def test_retention_removes_only_old_cutout_days(tmp_path):
     gone = prune_cutouts(cfg, 30, now=T0)
     assert gone == [old / "x.fits"]
     assert (new / "x.fits").exists() and (old / "notes.txt").exists()
+
+
+def test_default_ring_outlasts_the_detector_latency():
+    # A burst leaves the detector half a fast window plus three blocks after it ends
+    # (rxlog.detector); with the shipped defaults a minute-long burst is still in the ring.
+    from pathlib import Path
+
+    from rxlog.detector import OnlineDetector
+    from rxlog.service import cutout_ring_needed_s
+    from detector_helpers import Sky, sun_up
+
+    cfg = load_config(Path(__file__).resolve().parents[1] / "config" / "station.example.toml")
+    need = cutout_ring_needed_s(cfg)
+    assert cfg["sweep"]["ring_s"] >= need
+    # the latency the bound assumes is the detector's own: feed a burst and see when it comes out
+    sky = Sky(1200, n_chan=128)
+    sky.type3(300, 3.0)
+    spec = sky.spectrum(seed=1)
+    det = OnlineDetector({**cfg, "rfi": {"static_ranges": []}}, tags_fn=sun_up)
+    out_at = None
+    for i in range(spec.n_time):
+        if det.feed(spec.slice_rows(i, i + 1)) and out_at is None:
+            out_at = spec.t0 + (i + 1) * spec.cadence_s
+    assert out_at is not None
+    burst_end = spec.t0 + 320.0
+    assert out_at - burst_end <= need - 60.0

@@ -127,3 +127,17 @@ def test_quality_and_health_rows(tmp_path):
                          "queue_depth": 0, "cpu_percent": 5.0, "disk_free_mb": 1e4, "clock_sync": "unknown",
                          "receiver_state": "ok"})
     assert store.latest_health()["receiver_state"] == "ok"
+
+
+def test_an_update_without_a_cutout_keeps_the_stored_cutout(tmp_path):
+    # The detector re-issues a piece of a long event with a new class an hour later; the
+    # cutout the logger saved for its first version must stay with it.
+    store = EventStore(tmp_path / "events.sqlite")
+    first = dict(event(T0), cls="unknown", cutout_path="cutouts/2027/01/15/x.fits")
+    first["class"] = "unknown"
+    store.upsert_events([first])
+    store.upsert_events([dict(first, **{"class": "solar_iv", "cutout_path": None})])
+    row = store.events()[0]
+    assert row["class"] == "solar_iv" and row["cutout_path"] == "cutouts/2027/01/15/x.fits"
+    store.upsert_events([dict(first, cutout_path="cutouts/2027/01/15/y.fits")])
+    assert store.events()[0]["cutout_path"] == "cutouts/2027/01/15/y.fits"
