@@ -33,7 +33,6 @@ reason; and ephemeris tags at peak, start and end.
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -813,7 +812,7 @@ class _Segment:
         st = rfi.sum_threshold(hp, st, 0, s.sumthreshold_chi1, self.st_t)
         st &= w
         w &= ~st
-        join = ndimage.binary_dilation(st, structure=np.ones((1, 2 * self.line_join + 1), dtype=bool))
+        join = ndimage.maximum_filter1d(st.view(np.uint8), 2 * self.line_join + 1, axis=1).view(bool)
         zero = np.zeros_like(excess)
         self.lines_done += self.lines.push(join, st, {"ex": np.where(st, excess, 0.0), "sig": np.where(st, z, 0.0),
                                                       "raw": np.where(st, excess, 0.0), "sk": zero})
@@ -1077,10 +1076,11 @@ class _Segment:
         # window's. Multiplicative noise keeps its width in dB under a steady rise (a
         # continuum, arcing); the seconds-long L-bursts of a Jovian storm widen it.
         sw = np.stack([self.coarse_sig[i] for i in ks])
-        with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)           # groups with no data at all
-            ref = np.nanpercentile(sw, 25, axis=0)
-            tx = np.nan_to_num(self.coarse_sig[k] / ref, nan=1.0).astype(np.float32)[None, :]
+        srt = np.sort(sw, axis=0)                                    # NaN sort last
+        n_ok = np.count_nonzero(~np.isnan(sw), axis=0)
+        ref = np.take_along_axis(srt, np.clip((n_ok - 1) // 4, 0, None)[None, :], axis=0)[0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            tx = np.nan_to_num(self.coarse_sig[k] / ref, nan=1.0, posinf=1.0).astype(np.float32)[None, :]
         out = []
         for sign, tracker, tag in ((1, self.slow_pos, "slow+"), (-1, self.slow_neg, "slow-")):
             es, ss = sign * e, sign * sg
