@@ -4,13 +4,13 @@ Simulated days and nights at the example station (config/station.example.toml, t
 default [rfi] and [detector] settings), each fed to the online detector in one-minute
 chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
 
-* day-bursts: a winter day with Jupiter below the horizon; 20 Type III and 10 Type II
-  bursts injected at peak excesses of 0.5, 1, 2, 4 and 8 dB among the natural interference
-  of a rural site.
-* day-long-N: five quiet-rural days, each with one fadeout and one Type IV continuum,
-  the fadeout N dB deep and the Type IV N dB high. The simulator refuses a dip deeper
+* day-bursts-1, -2: two winter days with Jupiter below the horizon; on each, 20 Type III
+  and 10 Type II bursts injected at peak excesses of 0.5, 1, 2, 4 and 8 dB among the
+  natural interference of a rural site.
+* day-long-N, day-long-N-b: ten quiet-rural days, each with one fadeout and one Type IV
+  continuum, the fadeout N dB deep and the Type IV N dB high. The simulator refuses a dip deeper
   than the sky's share of the background; such fadeouts are listed as skipped.
-* night-jovian: two nights with Jupiter up, five 30-minute Jovian storms each.
+* night-jovian: three nights with Jupiter up, five 30-minute Jovian storms each.
 * night-rfi-city: a 12-hour night with no sky events at all and city-level interference
   (ITU-R P.372 category "city"): every non-rfi detection there is false.
 
@@ -57,21 +57,24 @@ MAX_FADEOUT_DB = 4.0
 
 def _scenarios():
     day0 = parse_iso("2027-01-15T09:00:00Z")
-    rng = np.random.default_rng(5)
-    bursts = [("solar_iii", p) for p in PEAKS for _ in range(4)] + [("solar_ii", p) for p in PEAKS for _ in range(2)]
-    order = rng.permutation(len(bursts))
-    inject = []
-    for k, i in enumerate(order):
-        cls, p = bursts[i]
-        inject.append(dict({"class": cls, "t": day0 + 600 + k * 810.0, "peak_excess_db": p}))
-    yield "day-bursts", day0, 7.0, "rural", inject
-    for k, p in enumerate(PEAKS):
-        d = day0 + 86400.0 * (k + 1)
-        inj = [{"class": "solar_iv", "t": d + 9000.0, "peak_excess_db": p}]
-        if p <= MAX_FADEOUT_DB:
-            inj.insert(0, {"class": "fadeout", "t": d + 1800.0, "peak_excess_db": -p})
-        yield f"day-long-{p:g}", d, 7.0, "quiet-rural", inj
-    for n, night in enumerate(("2026-12-01T23:00:00Z", "2026-12-03T23:00:00Z")):
+    for d, seed in ((0, 5), (11, 6)):
+        rng = np.random.default_rng(seed)
+        bursts = [("solar_iii", p) for p in PEAKS for _ in range(4)] + [("solar_ii", p) for p in PEAKS for _ in range(2)]
+        order = rng.permutation(len(bursts))
+        t = day0 + 86400.0 * d
+        inject = []
+        for k, i in enumerate(order):
+            cls, p = bursts[i]
+            inject.append(dict({"class": cls, "t": t + 600 + k * 810.0, "peak_excess_db": p}))
+        yield f"day-bursts-{1 if d == 0 else 2}", t, 7.0, "rural", inject
+    for rep in range(2):
+        for k, p in enumerate(PEAKS):
+            d = day0 + 86400.0 * (k + 1 + 5 * rep)
+            inj = [{"class": "solar_iv", "t": d + 9000.0 - 1800.0 * rep, "peak_excess_db": p}]
+            if p <= MAX_FADEOUT_DB:
+                inj.insert(0, {"class": "fadeout", "t": d + 1800.0 + 600.0 * rep, "peak_excess_db": -p})
+            yield f"day-long-{p:g}{'' if rep == 0 else '-b'}", d, 7.0, "quiet-rural", inj
+    for n, night in enumerate(("2026-12-01T23:00:00Z", "2026-12-03T23:00:00Z", "2026-12-05T23:00:00Z")):
         t = parse_iso(night)
         yield (f"night-jovian-{n + 1}", t, 7.0, "rural",
                [{"class": "jovian_l", "t": t + 1200.0 + k * 4800.0, "peak_excess_db": p, "duration_s": 1800.0}

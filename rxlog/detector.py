@@ -70,6 +70,10 @@ STORM_TEXTURE = 1.25
 # Narrowband cells masked by SumThreshold are reported as an event once they line up over
 # this much of the band (a swept transmitter); less is a signal staying put, only masked.
 LINE_MIN_MHZ = 0.5
+# An impulse storm whose last pulses (this many, or half of them at least) fit a constant
+# period, nine in ten within their own dwell, is a pulse train (an electric fence: about one pulse
+# a second, from memory); its next pulses are masked where they fall, whatever surrounds them.
+TRAIN_PULSES = 40
 # Long events whose short pieces, found first by the burst path, take their class.
 LONG_NAMES = {"solar_iv": "Type IV continuum", "jovian_l": "Jovian storm"}
 
@@ -275,7 +279,7 @@ class _Tracker:
 # ------------------------------------------------------------------------------------
 
 def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
-              cadence_s: float, fc_mhz: float | None = None) -> dict:
+              cadence_s: float, fc_mhz: float | None = None, dwell: np.ndarray | None = None) -> dict:
     """Drift rate from a weighted fit of arrival time against frequency.
 
     Cells are binned in frequency (``bin_mhz``); each bin's arrival time is the
@@ -323,13 +327,27 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
     dx = fb[j] - fb[i]
     pair = np.abs(dx) > 1e-9
     keep = np.ones(len(tb), dtype=bool)
+    allowed = np.ones(len(tb), dtype=bool)       # bins the later rounds may take back
     if pair.sum() >= 3:
         ts = float(np.median((tb[j] - tb[i])[pair] / dx[pair]))
         r0 = tb - ts * fb
         r0 = r0 - np.median(r0)
         cut = np.abs(r0) <= max(3.0 * bg.MAD_TO_SIGMA * float(np.median(np.abs(r0))), cadence_s)
+        if dwell is not None:
+            # A sweep samples each sub-band (``dwell``: its id per input cell) at one moment:
+            # a pulse or a missing step there moves all its bins together. A sub-band whose
+            # bins sit half a step or more off the line, while most of the event agrees, is
+            # left out whole.
+            db = np.bincount(b, weights=np.asarray(dwell, dtype=np.float64) * w, minlength=nb)[ok] / W[ok]
+            db = np.round(db).astype(np.int64)
+            for d in np.unique(db):
+                sel = db == d
+                if abs(float(np.median(r0[sel]))) >= 0.5 * cadence_s:
+                    cut &= ~sel
         if cut.sum() >= max(deg + 3, 0.5 * len(tb)):
             keep = cut
+            if dwell is not None:
+                allowed = keep.copy()
     for _ in range(4):
         AtW = A[keep].T * Wb[keep]
         try:
@@ -339,7 +357,7 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
         coef = cov0 @ (AtW @ tb[keep])
         r_all = tb - A @ coef
         mad = bg.MAD_TO_SIGMA * float(np.median(np.abs(r_all[keep])))
-        new_keep = np.abs(r_all) <= max(3.0 * mad, cadence_s)
+        new_keep = (np.abs(r_all) <= max(3.0 * mad, cadence_s)) & allowed
         if new_keep.sum() < max(deg + 3, 0.5 * len(tb)) or np.array_equal(new_keep, keep):
             break
         keep = new_keep
@@ -565,6 +583,9 @@ class _Segment:
         self.storms_done: list[dict] = []
         self.carry_anchor = False
         self.sb_id = np.repeat(np.arange(len(self.sb_start)), self.sb_stop - self.sb_start)
+        # time from one dwell to the next (the whole step when the receiver does not sweep)
+        starts = np.unique(self.offsets)
+        self.slot = float(np.median(np.diff(starts))) if len(starts) > 1 else cad
         # Each sub-band in eighths (sub-bands of 16 channels or more), to tell a dwell lit
         # evenly from edge to edge (a pulse) from a lane crossing part of it.
         parts, owner = [], []
@@ -759,13 +780,63 @@ class _Segment:
                 st = None
             if st is None:
                 st = self.storm = {"first": r, "first_sb": b, "last": r, "last_sb": b, "n": 0, "rows": set(),
-                                   "sb_lo": b, "sb_hi": b, "peak": -1.0, "peak_row": r, "peak_sb": b, "peak_db": 0.0}
+                                   "sb_lo": b, "sb_hi": b, "peak": -1.0, "peak_row": r, "peak_sb": b, "peak_db": 0.0,
+                                   "mids": []}
+            if len(self.sb_start) > 1:        # mid-time of the dwell that caught it, from the segment start
+                st["mids"].append(r * self.cadence + float(self.offsets[self.sb_start[b]]) + self.slot / 2)
+                del st["mids"][:-TRAIN_PULSES]
             st["last"], st["last_sb"], st["n"] = r, b, st["n"] + 1
             st["sb_lo"], st["sb_hi"] = min(st["sb_lo"], b), max(st["sb_hi"], b)
             if len(st["rows"]) < 100000:
                 st["rows"].add(int(r))
             if g > st["peak"]:
                 st.update(peak=float(g), peak_row=r, peak_sb=b, peak_db=float(d))
+
+    def _train_cells(self, j: int, n: int) -> np.ndarray:
+        """Cells of block ``j`` where the open impulse storm's pulse train, if it is
+        periodic, puts its next pulses (see TRAIN_PULSES): one dwell per pulse, both dwells
+        when the pulse falls near their boundary. Empty when there is no such train."""
+        cells = np.zeros((n, self.n_chan), dtype=bool)
+        st = self.storm
+        if st is None or len(self.sb_start) < 2 or len(st["mids"]) < TRAIN_PULSES // 2:
+            return cells
+        m = np.asarray(st["mids"])
+        t_lo = j * self.R * self.cadence
+        if t_lo - m[-1] > self.s.impulse_gap_s:
+            return cells
+        gaps = np.diff(m)
+        d = gaps[(gaps > 0.25) & (gaps < 2.5)]
+        if len(d) < 5:
+            return cells
+        p0 = float(np.median(d))
+        near = d[np.abs(d - p0) < 0.3 * p0]
+        if len(near) < 5:
+            return cells
+        p0 = float(np.mean(near))                  # the dwell grid quantises each gap
+        # pulse numbers step by step (each gap is a whole number of periods), then a line
+        k = np.concatenate([[0.0], np.cumsum(np.maximum(np.round(gaps / p0), 1.0))])
+        kc, mc = k - k.mean(), m - m.mean()
+        if not np.any(kc):
+            return cells
+        period = float(np.sum(kc * mc) / np.sum(kc * kc))
+        phase = float(m.mean() - period * k.mean())
+        resid = m - (phase + period * k)
+        # each caught pulse is known to within its dwell (+- half a dwell): nine in ten
+        # must sit that close to the train
+        if not (0.25 < period < 2.5) or np.mean(np.abs(resid) <= 0.6 * self.slot) < 0.9:
+            return cells
+        t_hi = t_lo + n * self.cadence
+        ks = np.arange(math.ceil((t_lo - self.slot - phase) / period), math.floor((t_hi - phase) / period) + 1)
+        starts = self.offsets[self.sb_start]
+        edge = self.slot / 8
+        for t in phase + period * ks:
+            r = int(math.floor(t / self.cadence)) - j * self.R
+            pos = t - (r + j * self.R) * self.cadence
+            for b in np.flatnonzero((pos >= starts - edge) & (pos < starts + self.slot + edge)):
+                for rr in (r, r + 1) if pos + edge >= self.cadence else (r,):
+                    if 0 <= rr < n:
+                        cells[rr, self.sb_start[b]:self.sb_stop[b]] = True
+        return cells
 
     def _impulse_storms(self, final: bool) -> list[dict]:
         """Storms whose gap has passed (all of them at the end of the segment)."""
@@ -817,6 +888,10 @@ class _Segment:
         self.lines_done += self.lines.push(join, st, {"ex": np.where(st, excess, 0.0), "sig": np.where(st, z, 0.0),
                                                       "raw": np.where(st, excess, 0.0), "sk": zero})
         imp, sub = self._impulses(j, z, w, n, excess, good)
+        # Where a periodic pulse train (an electric fence) puts its next pulses, also under
+        # a burst: its neighbours lit by the burst hide the pulse from the test above, and
+        # a pulse in a burst's strongest step would move the burst's arrival times there.
+        imp |= self._train_cells(j, n) & w
         w &= ~imp
         st |= imp
         sk_anom = np.zeros_like(w)
@@ -1177,7 +1252,8 @@ class _Segment:
         t_arr = self.t0 + (rows[pk_idx] + delta) * cad + self.offsets[ucols] + cad / 2
         # The slope is taken at the event's centre frequency, where the drift is reported.
         d = fit_drift(t_arr, self.f_mhz[ucols], np.clip(col_pk, 0, None) ** 2,
-                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad, fc_mhz=0.5 * (fmin + fmax))
+                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad, fc_mhz=0.5 * (fmin + fmax),
+                      dwell=self.sb_id[ucols] if len(self.sb_start) > 1 else None)
         lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
         return {
             "path": "fine", "sign": 1,

@@ -13,6 +13,7 @@ import pytest
 
 from detector_helpers import Sky, cfg_with, jupiter_up, sun_up
 from rxlog.detector import detect_spectrum
+from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 
 # Five sub-bands of 1.6 MHz, each dwelled 0.2 s in a 1-s cycle (the example station's sweep).
@@ -71,3 +72,19 @@ def test_steady_broadband_rise_at_night_is_rfi_but_a_textured_storm_is_jovian():
     storm.storm(7200, 7500, 16.0, 24.0, 1.0, rise_s=30)
     ev = [e for e in _run(storm, jupiter_up).events if e["duration_s"] >= 120]
     assert ev and all(e["class"] == "jovian_l" for e in ev), [e["reason"] for e in ev]
+
+
+def test_fence_pulses_under_a_burst_are_masked_where_the_train_says():
+    # Under a strong broadband enhancement the neighbours of a pulse's dwell are lit, so
+    # the pulse can hardly be told from the burst there (about 92 % of them are, by the
+    # dwell test alone); the train's period, learnt from the pulses before, says where
+    # each one falls, and all of them are masked. The burst itself is still reported.
+    sky = Sky(1500, offsets=OFFSETS)
+    sky.pulse_train(1.44, 2.0, DWELL, t_first=0.05)
+    pulses = sky.extra > 0
+    sky.patch(600, 900, 16.0, 24.0, 6.0, rise_s=5)
+    under = pulses & (sky.t > 620) & (sky.t < 880)
+    res = _run(sky, sun_up)
+    flagged = (res.mask & FLAG_RFI) > 0
+    assert flagged[under].mean() > 0.97
+    assert [e for e in res.events if e["class"] != "rfi"]
