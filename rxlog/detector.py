@@ -504,6 +504,9 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
         if not jup_up:
             return "rfi", 0.5, (f"brief flash ({bw:.2f} MHz, {f['span_s']:.0f} s) in a gap of the RFI mask, "
                                 "seen nowhere else in the band")
+    if f.get("n_dwells", 2) < 2 and f["span_s"] <= 10.0 and not jup_up:
+        return "rfi", 0.5, (f"confined to one sweep dwell ({bw:.1f} MHz) for {f['span_s']:.0f} s: solar bursts "
+                            "are broader, or drift across dwells")
     if f["resolved"] and drift > 0 and not jup_up:
         return "rfi", 0.6, f"upward drift {drift:+.2f} MHz/s: solar bursts drift down, Jupiter is not up"
 
@@ -511,7 +514,9 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
     if f["resolved"] and drift < 0:
         law = float(ah_drift(fc))
         ratio = drift / law
-        if 1 / TYPE3_FACTOR <= ratio <= TYPE3_FACTOR and run <= 20.0:
+        # A fast drift needs channels sampled at different moments: inside one sweep dwell
+        # every channel is sampled at once, and a "drift" there is only the step between rows.
+        if 1 / TYPE3_FACTOR <= ratio <= TYPE3_FACTOR and run <= 20.0 and f.get("n_dwells", 2) >= 2:
             match = f"drift {drift:.1f} MHz/s matches Type III law ({law:.1f}) at {fc:.0f} MHz"
             closeness = 1.0 - abs(math.log(ratio)) / math.log(TYPE3_FACTOR)
             if sun_up:
@@ -1268,6 +1273,7 @@ class _Segment:
             "sk_fraction": float(np.mean(c.values["sk"] > 0)) if self.has_sk else None,
             "bursty": False, "truncated": bool(truncated),
             "one_subband": self._fills_one_subband(lo_c, hi_c),
+            "n_dwells": int(len(np.unique(self.sb_id[ucols]))) if len(self.sb_start) > 1 else 2,
             "subband_rows": len(urows) <= 10 and all(self._fills_one_subband(int(a), int(b)) for a, b in zip(rmin, rmax)),
             **d,
         }
