@@ -574,21 +574,31 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
     cb = fig.colorbar(im, cax=cax)
     cb.set_label("excess over background (dB)")
     # Boxes sit one bin outside each event so the burst itself stays visible.
-    boxes, colours = [], []
+    # Interference boxes are drawn thin and faint underneath, so a day of ionosonde sweeps
+    # and pulse storms does not hide the bursts.
+    boxes, colours, faint = [], [], []
     bin_t = _dnum(data.t_edges[1]) - _dnum(data.t_edges[0])
     bin_f = data.f_edges_mhz[1] - data.f_edges_mhz[0]
     for e in events:
         a, b = _dnum(parse_iso(e["start_utc"])) - bin_t, _dnum(parse_iso(e["end_utc"])) + bin_t
         lo, hi = max(e["fmin_mhz"] - bin_f, f0), min(e["fmax_mhz"] + bin_f, f1)
+        if e["class"] == "rfi":
+            faint.append(Rectangle((a, lo), b - a, hi - lo))
+            continue
         boxes.append(Rectangle((a, lo), b - a, hi - lo))
         colours.append(CLASS_COLOURS.get(e["class"], "#FFFFFF"))
+    if faint:
+        ax.add_collection(PatchCollection(faint, facecolors="none", edgecolors=CLASS_COLOURS["rfi"],
+                                          linewidths=0.5, alpha=0.45))
     if boxes:
         pc = PatchCollection(boxes, facecolors="none", edgecolors=colours, linewidths=1.0)
         pc.set_path_effects([pe.Stroke(linewidth=2.2, foreground="black"), pe.Normal()])
         ax.add_collection(pc)
-    # Event numbers (as on the page) where they do not crowd each other.
+    # Event numbers (as on the page) where they do not crowd each other; interference unnumbered.
     last = -np.inf
     for i, e in enumerate(events):
+        if e["class"] == "rfi":
+            continue
         a = _dnum(parse_iso(e["start_utc"])) - bin_t
         if a - last >= 0.012 * (x1 - x0):
             ax.annotate(str(i + 1), (a, min(e["fmax_mhz"] + bin_f, f1)), fontsize=7, color="white",
