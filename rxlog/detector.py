@@ -716,10 +716,13 @@ class _Segment:
 
     # -- stage A: block statistics and per-block channel masks ------------------------
     def _static(self, j: int, n: int) -> np.ndarray:
-        if not self.s.static_ranges:
-            return np.zeros((n, self.n_chan), dtype=bool)
+        """The static mask over block ``j``'s rows (read-only when it does not change with
+        the hour: then it is the always-masked channels on every row)."""
+        timed = [r for r in self.s.static_ranges if r.get("hours_utc") is not None]
+        if not timed:
+            return np.broadcast_to(self.always, (n, self.n_chan))
         times = self.blocks[j].t0 + self.cadence * np.arange(n)
-        return rfi.static_mask(list(self.s.static_ranges), self.freq, times)
+        return self.always[None, :] | rfi.static_mask(timed, self.freq, times)
 
     def _block_stats(self, j: int):
         b = self.blocks[j]
@@ -996,7 +999,7 @@ class _Segment:
             edge = side[:, self.sb_id]
             # with the channels either side of the sub-band edges (they can straddle two dwells)
             grow = max(1, int(round(0.1 / self.chan_mhz)))
-            edge = ndimage.binary_dilation(edge, structure=np.ones((1, 2 * grow + 1), dtype=bool))
+            edge = ndimage.maximum_filter1d(edge.view(np.uint8), 2 * grow + 1, axis=1).view(bool)
             anchor_side = side
         else:
             edge = np.zeros((n, self.n_chan), dtype=bool)
