@@ -586,7 +586,7 @@ class _Segment:
         self.sb_stop = np.concatenate([change, [self.n_chan]]).astype(np.int64)
         self.storm: dict | None = None          # the impulse storm still open
         self.storms_done: list[dict] = []
-        self.carry_anchor = False
+        self.carry_anchor = None
         self.sb_id = np.repeat(np.arange(len(self.sb_start)), self.sb_stop - self.sb_start)
         # time from one dwell to the next (the whole step when the receiver does not sweep)
         starts = np.unique(self.offsets)
@@ -642,7 +642,7 @@ class _Segment:
         self.next_s = 0
         self.next_slow = 0
         self.has_sk = spec.kurtosis is not None
-        fields = ("ex", "sig", "raw", "sk")
+        fields = ("ex", "sig", "raw", "sk", "hole")
         col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
                              round(s.max_event_s / cad), fields, col_map=col_map)
@@ -808,7 +808,9 @@ class _Segment:
         st = self.storm
         if st is None or len(self.sb_start) < 2 or len(st["mids"]) < TRAIN_PULSES // 2:
             return cells
-        m = np.asarray(st["mids"])
+        # in time order, one entry per pulse (one caught by two dwells near their
+        # boundary counts once)
+        m = np.unique(np.round(np.asarray(st["mids"]), 6))
         t_lo = j * self.R * self.cadence
         if t_lo - m[-1] > self.s.impulse_gap_s:
             return cells
@@ -821,29 +823,42 @@ class _Segment:
         if len(near) < 5:
             return cells
         p0 = float(np.mean(near))                  # the dwell grid quantises each gap
-        # pulse numbers step by step (each gap is a whole number of periods), then a line
-        k = np.concatenate([[0.0], np.cumsum(np.maximum(np.round(gaps / p0), 1.0))])
-        kc, mc = k - k.mean(), m - m.mean()
-        if not np.any(kc):
-            return cells
-        period = float(np.sum(kc * mc) / np.sum(kc * kc))
-        phase = float(m.mean() - period * k.mean())
-        resid = m - (phase + period * k)
-        # each caught pulse is known to within its dwell (+- half a dwell): nine in ten
+        # pulse numbers step by step (each gap is a whole number of periods), then a line;
+        # twice more with the numbers from the line and without the impulses off it (a
+        # sferic, a burst's step taken for a pulse)
+        k = np.concatenate([[0.0], np.cumsum(np.round(gaps / p0))])
+        inl = np.ones(len(m), dtype=bool)
+        period = phase = 0.0
+        for _ in range(3):
+            kc, mc = k[inl] - k[inl].mean(), m[inl] - m[inl].mean()
+            if not np.any(kc):
+                return cells
+            period = float(np.sum(kc * mc) / np.sum(kc * kc))
+            if not 0.25 < period < 2.5:
+                return cells
+            phase = float(m[inl].mean() - period * k[inl].mean())
+            k = np.round((m - phase) / period)
+            inl = np.abs(m - (phase + period * k)) <= 0.6 * self.slot
+            if inl.sum() < 5:
+                return cells
+        # each caught pulse is known to within its dwell (+- half a dwell): three in four
         # must sit that close to the train
-        if not (0.25 < period < 2.5) or np.mean(np.abs(resid) <= 0.6 * self.slot) < 0.9:
+        if np.mean(inl) < 0.75:
             return cells
         t_hi = t_lo + n * self.cadence
-        ks = np.arange(math.ceil((t_lo - self.slot - phase) / period), math.floor((t_hi - phase) / period) + 1)
+        ks = np.arange(math.ceil((t_lo - self.cadence - phase) / period), math.floor((t_hi + self.cadence - phase) / period) + 1)
         starts = self.offsets[self.sb_start]
         edge = self.slot / 8
         for t in phase + period * ks:
-            r = int(math.floor(t / self.cadence)) - j * self.R
-            pos = t - (r + j * self.R) * self.cadence
-            for b in np.flatnonzero((pos >= starts - edge) & (pos < starts + self.slot + edge)):
-                for rr in (r, r + 1) if pos + edge >= self.cadence else (r,):
-                    if 0 <= rr < n:
-                        cells[rr, self.sb_start[b]:self.sb_stop[b]] = True
+            # the dwells (of this step or a neighbour: a sweep need not start at the step's
+            # start) whose window holds the pulse, give or take an eighth of a dwell
+            r = int(math.floor(t / self.cadence))
+            for rr in (r - 1, r, r + 1):
+                pos = t - rr * self.cadence
+                if not 0 <= rr - j * self.R < n:
+                    continue
+                for b in np.flatnonzero((pos >= starts - edge) & (pos < starts + self.slot + edge)):
+                    cells[rr - j * self.R, self.sb_start[b]:self.sb_stop[b]] = True
         return cells
 
     def _impulse_storms(self, final: bool) -> list[dict]:
@@ -894,7 +909,7 @@ class _Segment:
         join = ndimage.maximum_filter1d(st.view(np.uint8), 2 * self.line_join + 1, axis=1).view(bool)
         zero = np.zeros_like(excess)
         self.lines_done += self.lines.push(join, st, {"ex": np.where(st, excess, 0.0), "sig": np.where(st, z, 0.0),
-                                                      "raw": np.where(st, excess, 0.0), "sk": zero})
+                                                      "raw": np.where(st, excess, 0.0), "sk": zero, "hole": zero})
         imp, sub = self._impulses(j, z, w, n, excess, good)
         # Where a periodic pulse train (an electric fence) puts its next pulses, also under
         # a burst: its neighbours lit by the burst hide the pulse from the test above, and
@@ -916,7 +931,7 @@ class _Segment:
                 acc[i] += v[i]
         self.stage_m[j] = {"z": np.where(w, z, 0.0).astype(np.float32), "w": w.astype(np.float32),
                            "ex": np.where(w, excess, 0.0).astype(np.float32), "sk": sk_anom, "n": n,
-                           "sub": sub}
+                           "sub": sub, "unseen": imp | ~data}
 
     def _group_significance(self, z: np.ndarray, w: np.ndarray, starts: np.ndarray) -> np.ndarray:
         """Per row and channel group (contiguous, from ``starts``): significance of the mean excess."""
@@ -928,7 +943,7 @@ class _Segment:
         """Cells of impulses. An anchor is a whole sub-band lit for one time step with the
         steps either side dark (below 0.3 of it), or lit with the neighbouring sub-bands dark
         (below 0.3 of it) in the same step; for the first kind, in the anchor's step and the next, any
-        0.25-MHz group lit for at most two steps is part of the same impulse (channels near
+        0.25-MHz group within 0.3 MHz of its sub-band lit for at most two steps is part of the same impulse (channels near
         a sub-band edge can straddle two dwells). A Type III lasts longer than that at every
         frequency (its decay is ~2 s at 20 MHz), so it is not taken. Returns (cell mask,
         per-row group significances of this block before removal)."""
@@ -1012,9 +1027,12 @@ class _Segment:
                 exs = np.add.reduceat(np.where(w, excess, 0.0), self.sb_start, axis=1)[rr, bb]
                 self._add_impulses(j * self.R + rr, bb, Sn[rr, bb], np.where(lit > 0, exs / np.maximum(lit, 1), 0.0))
         rows = list(np.flatnonzero(anchor.any(axis=1)))
-        carry = self.carry_anchor            # an anchor in the last step of the previous block
-        self.carry_anchor = bool(rows) and rows[-1] == n - 1
-        if rows or carry:
+        # Where an anchor's groups may join it: its own sub-band and 0.3 MHz either side.
+        reach = max(1, int(round(0.3 / self.chan_mhz)))
+        zone = ndimage.maximum_filter1d(anchor[:, self.sb_id].view(np.uint8), 2 * reach + 1, axis=1).view(bool)
+        carry = self.carry_anchor            # the zone of anchors in the last step of the previous block
+        self.carry_anchor = zone[-1].copy() if (rows and rows[-1] == n - 1) else None
+        if rows or carry is not None:
             pg = prev_g[-2:] if prev_g.shape[0] >= 2 else np.concatenate([np.zeros_like(prev_g[:1]), prev_g[-1:]])
             eg = np.concatenate([pg, G, nxt_g[:2]], axis=0) / scale_g            # rows -2 .. n+1
             rr, bb = np.nonzero(anchor)
@@ -1027,10 +1045,11 @@ class _Segment:
             pk = np.maximum(eg[1:n + 2], eg[2:n + 3])          # the anchor's step and the next
             short = (pk >= 0.5 * self.s.impulse_sigma) & (eg[0:n + 1] <= 0.3 * pk) & (eg[3:n + 4] <= 0.3 * pk)
             is_anchor = np.zeros(n + 1, dtype=bool)
-            is_anchor[0] = carry
+            is_anchor[0] = carry is not None
             is_anchor[np.asarray(rows, dtype=np.int64) + 1] = True
             short &= is_anchor[:, None]
             gcells = short[:, self.groups]                                     # (n + 1, C): rows -1 .. n-1
+            gcells &= np.concatenate([(carry if carry is not None else np.zeros(self.n_chan, bool))[None, :], zone])
             cells |= gcells[1:] | gcells[:-1]                                # the anchor's step and the next
         return cells & w, (S, G)
 
@@ -1139,9 +1158,21 @@ class _Segment:
         grow = (sig >= s.grow_sigma) & enough
         seed = grow & (sig >= s.seed_sigma) & (ex_s >= s.min_peak_db)
         comps = self.fine.push(grow, seed, {"ex": ex_s, "sig": sig, "raw": m["ex"],
-                                            "sk": m["sk"].astype(np.float32)})
+                                            "sk": m["sk"].astype(np.float32), "hole": self._holes(j)})
         # rows were appended at absolute offset j * R; the tracker counts from 0 in order
         return comps
+
+    def _holes(self, j: int) -> np.ndarray:
+        """Per cell of block j: 1 where the step before it at the same channel was not seen
+        (an impulse masked there, or no data), 2 where the step after it was not, 4 where
+        the cell itself was not; summed. A burst's peak next to such a hole may really lie
+        in it, so its arrival time there is unknown."""
+        u = self.stage_m[j]["unseen"]
+        p = self.stage_m.get(j - 1)
+        q = self.stage_m.get(j + 1)
+        before = np.concatenate([p["unseen"][-1:] if p is not None else np.zeros((1, self.n_chan), bool), u[:-1]])
+        after = np.concatenate([u[1:], q["unseen"][:1] if q is not None else np.zeros((1, self.n_chan), bool)])
+        return (before * 1 + after * 2 + u * 4).astype(np.float32)
 
     # -- slow path -------------------------------------------------------------------
     def _slow(self, k: int, nb: int) -> list:
@@ -1258,8 +1289,22 @@ class _Segment:
         den = em - 2 * e0 + ep
         delta = np.where(den < 0, np.clip(0.5 * (em - ep) / np.where(den < 0, den, -1.0), -0.5, 0.5), 0.0)
         t_arr = self.t0 + (rows[pk_idx] + delta) * cad + self.offsets[ucols] + cad / 2
+        # A channel whose peak step has an unseen step beside it (a pulse masked there) has
+        # no arrival time: the peak may lie in the hole. Left out of the fit while enough
+        # of the event remains.
+        w_arr = np.clip(col_pk, 0, None) ** 2
+        if len(self.sb_start) > 1:
+            # per sweep dwell, whose channels share their sample times: a dwell is left
+            # out whole when a third of its weight peaks beside a hole (keeping only its
+            # channels that peak elsewhere would keep the ones that peak in the wrong step)
+            holed = (c.values["hole"][pk_idx] > 0).astype(np.float64)
+            dw = self.sb_id[ucols]
+            frac = np.bincount(dw, weights=w_arr * holed) / np.maximum(np.bincount(dw, weights=w_arr), 1e-300)
+            seen = frac[dw] < 1.0 / 3.0
+            if len(np.unique(dw[seen])) >= 2 and seen.sum() >= 6 and np.sum(w_arr[seen]) >= 0.2 * np.sum(w_arr):
+                w_arr = np.where(seen, w_arr, 0.0)
         # The slope is taken at the event's centre frequency, where the drift is reported.
-        d = fit_drift(t_arr, self.f_mhz[ucols], np.clip(col_pk, 0, None) ** 2,
+        d = fit_drift(t_arr, self.f_mhz[ucols], w_arr,
                       max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad, fc_mhz=0.5 * (fmin + fmax),
                       dwell=self.sb_id[ucols] if len(self.sb_start) > 1 else None)
         lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
