@@ -32,6 +32,7 @@ reason; and ephemeris tags at peak, start and end.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field
 from typing import Callable
@@ -375,6 +376,104 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
     return out
 
 
+# Shapes tried for a fast burst's light curve at one frequency: a Gaussian rise of
+# RISE_FRACTIONS x the e-folding time of an exponential decay, the decay DECAY_S long at
+# 20 MHz and scaling as 1/f (the usual description of a decametric Type III's profile;
+# values from memory), the rise scaling with it or not. The arrival time is the peak of
+# the best fitting shape.
+DECAY_S = (0.5, 0.9, 1.5, 2.5, 4.0, 6.0)
+RISE_FRACTIONS = (0.25, 0.5)
+PROFILE_MAX_ROWS = 40
+
+
+def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observed: np.ndarray,
+                     t_cell: np.ndarray, f_mhz: np.ndarray, group: np.ndarray, bin_mhz: float,
+                     cadence_s: float):
+    """Arrival time per frequency bin from the light curve there, holes allowed.
+
+    Cells (``rows``, ``cols``, linear excess ``lin``, sampled at ``t_cell``) are averaged
+    per row in bins of ``bin_mhz`` that never straddle two ``group`` ids (channels of one
+    sweep dwell share their sample times). Each bin's curve, seen only where ``observed``,
+    is fitted around its highest step by every shape of DECAY_S x RISE_FRACTIONS shifted in
+    steps of 1/20 of the cadence (amplitude by least squares); the arrival is the peak of
+    the best fit, refined by a parabola through its neighbours in shift. A masked step
+    (a pulse taken out) is then a missing sample, not a wrong peak. Returns (t, f, weight,
+    group) per bin, weight the fitted amplitude squared; None when the event is longer than
+    PROFILE_MAX_ROWS steps (a storm, or a stream of millisecond spectra).
+    """
+    r0 = int(rows.min())
+    n_rows = int(rows.max()) - r0 + 1
+    if n_rows > PROFILE_MAX_ROWS or not observed.any():
+        return None
+    fb = np.floor((f_mhz[cols] - f_mhz[cols].min()) / max(bin_mhz, 1e-9)).astype(np.int64)
+    key = group[cols].astype(np.int64) * (int(fb.max()) + 1) + fb
+    keys, kb = np.unique(key, return_inverse=True)
+    nb = len(keys)
+    idx = kb * n_rows + (rows - r0)
+    ok = observed & np.isfinite(lin)
+    S = np.bincount(idx[ok], weights=lin[ok], minlength=nb * n_rows).reshape(nb, n_rows)
+    N = np.bincount(idx[ok], minlength=nb * n_rows).reshape(nb, n_rows).astype(np.float64)
+    T = np.bincount(idx[ok], weights=t_cell[ok], minlength=nb * n_rows).reshape(nb, n_rows)
+    F = np.bincount(kb, weights=f_mhz[cols], minlength=nb) / np.maximum(np.bincount(kb, minlength=nb), 1)
+    G = np.bincount(kb, weights=group[cols].astype(np.float64), minlength=nb) / np.maximum(np.bincount(kb, minlength=nb), 1)
+    seen = N > 0
+    y = np.where(seen, S / np.maximum(N, 1), 0.0)
+    # sample time of each step in each bin (one per bin and step: same dwell)
+    t_bin = np.where(seen, T / np.maximum(N, 1), np.nan)
+    toff = np.nanmedian(t_bin - (np.arange(n_rows) * cadence_s)[None, :], axis=1) \
+        if np.isfinite(t_bin).any(axis=1).all() else None
+    if toff is None:
+        keep = np.isfinite(t_bin).any(axis=1)
+        y, seen, F, G = y[keep], seen[keep], F[keep], G[keep]
+        t_bin = t_bin[keep]
+        toff = np.nanmedian(t_bin - (np.arange(n_rows) * cadence_s)[None, :], axis=1)
+        nb = len(F)
+    if nb == 0:
+        return None
+    ts = toff[:, None] + np.arange(n_rows)[None, :] * cadence_s          # (bins, steps)
+    pk = np.argmax(np.where(seen, y, -np.inf), axis=1)
+    shifts = np.arange(-30, 31) * (cadence_s / 20.0)                     # about the highest step
+    t_pk = ts[np.arange(nb), pk]
+    win = (np.abs(np.arange(n_rows)[None, :] - pk[:, None]) <= max(3, int(round(6.0 / cadence_s)))) & seen
+    yw = np.where(win, y, 0.0)
+    # One shape for the whole event (its decay scaled as 1/f): the bins then differ only in
+    # their shift, so a shape that suits the sampling badly moves every arrival alike.
+    scale = (20.0 / np.clip(F, 1e-3, None))[:, None, None]
+    x = ts[:, None, :] - (t_pk[:, None] + shifts[None, :])[:, :, None]       # (bins, shifts, steps)
+    best_total, best, best_amp = np.inf, None, None
+    for tau, rho, a in itertools.product(DECAY_S, RISE_FRACTIONS, (1.0, 0.0)):
+        tb = tau * scale
+        tr = rho * tau * scale ** a          # a rise that scales with the decay, or not
+        g = np.where(x < 0, np.exp(-0.5 * (x / tr) ** 2), np.exp(-np.clip(x, 0, None) / tb))
+        g = g * win[:, None, :]
+        gg = np.sum(g * g, axis=2)
+        gy = np.sum(g * yw[:, None, :], axis=2)
+        amp = np.where(gg > 0, gy / np.maximum(gg, 1e-300), 0.0)
+        err = np.sum(yw * yw, axis=1)[:, None] - amp * gy               # residual sum of squares
+        err = np.where(amp > 0, err, np.inf)
+        e_min = np.min(err, axis=1)
+        total = float(np.sum(np.where(np.isfinite(e_min), e_min, 0.0)))
+        if total < best_total:
+            best_total, best = total, err
+            best_amp = amp[np.arange(nb), np.argmin(err, axis=1)]
+    if best is None:
+        return None
+    best_err = np.min(best, axis=1)
+    k = np.argmin(best, axis=1)
+    kk = np.clip(k, 1, len(shifts) - 2)
+    e_m, e_0, e_p = best[np.arange(nb), kk - 1], best[np.arange(nb), kk], best[np.arange(nb), kk + 1]
+    with np.errstate(invalid="ignore"):
+        den = e_m - 2 * e_0 + e_p
+        frac = np.where(np.isfinite(den) & (den > 0), np.clip(0.5 * (e_m - e_p) / np.where(den > 0, den, 1.0), -1, 1), 0.0)
+    t_arr = t_pk + shifts[kk] + frac * (shifts[1] - shifts[0])
+    # the curve must be seen on both sides of its highest step (else the peak is only bounded)
+    steps = np.arange(n_rows)[None, :]
+    before = np.any(win & (steps < pk[:, None]), axis=1)
+    after = np.any(win & (steps > pk[:, None]), axis=1)
+    good = np.isfinite(best_err) & (best_amp > 0) & before & after & (k > 0) & (k < len(shifts) - 1)
+    return t_arr[good], F[good], best_amp[good] ** 2, np.round(G[good]).astype(np.int64)
+
+
 def _row_runs_median(rows: np.ndarray, cols: np.ndarray) -> float:
     """Median over channels of the longest run of consecutive rows of the event there."""
     order = np.lexsort((rows, cols))
@@ -489,6 +588,13 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
     if (f["resolved"] and run <= max(2 * cad, 2.0) and abs(drift) <= 0.5
             and f["inst_bw_mhz"] <= max(0.3, 3 * abs(drift) * cad)):
         return "rfi", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)"
+    # A narrow signal that moves across much more of the band than its own width, a step or
+    # two at each frequency, for several seconds: a swept transmitter (an ionosonde) whose
+    # drift the fit could not resolve. Natural bursts are MHz wide at any moment.
+    if (f["inst_bw_mhz"] <= max(0.3, 3 * f["chan_mhz"]) and bw >= 8 * f["inst_bw_mhz"]
+            and run <= max(2 * cad, 2.0) and f["span_s"] >= 5.0 and not jup_up):
+        return "rfi", 0.6, (f"narrow signal ({1000 * f['inst_bw_mhz']:.0f} kHz at a time) moving over {bw:.1f} MHz "
+                            f"in {f['span_s']:.0f} s: a swept transmitter (ionosonde-like)")
     # (A drift fitted inside one dwell over two steps is only the two steps: every channel
     # of a sub-band is sampled at the same moment.)
     if f.get("one_subband") and f["span_s"] <= 3 * cad and run <= 2 * cad:
@@ -1270,12 +1376,21 @@ class _Segment:
         # pulled late by the decay, which is longer at lower frequency for a Type III, and a
         # leading edge is quantised to whole steps wherever a sweep samples many channels at
         # once.)
+        # Only cells actually observed count: the smoothing carries values into masked cells
+        # (a pulse's dwell) from channels sampled at another moment.
         key = cinv.astype(np.int64) * (int(rows.max()) + 3) + (rows - int(rows.min()) + 1)
         order = np.argsort(key)
         skey, sex = key[order], ex[order]
+        observed = (c.values["hole"].astype(np.int64) & 4) == 0
+        ex_obs = np.where(observed, ex, -np.inf)
+        obs_pk = np.full(len(ucols), -np.inf); np.maximum.at(obs_pk, cinv, ex_obs)
+        has_obs = np.isfinite(obs_pk)
         pk_idx = np.full(len(ucols), -1)
-        is_pk = ex >= col_pk[cinv]
+        is_pk = observed & (ex_obs >= obs_pk[cinv])
         pk_idx[cinv[is_pk]] = np.flatnonzero(is_pk)
+        is_any = ex >= col_pk[cinv]
+        fallback = np.full(len(ucols), -1); fallback[cinv[is_any]] = np.flatnonzero(is_any)
+        pk_idx = np.where(has_obs, pk_idx, fallback)
         kp = key[pk_idx]
 
         def at(k):
@@ -1289,24 +1404,22 @@ class _Segment:
         den = em - 2 * e0 + ep
         delta = np.where(den < 0, np.clip(0.5 * (em - ep) / np.where(den < 0, den, -1.0), -0.5, 0.5), 0.0)
         t_arr = self.t0 + (rows[pk_idx] + delta) * cad + self.offsets[ucols] + cad / 2
-        # A channel whose peak step has an unseen step beside it (a pulse masked there) has
-        # no arrival time: the peak may lie in the hole. Left out of the fit while enough
-        # of the event remains.
-        w_arr = np.clip(col_pk, 0, None) ** 2
-        if len(self.sb_start) > 1:
-            # per sweep dwell, whose channels share their sample times: a dwell is left
-            # out whole when a third of its weight peaks beside a hole (keeping only its
-            # channels that peak elsewhere would keep the ones that peak in the wrong step)
-            holed = (c.values["hole"][pk_idx] > 0).astype(np.float64)
-            dw = self.sb_id[ucols]
-            frac = np.bincount(dw, weights=w_arr * holed) / np.maximum(np.bincount(dw, weights=w_arr), 1e-300)
-            seen = frac[dw] < 1.0 / 3.0
-            if len(np.unique(dw[seen])) >= 2 and seen.sum() >= 6 and np.sum(w_arr[seen]) >= 0.2 * np.sum(w_arr):
-                w_arr = np.where(seen, w_arr, 0.0)
+        w_arr = np.where(has_obs, np.clip(np.where(has_obs, obs_pk, 0.0), 0, None), 0.0) ** 2
+        bin_mhz = max(self.s.smooth_freq_mhz / 2, self.chan_mhz)
+        sweep = len(self.sb_start) > 1
+        # Short events: arrival times from the light curve per bin (see profile_arrivals),
+        # which takes masked steps as missing samples.
+        pa = profile_arrivals(rows, cols, np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0,
+                              (c.values["hole"].astype(np.int64) & 4) == 0,
+                              self.t0 + rows * cad + self.offsets[cols] + cad / 2, self.f_mhz,
+                              self.sb_id, bin_mhz, cad)
         # The slope is taken at the event's centre frequency, where the drift is reported.
-        d = fit_drift(t_arr, self.f_mhz[ucols], w_arr,
-                      max(self.s.smooth_freq_mhz / 2, self.chan_mhz), cad, fc_mhz=0.5 * (fmin + fmax),
-                      dwell=self.sb_id[ucols] if len(self.sb_start) > 1 else None)
+        if pa is not None and len(pa[0]) >= 3:
+            d = fit_drift(pa[0], pa[1], pa[2], bin_mhz, cad, fc_mhz=0.5 * (fmin + fmax),
+                          dwell=pa[3] if sweep else None)
+        else:
+            d = fit_drift(t_arr, self.f_mhz[ucols], w_arr, bin_mhz, cad, fc_mhz=0.5 * (fmin + fmax),
+                          dwell=self.sb_id[ucols] if sweep else None)
         lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
         return {
             "path": "fine", "sign": 1,

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from detector_helpers import Sky, cfg_with, jupiter_up, sun_up
-from rxlog.detector import detect_spectrum
+from rxlog.detector import ah_drift, detect_spectrum
 from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 
@@ -88,3 +88,37 @@ def test_fence_pulses_under_a_burst_are_masked_where_the_train_says():
     flagged = (res.mask & FLAG_RFI) > 0
     assert flagged[under].mean() > 0.97
     assert [e for e in res.events if e["class"] != "rfi"]
+
+
+def _type3_drift_errors(offsets, seed=0):
+    """Type III bursts (Alvarez & Haddock 1973 drift, 4 dB) among fence pulses that land in
+    one dwell after another; relative errors of the measured drifts at each event's centre."""
+    sky = Sky(1800, offsets=offsets)
+    sky.pulse_train(1.45, 3.0, DWELL, t_first=0.05)
+    refs = [300.0 + 150.0 * k + 0.37 * k for k in range(9)]
+    for t_ref in refs:
+        sky.type3(t_ref, 4.0, width_s=0.7, decay_s=2.0)
+    res = _run(sky, sun_up, seed=seed)
+    errs = []
+    for t_ref in refs:
+        near = [e for e in res.events if e["class"] == "solar_iii"
+                and abs(parse_iso(e["start_utc"]) - sky.t0 - t_ref) < 8]
+        if not near:
+            errs.append(np.inf)
+            continue
+        e = max(near, key=lambda x: x["fmax_mhz"] - x["fmin_mhz"])
+        law = float(ah_drift(0.5 * (e["fmin_mhz"] + e["fmax_mhz"])))
+        errs.append(abs(e["drift_mhz_s"] / law - 1.0) if e["drift_mhz_s"] is not None else np.inf)
+    return np.array(errs)
+
+
+@pytest.mark.parametrize("start_s", [0.0, 0.014])
+def test_type3_drift_through_a_fence_is_measured_within_8_percent(start_s):
+    # A pulse in a dwell's peak step is masked; the light-curve fit takes it as a missing
+    # sample, so the peak is still placed from the rise and the decay around it (a peak
+    # picked among the steps left moves by a whole step there). The sweep may also start a
+    # little after the step does (the example station: 14 ms), so a pulse late in the last
+    # dwell belongs to the step before. The target is 20 %; the peak-step method gave up
+    # to 12-16 % here, the fit about 3 %.
+    errs = _type3_drift_errors(OFFSETS + start_s)
+    assert np.all(errs <= 0.08), np.round(errs, 3)
