@@ -384,6 +384,9 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
 DECAY_S = (0.5, 0.9, 1.5, 2.5, 4.0, 6.0)
 RISE_FRACTIONS = (0.25, 0.5)
 PROFILE_MAX_ROWS = 40
+# A bin's weight in the drift fit falls when shifting its fitted curve by a third of a step
+# costs less than this share of the curve's power (its peak is not pinned down).
+PROFILE_CONTRAST = 0.05
 
 
 def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observed: np.ndarray,
@@ -395,10 +398,11 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
     per row in bins of ``bin_mhz`` that never straddle two ``group`` ids (channels of one
     sweep dwell share their sample times). Each bin's curve, seen only where ``observed``,
     is fitted around its highest step by every shape of DECAY_S x RISE_FRACTIONS shifted in
-    steps of 1/20 of the cadence (amplitude by least squares); the arrival is the peak of
+    steps of 1/10 of the cadence (amplitude by least squares); the arrival is the peak of
     the best fit, refined by a parabola through its neighbours in shift. A masked step
     (a pulse taken out) is then a missing sample, not a wrong peak. Returns (t, f, weight,
-    group) per bin, weight the fitted amplitude squared; None when the event is longer than
+    group) per bin, weight the fitted amplitude squared, less where the peak is not pinned
+    down (PROFILE_CONTRAST); None when the event is longer than
     PROFILE_MAX_ROWS steps (a storm, or a stream of millisecond spectra).
     """
     r0 = int(rows.min())
@@ -430,27 +434,35 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
         nb = len(F)
     if nb == 0:
         return None
-    ts = toff[:, None] + np.arange(n_rows)[None, :] * cadence_s          # (bins, steps)
     pk = np.argmax(np.where(seen, y, -np.inf), axis=1)
-    shifts = np.arange(-30, 31) * (cadence_s / 20.0)                     # about the highest step
-    t_pk = ts[np.arange(nb), pk]
-    win = (np.abs(np.arange(n_rows)[None, :] - pk[:, None]) <= max(3, int(round(6.0 / cadence_s)))) & seen
-    yw = np.where(win, y, 0.0)
+    # the steps around each bin's highest one (6 s, at least 3 steps, either side)
+    half = min(max(3, int(round(6.0 / cadence_s))), n_rows)
+    j = np.arange(-half, half + 1)
+    idx = pk[:, None] + j[None, :]
+    inside = (idx >= 0) & (idx < n_rows)
+    idx = np.clip(idx, 0, n_rows - 1)
+    bi = np.arange(nb)[:, None]
+    mw = inside & seen[bi, idx]
+    yw = np.where(mw, y[bi, idx], 0.0)
+    ts = toff[:, None] + idx * cadence_s                                  # (bins, window)
+    t_pk = toff + pk * cadence_s
+    shifts = np.arange(-15, 16) * (cadence_s / 10.0)                      # about the highest step
     # One shape for the whole event (its decay scaled as 1/f): the bins then differ only in
     # their shift, so a shape that suits the sampling badly moves every arrival alike.
     scale = (20.0 / np.clip(F, 1e-3, None))[:, None, None]
-    x = ts[:, None, :] - (t_pk[:, None] + shifts[None, :])[:, :, None]       # (bins, shifts, steps)
+    x = ts[:, None, :] - (t_pk[:, None] + shifts[None, :])[:, :, None]       # (bins, shifts, window)
+    neg = x < 0
+    x2 = x * x
+    yy = np.sum(yw * yw, axis=1)[:, None]
     best_total, best, best_amp = np.inf, None, None
     for tau, rho, a in itertools.product(DECAY_S, RISE_FRACTIONS, (1.0, 0.0)):
         tb = tau * scale
         tr = rho * tau * scale ** a          # a rise that scales with the decay, or not
-        g = np.where(x < 0, np.exp(-0.5 * (x / tr) ** 2), np.exp(-np.clip(x, 0, None) / tb))
-        g = g * win[:, None, :]
+        g = np.exp(np.where(neg, -0.5 * x2 / (tr * tr), -x / tb)) * mw[:, None, :]
         gg = np.sum(g * g, axis=2)
         gy = np.sum(g * yw[:, None, :], axis=2)
         amp = np.where(gg > 0, gy / np.maximum(gg, 1e-300), 0.0)
-        err = np.sum(yw * yw, axis=1)[:, None] - amp * gy               # residual sum of squares
-        err = np.where(amp > 0, err, np.inf)
+        err = np.where(amp > 0, yy - amp * gy, np.inf)                   # residual sum of squares
         e_min = np.min(err, axis=1)
         total = float(np.sum(np.where(np.isfinite(e_min), e_min, 0.0)))
         if total < best_total:
@@ -467,11 +479,18 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
         frac = np.where(np.isfinite(den) & (den > 0), np.clip(0.5 * (e_m - e_p) / np.where(den > 0, den, 1.0), -1, 1), 0.0)
     t_arr = t_pk + shifts[kk] + frac * (shifts[1] - shifts[0])
     # the curve must be seen on both sides of its highest step (else the peak is only bounded)
-    steps = np.arange(n_rows)[None, :]
-    before = np.any(win & (steps < pk[:, None]), axis=1)
-    after = np.any(win & (steps > pk[:, None]), axis=1)
+    before = np.any(mw & (j < 0)[None, :], axis=1)
+    after = np.any(mw & (j > 0)[None, :], axis=1)
     good = np.isfinite(best_err) & (best_amp > 0) & before & after & (k > 0) & (k < len(shifts) - 1)
-    return t_arr[good], F[good], best_amp[good] ** 2, np.round(G[good]).astype(np.int64)
+    # How well the shift is pinned: the best fit a third of a step or more away, against
+    # the best, in units of the curve's power. A hole at the peak can leave two shifts
+    # nearly as good (the peak before the hole, or in it).
+    far = np.abs(shifts[None, :] - shifts[k][:, None]) >= cadence_s / 3.0
+    with np.errstate(invalid="ignore"):
+        contrast = (np.min(np.where(far, best, np.inf), axis=1) - best_err) / np.maximum(yy[:, 0], 1e-300)
+    pinned = np.clip(np.nan_to_num(contrast, nan=0.0) / PROFILE_CONTRAST, 0.0, 1.0)
+    good &= pinned > 0
+    return t_arr[good], F[good], (best_amp ** 2 * pinned)[good], np.round(G[good]).astype(np.int64)
 
 
 def _row_runs_median(rows: np.ndarray, cols: np.ndarray) -> float:
