@@ -397,9 +397,10 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
     Cells (``rows``, ``cols``, linear excess ``lin``, sampled at ``t_cell``) are averaged
     per row in bins of ``bin_mhz`` that never straddle two ``group`` ids (channels of one
     sweep dwell share their sample times). Each bin's curve, seen only where ``observed``,
-    is fitted around its highest step by every shape of DECAY_S x RISE_FRACTIONS shifted in
-    steps of 1/10 of the cadence (amplitude by least squares); the arrival is the peak of
-    the best fit, refined by a parabola through its neighbours in shift. A masked step
+    is fitted around its highest step by shapes of DECAY_S x RISE_FRACTIONS shifted in
+    steps of 1/10 of the cadence (amplitude by least squares); the one shape that fits the
+    whole event best is kept, and each bin's arrival is the peak of its best shift,
+    refined by a parabola through the neighbouring shifts. A masked step
     (a pulse taken out) is then a missing sample, not a wrong peak. Returns (t, f, weight,
     group) per bin, weight the fitted amplitude squared, less where the peak is not pinned
     down (PROFILE_CONTRAST); None when the event is longer than
@@ -424,16 +425,12 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
     y = np.where(seen, S / np.maximum(N, 1), 0.0)
     # sample time of each step in each bin (one per bin and step: same dwell)
     t_bin = np.where(seen, T / np.maximum(N, 1), np.nan)
-    toff = np.nanmedian(t_bin - (np.arange(n_rows) * cadence_s)[None, :], axis=1) \
-        if np.isfinite(t_bin).any(axis=1).all() else None
-    if toff is None:
-        keep = np.isfinite(t_bin).any(axis=1)
-        y, seen, F, G = y[keep], seen[keep], F[keep], G[keep]
-        t_bin = t_bin[keep]
-        toff = np.nanmedian(t_bin - (np.arange(n_rows) * cadence_s)[None, :], axis=1)
-        nb = len(F)
+    keep = seen.any(axis=1)                      # bins with an observed step
+    y, seen, F, G, t_bin = y[keep], seen[keep], F[keep], G[keep], t_bin[keep]
+    nb = len(F)
     if nb == 0:
         return None
+    toff = np.nanmedian(t_bin - (np.arange(n_rows) * cadence_s)[None, :], axis=1)
     pk = np.argmax(np.where(seen, y, -np.inf), axis=1)
     # the steps around each bin's highest one (6 s, at least 3 steps, either side)
     half = min(max(3, int(round(6.0 / cadence_s))), n_rows)
@@ -609,8 +606,10 @@ def classify(f: dict, s: Settings) -> tuple[str, float, str]:
         return "rfi", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)"
     # A narrow signal that moves across much more of the band than its own width, a step or
     # two at each frequency, for several seconds: a swept transmitter (an ionosonde) whose
-    # drift the fit could not resolve. Natural bursts are MHz wide at any moment.
-    if (f["inst_bw_mhz"] <= max(0.3, 3 * f["chan_mhz"]) and bw >= 8 * f["inst_bw_mhz"]
+    # drift the fit could not resolve (it swept up and down). Natural bursts are MHz wide
+    # at any moment (a Type II lane too). The frequency smoothing widens what is measured.
+    narrow = max(0.3, 3 * f["chan_mhz"]) + s.smooth_freq_mhz
+    if (f["inst_bw_mhz"] <= narrow and bw >= 8 * f["inst_bw_mhz"]
             and run <= max(2 * cad, 2.0) and f["span_s"] >= 5.0 and not jup_up):
         return "rfi", 0.6, (f"narrow signal ({1000 * f['inst_bw_mhz']:.0f} kHz at a time) moving over {bw:.1f} MHz "
                             f"in {f['span_s']:.0f} s: a swept transmitter (ionosonde-like)")

@@ -181,3 +181,17 @@ def test_light_curve_fit_places_a_peak_that_fell_into_a_masked_step():
     assert abs(steps[seen][np.argmax(np.where(steps[seen] < t_peak,
                                              np.exp(-0.5 * ((steps[seen] - t_peak) / 0.6) ** 2),
                                              np.exp(-(steps[seen] - t_peak) / 2.0)))] - t_peak) > 0.5
+
+
+def test_narrow_signal_sweeping_up_and_down_is_rfi_not_a_burst():
+    # A 0.2-MHz-wide transmitter sweeping 18 -> 21 MHz and back at 0.2 MHz/s by day: the
+    # two legs cancel in the drift fit (no drift), but at any moment it is a fraction of
+    # a MHz wide while crossing 3 MHz, which no natural burst does (a Type III or a Type
+    # II lane is MHz wide at each moment).
+    sky = Sky(900, n_chan=512)
+    fc = np.where(sky.t < 315, 18.0 + 0.2 * (sky.t - 300), 21.0 - 0.2 * (sky.t - 315))
+    on = (sky.t >= 300) & (sky.t < 330)
+    sky.extra += ((np.abs(sky.f[None, :] - fc) <= 0.1) & on) * sky.lin(1.5)
+    res = detect_spectrum(cfg_with(), sky.spectrum(), tags_fn=sun_up)
+    near = [e for e in res.events if 290 <= parse_iso(e["start_utc"]) - sky.t0 <= 335]
+    assert near and all(e["class"] == "rfi" for e in near), [(e["class"], e["reason"]) for e in near]
