@@ -766,7 +766,7 @@ class _Segment:
         self.next_s = 0
         self.next_slow = 0
         self.has_sk = spec.kurtosis is not None
-        fields = ("ex", "sig", "raw", "sk", "hole")
+        fields = ("ex", "sig", "raw", "sk", "unseen")
         col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
                              round(s.max_event_s / cad), fields, col_map=col_map)
@@ -1033,7 +1033,7 @@ class _Segment:
         join = ndimage.maximum_filter1d(st.view(np.uint8), 2 * self.line_join + 1, axis=1).view(bool)
         zero = np.zeros_like(excess)
         self.lines_done += self.lines.push(join, st, {"ex": np.where(st, excess, 0.0), "sig": np.where(st, z, 0.0),
-                                                      "raw": np.where(st, excess, 0.0), "sk": zero, "hole": zero})
+                                                      "raw": np.where(st, excess, 0.0), "sk": zero, "unseen": zero})
         imp, sub = self._impulses(j, z, w, n, excess, good)
         # Where a periodic pulse train (an electric fence) puts its next pulses, also under
         # a burst: its neighbours lit by the burst hide the pulse from the test above, and
@@ -1282,21 +1282,9 @@ class _Segment:
         grow = (sig >= s.grow_sigma) & enough
         seed = grow & (sig >= s.seed_sigma) & (ex_s >= s.min_peak_db)
         comps = self.fine.push(grow, seed, {"ex": ex_s, "sig": sig, "raw": m["ex"],
-                                            "sk": m["sk"].astype(np.float32), "hole": self._holes(j)})
+                                            "sk": m["sk"].astype(np.float32), "unseen": m["unseen"]})
         # rows were appended at absolute offset j * R; the tracker counts from 0 in order
         return comps
-
-    def _holes(self, j: int) -> np.ndarray:
-        """Per cell of block j: 1 where the step before it at the same channel was not seen
-        (an impulse masked there, or no data), 2 where the step after it was not, 4 where
-        the cell itself was not; summed. A burst's peak next to such a hole may really lie
-        in it, so its arrival time there is unknown."""
-        u = self.stage_m[j]["unseen"]
-        p = self.stage_m.get(j - 1)
-        q = self.stage_m.get(j + 1)
-        before = np.concatenate([p["unseen"][-1:] if p is not None else np.zeros((1, self.n_chan), bool), u[:-1]])
-        after = np.concatenate([u[1:], q["unseen"][:1] if q is not None else np.zeros((1, self.n_chan), bool)])
-        return (before * 1 + after * 2 + u * 4).astype(np.float32)
 
     # -- slow path -------------------------------------------------------------------
     def _slow(self, k: int, nb: int) -> list:
@@ -1389,56 +1377,24 @@ class _Segment:
         col_pk = np.zeros(len(ucols)); np.maximum.at(col_pk, cinv, ex)
         ccore = ex >= 0.5 * col_pk[cinv]
         run = _row_runs_median(rows[ccore], cols[ccore])
-        # Arrival time at each frequency: the time of its (smoothed) peak, interpolated between time
-        # steps by the parabola through the peak step and its neighbours. (A centroid would be
-        # pulled late by the decay, which is longer at lower frequency for a Type III, and a
-        # leading edge is quantised to whole steps wherever a sweep samples many channels at
-        # once.)
+        lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
         # Only cells actually observed count: the smoothing carries values into masked cells
         # (a pulse's dwell) from channels sampled at another moment.
-        key = cinv.astype(np.int64) * (int(rows.max()) + 3) + (rows - int(rows.min()) + 1)
-        order = np.argsort(key)
-        skey, sex = key[order], ex[order]
-        observed = (c.values["hole"].astype(np.int64) & 4) == 0
-        ex_obs = np.where(observed, ex, -np.inf)
-        obs_pk = np.full(len(ucols), -np.inf); np.maximum.at(obs_pk, cinv, ex_obs)
-        has_obs = np.isfinite(obs_pk)
-        pk_idx = np.full(len(ucols), -1)
-        is_pk = observed & (ex_obs >= obs_pk[cinv])
-        pk_idx[cinv[is_pk]] = np.flatnonzero(is_pk)
-        is_any = ex >= col_pk[cinv]
-        fallback = np.full(len(ucols), -1); fallback[cinv[is_any]] = np.flatnonzero(is_any)
-        pk_idx = np.where(has_obs, pk_idx, fallback)
-        kp = key[pk_idx]
-
-        def at(k):
-            i = np.searchsorted(skey, k)
-            i = np.clip(i, 0, len(skey) - 1)
-            return np.where(skey[i] == k, sex[i], np.nan)
-
-        e0, em, ep = ex[pk_idx], at(kp - 1), at(kp + 1)
-        em = np.where(np.isfinite(em), em, 0.0)
-        ep = np.where(np.isfinite(ep), ep, 0.0)
-        den = em - 2 * e0 + ep
-        delta = np.where(den < 0, np.clip(0.5 * (em - ep) / np.where(den < 0, den, -1.0), -0.5, 0.5), 0.0)
-        t_arr = self.t0 + (rows[pk_idx] + delta) * cad + self.offsets[ucols] + cad / 2
-        w_arr = np.where(has_obs, np.clip(np.where(has_obs, obs_pk, 0.0), 0, None), 0.0) ** 2
+        observed = c.values["unseen"] == 0
         bin_mhz = max(self.s.smooth_freq_mhz / 2, self.chan_mhz)
         sweep = len(self.sb_start) > 1
         # Short events: arrival times from the light curve per bin (see profile_arrivals),
-        # which takes masked steps as missing samples.
-        pa = profile_arrivals(rows, cols, np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0,
-                              (c.values["hole"].astype(np.int64) & 4) == 0,
-                              self.t0 + rows * cad + self.offsets[cols] + cad / 2, self.f_mhz,
-                              self.sb_id, bin_mhz, cad)
+        # which takes masked steps as missing samples; longer ones from the peak step.
+        pa = profile_arrivals(rows, cols, lin, observed, self.t0 + rows * cad + self.offsets[cols] + cad / 2,
+                              self.f_mhz, self.sb_id, bin_mhz, cad)
         # The slope is taken at the event's centre frequency, where the drift is reported.
         if pa is not None and len(pa[0]) >= 3:
             d = fit_drift(pa[0], pa[1], pa[2], bin_mhz, cad, fc_mhz=0.5 * (fmin + fmax),
                           dwell=pa[3] if sweep else None)
         else:
+            t_arr, w_arr = self._peak_arrivals(rows, ex, observed, ucols, cinv, col_pk)
             d = fit_drift(t_arr, self.f_mhz[ucols], w_arr, bin_mhz, cad, fc_mhz=0.5 * (fmin + fmax),
                           dwell=self.sb_id[ucols] if sweep else None)
-        lin = np.power(10.0, raw.astype(np.float64) / 10.0) - 1.0
         return {
             "path": "fine", "sign": 1,
             "start": float(t.min()), "end": float(t.max() + cad), "peak": float(t[ipk] + cad / 2),
@@ -1456,6 +1412,42 @@ class _Segment:
             "subband_rows": len(urows) <= 10 and all(self._fills_one_subband(int(a), int(b)) for a, b in zip(rmin, rmax)),
             **d,
         }
+
+    def _peak_arrivals(self, rows, ex, observed, ucols, cinv, col_pk):
+        """Arrival time and weight per channel of the event: the time of its (smoothed)
+        peak among observed cells, interpolated between time steps by the parabola through
+        the peak step and its neighbours. (A centroid would be pulled late by the decay,
+        which is longer at lower frequency for a Type III, and a leading edge is quantised
+        to whole steps wherever a sweep samples many channels at once.)"""
+        cad = self.cadence
+        key = cinv.astype(np.int64) * (int(rows.max()) + 3) + (rows - int(rows.min()) + 1)
+        order = np.argsort(key)
+        skey, sex = key[order], ex[order]
+        ex_obs = np.where(observed, ex, -np.inf)
+        obs_pk = np.full(len(ucols), -np.inf)
+        np.maximum.at(obs_pk, cinv, ex_obs)
+        has_obs = np.isfinite(obs_pk)
+        pk_idx = np.full(len(ucols), -1)
+        is_pk = observed & (ex_obs >= obs_pk[cinv])
+        pk_idx[cinv[is_pk]] = np.flatnonzero(is_pk)
+        is_any = ex >= col_pk[cinv]                      # channels seen nowhere: their peak
+        fallback = np.full(len(ucols), -1)
+        fallback[cinv[is_any]] = np.flatnonzero(is_any)
+        pk_idx = np.where(has_obs, pk_idx, fallback)
+        kp = key[pk_idx]
+
+        def at(k):
+            i = np.searchsorted(skey, k)
+            i = np.clip(i, 0, len(skey) - 1)
+            return np.where(skey[i] == k, sex[i], np.nan)
+
+        e0, em, ep = ex[pk_idx], at(kp - 1), at(kp + 1)
+        em = np.where(np.isfinite(em), em, 0.0)
+        ep = np.where(np.isfinite(ep), ep, 0.0)
+        den = em - 2 * e0 + ep
+        delta = np.where(den < 0, np.clip(0.5 * (em - ep) / np.where(den < 0, den, -1.0), -0.5, 0.5), 0.0)
+        t_arr = self.t0 + (rows[pk_idx] + delta) * cad + self.offsets[ucols] + cad / 2
+        return t_arr, np.clip(np.where(has_obs, obs_pk, 0.0), 0, None) ** 2
 
     def _fills_one_subband(self, lo_c: int, hi_c: int) -> bool:
         """The event spans the whole usable part of one sweep sub-band and nothing else,
