@@ -162,6 +162,10 @@ class Component:
     cols: np.ndarray
     values: dict
     forced: bool = False
+    # cells just before and after the event at its channels (one step either side, where
+    # the buffer still held them), with the same fields: the samples a light-curve fit
+    # needs around the peak of a burst that rises within one step
+    around: tuple | None = None
 
 
 class _Tracker:
@@ -175,8 +179,9 @@ class _Tracker:
     """
 
     def __init__(self, n_cols: int, gap_rows: int, merge_cols: int, max_rows: int, fields: tuple,
-                 col_map: np.ndarray | None = None):
+                 col_map: np.ndarray | None = None, around: bool = False):
         self.n_cols = n_cols
+        self.around = around             # also hand out the cells one row either side
         # column coordinate used for the frequency overlap test: always-masked columns
         # collapse, so fragments of one burst either side of a masked range still merge
         self.col_map = np.arange(n_cols) if col_map is None else np.asarray(col_map)
@@ -234,7 +239,8 @@ class _Tracker:
             order = np.lexsort((cols, rows))
             rows, cols = rows[order], cols[order]
             vals = {k: self.vals[k][rows, cols] for k in self.names}
-            out.append(Component(rows + self.row0, cols, vals, forced=forced))
+            around = self._around(rows, cols, lab, members) if self.around else None
+            out.append(Component(rows + self.row0, cols, vals, forced=forced, around=around))
             remove.extend(members)
         for m in remove:
             sl = objs[m]
@@ -246,9 +252,24 @@ class _Tracker:
         else:
             still = self.grow.any(axis=1)
             first = int(np.argmax(still)) if still.any() else n - 1
-            self._trim(min(first, n - 1))
+            self._trim(min(first, n - 1) - int(self.around))
         out.sort(key=lambda c: (int(c.rows.min()), int(c.cols.min())))
         return out
+
+    def _around(self, rows, cols, lab, members) -> tuple:
+        """(rows, cols, values) of the cells one row before or after a cell of the event,
+        at the same channel, that are not part of it and are still in the buffer."""
+        n = self.grow.shape[0]
+        rr = np.concatenate([rows - 1, rows + 1])
+        cc = np.concatenate([cols, cols])
+        ok = (rr >= 0) & (rr < n)
+        rr, cc = rr[ok], cc[ok]
+        own = np.isin(lab[rr, cc], members + 1)
+        rr, cc = rr[~own], cc[~own]
+        if len(rr):
+            u = np.unique(rr * self.n_cols + cc)
+            rr, cc = u // self.n_cols, u % self.n_cols
+        return rr + self.row0, cc, {k: self.vals[k][rr, cc] for k in self.names}
 
     def _groups(self, r0, r1, c0, c1) -> list[np.ndarray]:
         k = len(r0)
@@ -394,9 +415,10 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
                      cadence_s: float):
     """Arrival time per frequency bin from the light curve there, holes allowed.
 
-    Cells (``rows``, ``cols``, linear excess ``lin``, sampled at ``t_cell``) are averaged
-    per row in bins of ``bin_mhz`` that never straddle two ``group`` ids (channels of one
-    sweep dwell share their sample times). Each bin's curve, seen only where ``observed``,
+    Cells (``rows``, ``cols``, linear excess ``lin``, sampled at ``t_cell``: the event's own
+    and the quiet ones one step either side) are averaged per row in bins of ``bin_mhz``
+    that never straddle two ``group`` ids (channels of one sweep dwell share their sample
+    times). Each bin's curve, seen only where ``observed``,
     is fitted around its highest step by shapes of DECAY_S x RISE_FRACTIONS shifted in
     steps of 1/10 of the cadence (amplitude by least squares); the one shape that fits the
     whole event best is kept, and each bin's arrival is the peak of its best shift,
@@ -485,7 +507,7 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
     far = np.abs(shifts[None, :] - shifts[k][:, None]) >= cadence_s / 3.0
     with np.errstate(invalid="ignore"):
         contrast = (np.min(np.where(far, best, np.inf), axis=1) - best_err) / np.maximum(yy[:, 0], 1e-300)
-    pinned = np.clip(np.nan_to_num(contrast, nan=0.0) / PROFILE_CONTRAST, 0.0, 1.0)
+    pinned = np.clip(np.nan_to_num(contrast, nan=0.0, posinf=PROFILE_CONTRAST), 0.0, PROFILE_CONTRAST) / PROFILE_CONTRAST
     good &= pinned > 0
     return t_arr[good], F[good], (best_amp ** 2 * pinned)[good], np.round(G[good]).astype(np.int64)
 
@@ -769,7 +791,7 @@ class _Segment:
         fields = ("ex", "sig", "raw", "sk", "unseen")
         col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
-                             round(s.max_event_s / cad), fields, col_map=col_map)
+                             round(s.max_event_s / cad), fields, col_map=col_map, around=True)
         # Narrowband cells SumThreshold took out, joined into lines: a sweep across the
         # band (an ionosonde) is reported as an rfi event; a line that stays put is not.
         self.lines = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
@@ -1385,7 +1407,15 @@ class _Segment:
         sweep = len(self.sb_start) > 1
         # Short events: arrival times from the light curve per bin (see profile_arrivals),
         # which takes masked steps as missing samples; longer ones from the peak step.
-        pa = profile_arrivals(rows, cols, lin, observed, self.t0 + rows * cad + self.offsets[cols] + cad / 2,
+        # The steps just before and after the event count too: the quiet sample before a
+        # burst that rises within one step pins its peak as well as any inside it.
+        pr, pc, pl, po = rows, cols, lin, observed
+        if c.around is not None and len(c.around[0]):
+            ar, ac, av = c.around
+            pr, pc = np.concatenate([rows, ar]), np.concatenate([cols, ac])
+            pl = np.concatenate([lin, np.power(10.0, av["raw"].astype(np.float64) / 10.0) - 1.0])
+            po = np.concatenate([observed, av["unseen"] == 0])
+        pa = profile_arrivals(pr, pc, pl, po, self.t0 + pr * cad + self.offsets[pc] + cad / 2,
                               self.f_mhz, self.sb_id, bin_mhz, cad)
         # The slope is taken at the event's centre frequency, where the drift is reported.
         if pa is not None and len(pa[0]) >= 3:

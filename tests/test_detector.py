@@ -195,3 +195,27 @@ def test_narrow_signal_sweeping_up_and_down_is_rfi_not_a_burst():
     res = detect_spectrum(cfg_with(), sky.spectrum(), tags_fn=sun_up)
     near = [e for e in res.events if 290 <= parse_iso(e["start_utc"]) - sky.t0 <= 335]
     assert near and all(e["class"] == "rfi" for e in near), [(e["class"], e["reason"]) for e in near]
+
+
+def test_tracker_hands_out_the_cells_one_step_before_and_after_an_event():
+    # The light-curve fit needs the quiet step before a burst that rises within one step;
+    # the tracker keeps one row of margin in its buffer and hands those cells out with the
+    # event, even when the event began in an earlier push.
+    from rxlog.detector import _Tracker
+    n_rows, n_cols = 20, 16
+    grow = np.zeros((n_rows, n_cols), dtype=bool)
+    grow[5:8, 10:13] = True
+    grow[6, 9] = True
+    val = (np.arange(n_rows)[:, None] * 100 + np.arange(n_cols)[None, :]).astype(np.float32)
+    tr = _Tracker(n_cols, gap_rows=2, merge_cols=1, max_rows=100, fields=("ex",), around=True)
+    out = []
+    for a, b in ((0, 6), (6, 9), (9, 20)):
+        out += tr.push(grow[a:b], grow[a:b], {"ex": val[a:b]})
+    out += tr.finish()
+    assert len(out) == 1
+    c = out[0]
+    r, cc, v = c.around
+    got = set(zip(r.tolist(), cc.tolist()))
+    want = {(4, 10), (4, 11), (4, 12), (8, 10), (8, 11), (8, 12), (5, 9), (7, 9)}
+    assert got == want
+    assert np.array_equal(v["ex"], (r * 100 + cc).astype(np.float32))
