@@ -90,14 +90,15 @@ def test_fence_pulses_under_a_burst_are_masked_where_the_train_says():
     assert [e for e in res.events if e["class"] != "rfi"]
 
 
-def _type3_drift_errors(offsets, seed=0):
-    """Type III bursts (Alvarez & Haddock 1973 drift, 4 dB) among fence pulses that land in
-    one dwell after another; relative errors of the measured drifts at each event's centre."""
+def _type3_drift_errors(offsets, seed=0, peak_db=4.0, width_s=0.7):
+    """Type III bursts (Alvarez & Haddock 1973 drift, ``peak_db``, Gaussian rise ``width_s``)
+    among fence pulses that land in one dwell after another; relative errors of the
+    measured drifts at each event's centre (inf where none was measured)."""
     sky = Sky(1800, offsets=offsets)
     sky.pulse_train(1.45, 3.0, DWELL, t_first=0.05)
     refs = [300.0 + 150.0 * k + 0.37 * k for k in range(9)]
     for t_ref in refs:
-        sky.type3(t_ref, 4.0, width_s=0.7, decay_s=2.0)
+        sky.type3(t_ref, peak_db, width_s=width_s, decay_s=2.0)
     res = _run(sky, sun_up, seed=seed)
     errs = []
     for t_ref in refs:
@@ -131,18 +132,5 @@ def test_faint_type3_rising_within_a_step_through_a_fence_is_measured_within_20_
     # light-curve fit takes that quiet step as well; without it such bins had no sample
     # before their peak and were left out, and with the fence's holes the rest gave errors
     # up to 40 % and bursts with no drift at all.
-    sky = Sky(1800, offsets=OFFSETS + 0.014)
-    sky.pulse_train(1.45, 3.0, DWELL, t_first=0.05)
-    refs = [300.0 + 150.0 * k + 0.37 * k for k in range(9)]
-    for t_ref in refs:
-        sky.type3(t_ref, 1.0, width_s=0.35, decay_s=2.0)
-    res = _run(sky, sun_up, seed=seed)
-    errs = []
-    for t_ref in refs:
-        near = [e for e in res.events if e["class"] == "solar_iii"
-                and abs(parse_iso(e["start_utc"]) - sky.t0 - t_ref) < 8 and e["drift_mhz_s"] is not None]
-        assert near, f"Type III at {t_ref} s: no drift measured"
-        e = max(near, key=lambda x: x["fmax_mhz"] - x["fmin_mhz"])
-        law = float(ah_drift(0.5 * (e["fmin_mhz"] + e["fmax_mhz"])))
-        errs.append(abs(e["drift_mhz_s"] / law - 1.0))
-    assert max(errs) <= 0.2, np.round(errs, 3)
+    errs = _type3_drift_errors(OFFSETS + 0.014, seed=seed, peak_db=1.0, width_s=0.35)
+    assert np.all(errs <= 0.2), np.round(errs, 3)
