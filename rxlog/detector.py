@@ -179,9 +179,10 @@ class _Tracker:
     """
 
     def __init__(self, n_cols: int, gap_rows: int, merge_cols: int, max_rows: int, fields: tuple,
-                 col_map: np.ndarray | None = None, around: bool = False):
+                 col_map: np.ndarray | None = None, around_rows: int = 0):
         self.n_cols = n_cols
-        self.around = around             # also hand out the cells one row either side
+        # events up to this many rows also get the cells one row either side (Component.around)
+        self.around_rows = around_rows
         # column coordinate used for the frequency overlap test: always-masked columns
         # collapse, so fragments of one burst either side of a masked range still merge
         self.col_map = np.arange(n_cols) if col_map is None else np.asarray(col_map)
@@ -239,7 +240,9 @@ class _Tracker:
             order = np.lexsort((cols, rows))
             rows, cols = rows[order], cols[order]
             vals = {k: self.vals[k][rows, cols] for k in self.names}
-            around = self._around(rows, cols, lab, members) if self.around else None
+            around = None
+            if g_end - g_start + 1 <= self.around_rows:
+                around = self._around(rows, cols, lab, members)
             out.append(Component(rows + self.row0, cols, vals, forced=forced, around=around))
             remove.extend(members)
         for m in remove:
@@ -252,7 +255,7 @@ class _Tracker:
         else:
             still = self.grow.any(axis=1)
             first = int(np.argmax(still)) if still.any() else n - 1
-            self._trim(min(first, n - 1) - int(self.around))
+            self._trim(min(first, n - 1) - int(self.around_rows > 0))
         out.sort(key=lambda c: (int(c.rows.min()), int(c.cols.min())))
         return out
 
@@ -418,12 +421,12 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
     Cells (``rows``, ``cols``, linear excess ``lin``, sampled at ``t_cell``: the event's own
     and the quiet ones one step either side) are averaged per row in bins of ``bin_mhz``
     that never straddle two ``group`` ids (channels of one sweep dwell share their sample
-    times). Each bin's curve, seen only where ``observed``,
-    is fitted around its highest step by shapes of DECAY_S x RISE_FRACTIONS shifted in
-    steps of 1/10 of the cadence (amplitude by least squares); the one shape that fits the
-    whole event best is kept, and each bin's arrival is the peak of its best shift,
-    refined by a parabola through the neighbouring shifts. A masked step
-    (a pulse taken out) is then a missing sample, not a wrong peak. Returns (t, f, weight,
+    times). Each bin's curve, seen only where ``observed``, is fitted around its highest
+    step by shapes of DECAY_S x RISE_FRACTIONS shifted in steps of 1/10 of the cadence
+    (amplitude by least squares); the one shape that fits the whole event best is kept,
+    and each bin's arrival is the peak of its best shift, refined by a parabola through
+    the neighbouring shifts. A masked step (a pulse taken out) is then a missing sample,
+    not a wrong peak. Returns (t, f, weight,
     group) per bin, weight the fitted amplitude squared, less where the peak is not pinned
     down (PROFILE_CONTRAST); None when the event is longer than
     PROFILE_MAX_ROWS steps (a storm, or a stream of millisecond spectra).
@@ -791,7 +794,8 @@ class _Segment:
         fields = ("ex", "sig", "raw", "sk", "unseen")
         col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
-                             round(s.max_event_s / cad), fields, col_map=col_map, around=True)
+                             round(s.max_event_s / cad), fields, col_map=col_map,
+                             around_rows=PROFILE_MAX_ROWS - 2)
         # Narrowband cells SumThreshold took out, joined into lines: a sweep across the
         # band (an ionosonde) is reported as an rfi event; a line that stays put is not.
         self.lines = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),

@@ -207,7 +207,7 @@ def test_tracker_hands_out_the_cells_one_step_before_and_after_an_event():
     grow[5:8, 10:13] = True
     grow[6, 9] = True
     val = (np.arange(n_rows)[:, None] * 100 + np.arange(n_cols)[None, :]).astype(np.float32)
-    tr = _Tracker(n_cols, gap_rows=2, merge_cols=1, max_rows=100, fields=("ex",), around=True)
+    tr = _Tracker(n_cols, gap_rows=2, merge_cols=1, max_rows=100, fields=("ex",), around_rows=10)
     out = []
     for a, b in ((0, 6), (6, 9), (9, 20)):
         out += tr.push(grow[a:b], grow[a:b], {"ex": val[a:b]})
