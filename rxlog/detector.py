@@ -426,10 +426,10 @@ def profile_arrivals(rows: np.ndarray, cols: np.ndarray, lin: np.ndarray, observ
     (amplitude by least squares); the one shape that fits the whole event best is kept,
     and each bin's arrival is the peak of its best shift, refined by a parabola through
     the neighbouring shifts. A masked step (a pulse taken out) is then a missing sample,
-    not a wrong peak. Returns (t, f, weight,
-    group) per bin, weight the fitted amplitude squared, less where the peak is not pinned
-    down (PROFILE_CONTRAST); None when the event is longer than
-    PROFILE_MAX_ROWS steps (a storm, or a stream of millisecond spectra).
+    not a wrong peak. Returns (t, f, weight, group) per bin, weight the fitted amplitude
+    squared, less where the peak is not pinned down (PROFILE_CONTRAST); None when the
+    cells span more than PROFILE_MAX_ROWS steps (a storm, or a stream of millisecond
+    spectra).
     """
     r0 = int(rows.min())
     n_rows = int(rows.max()) - r0 + 1
@@ -795,7 +795,7 @@ class _Segment:
         col_map = np.cumsum(~always) - (~always).astype(np.int64)     # unmasked channels before each
         self.fine = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
                              round(s.max_event_s / cad), fields, col_map=col_map,
-                             around_rows=PROFILE_MAX_ROWS - 2)
+                             around_rows=PROFILE_MAX_ROWS - 2)     # with its 2 extra steps
         # Narrowband cells SumThreshold took out, joined into lines: a sweep across the
         # band (an ionosonde) is reported as an rfi event; a line that stays put is not.
         self.lines = _Tracker(self.n_chan, round(s.merge_gap_s / cad), round(s.merge_freq_mhz / self.chan_mhz),
