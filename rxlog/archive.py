@@ -4,7 +4,7 @@ Layout on disk (``root`` is ``cfg.archive_dir``)::
 
     root/YYYY/MM/DD/<station>_YYYYMMDDTHHZ.fits                 one consolidated hour
     root/YYYY/MM/DD/<station>_YYYYMMDDTHHZ.<pid>-<n>.chunk.fits  at most 60 s, not yet consolidated
-    root/YYYY/MM/DD/.<name>.<pid>.tmp                             being written (never read)
+    root/YYYY/MM/DD/.<name>.XXXXXX.tmp                            being written (never read)
 
 Every file is a primary HDU (station, rxlog version) followed by one HDU set per run of
 spectra: ``POWER`` (image), ``FLAGS`` (image of FLAG_* bits) and ``CHANNELS`` (table of
@@ -51,6 +51,7 @@ from astropy.io import fits
 
 from rxlog import __version__
 from rxlog.errors import RxlogError
+from rxlog.fileio import ensure_dir, fsync_dir, write_atomic
 from rxlog.spectrum import FLAG_GAP, FLAG_RETUNE, FLAG_RFI, FLAG_UNCOVERED, DynamicSpectrum
 
 FORMAT = "rxlog-dynspec-1"          # value of RXFORMAT in the primary header of our files
@@ -247,49 +248,19 @@ def _primary(station: dict, kind: str) -> fits.PrimaryHDU:
 
 # --------------------------------------------------------------------------- atomic files
 
-def _fsync_dir(path: Path) -> None:
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
-
-
-def _ensure_dir(path: Path) -> None:
-    """mkdir -p, fsyncing each parent whose listing changed so the new folder survives a crash."""
-    if path.is_dir():
-        return
-    _ensure_dir(path.parent)
-    with contextlib.suppress(FileExistsError):
-        path.mkdir()
-    _fsync_dir(path.parent)
-
-
 def _write_atomic(path: Path, hdus: list) -> None:
-    """Write an HDU list to ``path``: temporary name, fsync, rename, fsync the folder."""
-    path = Path(path)
-    _ensure_dir(path.parent)
-    tmp = path.parent / f".{path.name}.{os.getpid()}.tmp"
-    try:
-        with open(tmp, "wb") as fh:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", fits.verify.VerifyWarning)
-                fits.HDUList(hdus).writeto(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except OSError as e:
-        with contextlib.suppress(OSError):
-            tmp.unlink()
-        raise RxlogError(f"{path}: cannot write archive file ({e.strerror or e}); "
-                         "check free space and permissions") from None
-    _fsync_dir(path.parent)
+    """Write an HDU list to ``path`` crash-safely (see rxlog.fileio)."""
+    def dump(fh):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", fits.verify.VerifyWarning)
+            fits.HDUList(hdus).writeto(fh)
+    write_atomic(path, dump, what="archive file")
 
 
 @contextlib.contextmanager
 def _locked(root: Path):
     """Exclusive lock of the archive for writing files (flock, released if the process dies)."""
-    _ensure_dir(root)
+    ensure_dir(root)
     with open(root / _LOCK_NAME, "a") as fh:
         fcntl.flock(fh, fcntl.LOCK_EX)
         try:
@@ -797,7 +768,7 @@ def _consolidate(root: Path, name: str, hour: int) -> Path | None:
     for c in chunks:
         with contextlib.suppress(FileNotFoundError):
             c.unlink()
-    _fsync_dir(folder)
+    fsync_dir(folder)
     return hour_path
 
 
@@ -1049,7 +1020,7 @@ def prune(root, retention_days: float, now: float | None = None) -> list[Path]:
             path.unlink()
             deleted.append(path)
         for folder in {p.parent for p in deleted}:
-            _fsync_dir(folder)
+            fsync_dir(folder)
             for d in (folder, folder.parent, folder.parent.parent):
                 with contextlib.suppress(OSError):
                     d.rmdir()                              # only succeeds when empty

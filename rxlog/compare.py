@@ -38,7 +38,8 @@ from pathlib import Path
 import numpy as np
 
 from rxlog.errors import RxlogError
-from rxlog.exchange import EventList, _write_atomic, read_event_list
+from rxlog.fileio import write_atomic
+from rxlog.exchange import EventList, read_event_list
 from rxlog.store import CLASSES
 from rxlog.timeutil import parse_iso
 
@@ -878,7 +879,7 @@ STATION_COLUMNS = ("station", "n_events", "n_confirmed", "n_clock_events", "n_ty
 
 def write_outputs(result: CompareResult, E: _Events, grp, n_at, names, outdir: Path) -> dict[str, Path]:
     outdir.mkdir(parents=True, exist_ok=True)
-    files = {"matched": _write_atomic(outdir / "matched_events.csv", _csv_text(ROW_COLUMNS, result.rows))}
+    files = {"matched": write_atomic(outdir / "matched_events.csv", _csv_text(ROW_COLUMNS, result.rows))}
     srows = [{"station": s.name, "n_events": s.n_events, "n_confirmed": s.n_confirmed,
               "n_clock_events": s.n_clock, "n_type3": s.n_type3, "n_lightcurves": s.n_lightcurves,
               "offset_s": s.offset_s, "offset_err_s": s.offset_err_s, "event_offset_s": s.event_offset_s,
@@ -886,9 +887,9 @@ def write_outputs(result: CompareResult, E: _Events, grp, n_at, names, outdir: P
               "flagged": int(s.flagged), "clock_sync": s.clock_sync,
               "latitude_deg": s.header.get("latitude_deg"), "longitude_deg": s.header.get("longitude_deg"),
               "cadence_s": s.header.get("cadence_s")} for s in result.stations]
-    files["stations"] = _write_atomic(outdir / "stations.csv", _csv_text(STATION_COLUMNS, srows))
+    files["stations"] = write_atomic(outdir / "stations.csv", _csv_text(STATION_COLUMNS, srows))
     text = "\n".join(result.summary_lines() + [""] + result.notices) + "\n"
-    files["summary"] = _write_atomic(outdir / "summary.txt", text.encode("utf-8"))
+    files["summary"] = write_atomic(outdir / "summary.txt", text.encode("utf-8"))
     files["timeline"] = plot_timeline(E, grp, n_at, names, outdir / "timeline.png")
     return files
 
@@ -989,4 +990,4 @@ def plot_timeline(E: _Events, grp, n_at, names, path: Path) -> Path:
     ax.grid(axis="x", alpha=0.3)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=110)
-    return _write_atomic(path, buf.getvalue())
+    return write_atomic(path, buf.getvalue())

@@ -26,9 +26,7 @@ import datetime as _dt
 import io
 import json
 import math
-import os
 import re
-import tempfile
 import time
 import xml.etree.ElementTree as ET
 import xml.parsers.expat
@@ -39,6 +37,7 @@ import numpy as np
 
 from rxlog import __version__
 from rxlog.errors import RxlogError
+from rxlog.fileio import write_atomic
 from rxlog.store import CLASSES, LABELS, EventStore
 from rxlog.timeutil import iso, parse_iso
 
@@ -172,7 +171,7 @@ def write_event_list(path, fmt: str, header: dict, events: list[dict]) -> Path:
         data = _json_bytes(header, rows)
     else:
         data = _votable_bytes(header, rows)
-    return _write_atomic(Path(path), data)
+    return write_atomic(Path(path), data)
 
 
 def _export_row(ev: dict) -> dict:
@@ -267,21 +266,6 @@ def _votable_bytes(header: dict, rows: list[dict]) -> bytes:
     return buf.getvalue()
 
 
-def _write_atomic(path: Path, data: bytes) -> Path:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return path
-
-
 # -- VOEvent 2.0 notices ------------------------------------------------------------------
 
 VOEVENT_NS = "http://www.ivoa.net/xml/VOEvent/v2.0"
@@ -313,7 +297,7 @@ def write_voevents(cfg, outdir, event_ids: list[str]) -> list[Path]:
                             n_events=len(events))
     header["operator_contact"] = cfg["station"].get("operator_contact", "")
     out = Path(outdir)
-    return [_write_atomic(out / (_safe_name(ev["event_id"]) + ".xml"), voevent_bytes(header, ev))
+    return [write_atomic(out / (_safe_name(ev["event_id"]) + ".xml"), voevent_bytes(header, ev))
             for ev in events]
 
 

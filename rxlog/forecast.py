@@ -15,8 +15,6 @@ from __future__ import annotations
 
 import datetime as dt
 import math
-import os
-import tempfile
 import zoneinfo
 from pathlib import Path
 from typing import Callable
@@ -25,6 +23,7 @@ import numpy as np
 
 from rxlog.ephemeris import regions_from_config, station_tags
 from rxlog.errors import RxlogError
+from rxlog.fileio import write_atomic
 from rxlog.timeutil import iso
 
 # Defaults (common practice): Jupiter at least 10 deg up, since low sources suffer most
@@ -207,7 +206,7 @@ def write_ics(windows: list[dict], path, station, stamp_unix: float | None = Non
         lines += ev + ["END:VEVENT"]
     lines.append("END:VCALENDAR")
     text = "".join(part + "\r\n" for line in lines for part in _fold(line))
-    return _atomic_write(Path(path), text.encode("utf-8"))
+    return write_atomic(_check_output(path), text, what="calendar file")
 
 
 def _check_output(path) -> Path:
@@ -218,22 +217,6 @@ def _check_output(path) -> Path:
         raise RxlogError(f"{path}: folder {folder} does not exist; expected an existing folder")
     if path.is_dir():
         raise RxlogError(f"{path}: is a folder; expected a file name")
-    return path
-
-
-def _atomic_write(path: Path, data: bytes) -> Path:
-    path = _check_output(path)
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    except OSError as e:
-        raise RxlogError(f"{path}: cannot write ({e.strerror or e})") from None
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-        os.replace(tmp, path)
-    except OSError as e:
-        Path(tmp).unlink(missing_ok=True)
-        raise RxlogError(f"{path}: cannot write ({e.strerror or e})") from None
     return path
 
 

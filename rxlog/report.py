@@ -37,6 +37,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 
 from rxlog.errors import RxlogError
+from rxlog.fileio import write_atomic
 from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED
 from rxlog.store import CLASSES, LABELS, EventStore
 from rxlog.timeutil import iso, parse_iso
@@ -1317,15 +1318,9 @@ def build_report(cfg, night: Night | str | dt.date | None = None, progress=None,
         if f"events/{old.name}" not in images:
             old.unlink()
     page = render_page(cfg, night, summary, events, images)
-    _write_atomic(out / "summary.txt", format_summary(summary, night) + "\n")
-    _write_atomic(out / "index.html", page)
+    write_atomic(out / "summary.txt", format_summary(summary, night) + "\n")
+    write_atomic(out / "index.html", page)
     return out / "index.html"
-
-
-def _write_atomic(path: Path, text: str):
-    tmp = path.with_name(path.name + ".tmp")
-    tmp.write_text(text, encoding="utf-8")
-    tmp.replace(path)
 
 
 # -- listings ---------------------------------------------------------------------------
