@@ -1867,7 +1867,9 @@ def detect_range(cfg, t0: float | None = None, t1: float | None = None,
     transaction (labels are kept apart and re-attach by overlap), the episodes starting
     there, and the hourly quality rows. Running it twice gives the same store.
     ``progress(done_s, total_s)`` is called with the seconds of archive read so far.
-    Returns a summary: t0, t1, events, by_class, episodes, hours, segments.
+    Returns a summary: t0, t1, events, by_class, episodes, hours, segments, and the
+    labels that moved to a new event (labels_moved: (label_id, from, to)) or found none
+    (labels_orphaned: label rows, kept in the store).
     """
     from rxlog.archive import archive_extent, read_archive
     from rxlog.errors import RxlogError
@@ -1907,7 +1909,7 @@ def detect_range(cfg, t0: float | None = None, t1: float | None = None,
                          gaps, s.station, t0, t1)
     store = EventStore(cfg.store_path)
     try:
-        store.replace_events(s.station, t0, t1, keep, episodes)
+        labels = store.replace_events(s.station, t0, t1, keep, episodes)
         store.record_quality(quality)
     finally:
         store.close()
@@ -1915,7 +1917,8 @@ def detect_range(cfg, t0: float | None = None, t1: float | None = None,
     for e in keep:
         by_class[e["class"]] = by_class.get(e["class"], 0) + 1
     return {"t0": t0, "t1": t1, "events": len(keep), "by_class": dict(sorted(by_class.items())),
-            "episodes": len(episodes), "hours": len(quality), "segments": len(segments)}
+            "episodes": len(episodes), "hours": len(quality), "segments": len(segments),
+            "labels_moved": labels["reattached"], "labels_orphaned": labels["orphans"]}
 
 
 def _unix(text: str) -> float:

@@ -32,7 +32,6 @@ from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from rxlog.errors import RxlogError
 from rxlog.report import Night, report_dir
 from rxlog.store import LABELS, EventStore
-from rxlog.timeutil import parse_iso
 
 STATIC_TYPES = {".png": "image/png", ".html": "text/html; charset=utf-8", ".txt": "text/plain; charset=utf-8",
                 ".json": "application/json", ".svg": "image/svg+xml"}
@@ -58,12 +57,11 @@ LABEL_FIELDS = ("event_id", "class", "label", "label_note", "label_who", "label_
 class NightLabels:
     """The night's events with their current labels, kept between requests.
 
-    ``EventStore.events`` attaches labels by overlap over the whole night, work that grows
-    with labels x events (about a second for 500 events and 100 labels on a small
-    computer): too slow for every request. The rows are recomputed only when the store
-    changed behind the server's back (a signature of the events and labels tables, one
-    cheap query each); a label saved through the server refreshes just the events whose
-    box its box touches, exactly as the store would attach it.
+    Reading the whole night from the store for every request would be wasteful; the rows
+    are re-read only when the store changed behind the server's back (a signature of the
+    events and labels tables, one cheap query each). A label saved through the server
+    changes exactly one event's row (labels are bound to event ids), so only that row is
+    read again.
     """
 
     def __init__(self, station: str, t0: float, t1: float):
@@ -71,7 +69,6 @@ class NightLabels:
         self.lock = threading.Lock()
         self.sig = None
         self.rows: dict[str, dict] = {}
-        self.boxes: dict[str, tuple] = {}    # parsed (start, end, fmin, fmax) per event
 
     def _signature(self, store: EventStore) -> tuple:
         labels = store.db.execute("select count(*), coalesce(max(label_id), 0) from labels").fetchone()
@@ -83,7 +80,6 @@ class NightLabels:
         sig = self._signature(store)
         if sig != self.sig:
             self.rows = {r["event_id"]: r for r in store.events(self.t0, self.t1, station=self.station)}
-            self.boxes = {k: _box(r) for k, r in self.rows.items()}
             self.sig = sig
 
     def all(self, store: EventStore) -> list[dict]:
@@ -100,29 +96,12 @@ class NightLabels:
         """Save a label and return the event's row as the store now sees it (None: not this night's)."""
         with self.lock:
             self._fresh(store)
-            ev = self.rows.get(event_id)
-            if ev is None:
+            if event_id not in self.rows:
                 return None
             store.add_label(event_id, label, note=note, who=who)
-            # Only an event overlapping the new label's box (the event's own) can own it;
-            # re-read those in one pass over the span of their peaks.
-            box = self.boxes[event_id]
-            peaks = [parse_iso(self.rows[k]["peak_utc"]) for k, b in self.boxes.items() if _touch(box, b)]
-            for row in store.events(min(peaks), max(peaks) + 0.001, station=self.station):
-                if row["event_id"] in self.rows:
-                    self.rows[row["event_id"]] = row
+            self.rows[event_id] = store.get_event(event_id)
             self.sig = self._signature(store)
             return self.rows[event_id]
-
-
-def _box(row: dict) -> tuple[float, float, float, float]:
-    return parse_iso(row["start_utc"]), parse_iso(row["end_utc"]), row["fmin_mhz"], row["fmax_mhz"]
-
-
-def _touch(a, b) -> bool:
-    # Generous on purpose (the store gives zero-length boxes 1 s and 10 kHz): refreshing a
-    # row too many costs a query, missing one would show a stale label.
-    return a[0] <= b[1] + 1.0 and b[0] <= a[1] + 1.0 and a[2] <= b[3] + 0.01 and b[2] <= a[3] + 0.01
 
 
 def check_bind(host: str, allow_remote: bool = False, access_token: str | None = None) -> None:

@@ -1,15 +1,20 @@
 """The event store: one SQLite file (WAL mode) through sqlite-utils.
 
 Tables: stations, segments, events, episodes, labels, quality (hourly masked fraction
-and gaps), health, and schema_version. Detections and human labels are kept apart:
-re-running detection replaces events, while labels stay and are re-attached to
-whichever event overlaps them best in time and frequency, so a change of thresholds
-(and thus of event ids) never loses a label.
+and gaps), health, and schema_version. Detections and human labels are kept apart: a
+label belongs to the event it was given to (by event id) for as long as that event
+exists. Only when re-running detection replaced the event (a change of thresholds, and
+thus of event ids) does the label move, to the new event whose time-frequency box
+matches the label's own box best (intersection over union), and only to an event that
+carries no label of its own. A label that finds no such event stays in the store as an
+orphan, listed by ``orphan_labels`` and tried again at the next re-detection: labels
+are never lost and never land on an event a reviewer did not mean.
 """
 
 from __future__ import annotations
 
 import functools
+import math
 import sqlite3
 import time
 from pathlib import Path
@@ -19,7 +24,7 @@ import sqlite_utils
 from rxlog.errors import RxlogError
 from rxlog.timeutil import iso, parse_iso
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 CLASSES = ("jovian_l", "jovian_s", "solar_iii", "solar_ii", "solar_iv", "fadeout", "rfi", "unknown")
 LABELS = CLASSES + ("noise", "unsure")
@@ -41,9 +46,12 @@ EVENT_COLUMNS = {
     "detected_utc": str,
 }
 
-# A label belongs to the event whose time-frequency box overlaps it best, if the
-# overlap covers at least this fraction of the smaller of the two boxes.
-LABEL_MIN_OVERLAP = 0.3
+# A label whose event was replaced by re-detection moves to the new event whose box
+# matches the label's box best, if their intersection over union is at least this. A
+# re-detection with other thresholds moves box edges by a few seconds or a few hundred
+# kHz (IoU well above 0.5); a burst now swallowed by an event ten times its size (IoU
+# below 0.1) is a different detection, and its label waits as an orphan instead.
+LABEL_MIN_IOU = 0.3
 
 
 def make_event_id(station: str, peak_unix: float, fmin_mhz: float, fmax_mhz: float) -> str:
@@ -90,7 +98,24 @@ def _v2(db: sqlite_utils.Database):
             db["events"].add_column(col, float)
 
 
-MIGRATIONS = {1: _v1, 2: _v2}  # version -> function bringing the store from version-1 to it
+def _v3(db: sqlite_utils.Database):
+    """Version 3 binds labels to events by id: ``given_event_id`` keeps the event a reviewer
+    labelled, ``event_id`` is the event that owns the label now, ``peak_utc`` breaks ties
+    between identical boxes and ``reattached_utc`` says when re-detection moved it. Labels
+    whose event is gone (earlier versions re-attached them by overlap at every read) are
+    bound once, here, by the same rule re-detection uses."""
+    existing = db["labels"].columns_dict
+    for col, kind in (("given_event_id", str), ("peak_utc", str), ("reattached_utc", str)):
+        if col not in existing:
+            db["labels"].add_column(col, kind)
+    db.execute("update labels set given_event_id = event_id where given_event_id is null")
+    db.execute("update labels set peak_utc = (select e.peak_utc from events e where e.event_id = labels.event_id) "
+               "where peak_utc is null")
+    db["labels"].create_index(["event_id"], if_not_exists=True)
+    reattach_orphans(db)
+
+
+MIGRATIONS = {1: _v1, 2: _v2, 3: _v3}  # version -> function bringing the store from version-1 to it
 
 
 class EventStore:
@@ -177,10 +202,12 @@ class EventStore:
                 self.db["episodes"].upsert_all(episodes, pk="episode_id", alter=True)
 
     def replace_events(self, station: str, t0: float, t1: float, events: list[dict],
-                       episodes: list[dict] = ()):
+                       episodes: list[dict] = ()) -> dict:
         """Replace, in one transaction, the detections of ``station`` peaking in [t0, t1).
 
-        Labels are untouched; they re-attach to the new events by overlap.
+        Labels of events that keep their id stay where they are; labels of replaced
+        events move to the best-matching new event (see the module's docstring). Returns
+        ``{"reattached": [(label_id, from_id, to_id)...], "orphans": [label rows]}``.
         """
         a, b = iso(t0), iso(t1)
         rows = [self._event_row(e) for e in events]
@@ -193,6 +220,9 @@ class EventStore:
                 self.db["events"].insert_all(rows, pk="event_id", replace=True)
             if episodes:
                 self.db["episodes"].insert_all(list(episodes), pk="episode_id", replace=True, alter=True)
+            moved = reattach_orphans(self.db, station)
+        orphans = [o for o in self.orphan_labels(station) if o["end_utc"] >= a and o["start_utc"] < b]
+        return {"reattached": moved, "orphans": orphans}
 
     def get_event(self, event_id: str) -> dict:
         rows = self.events(event_id=event_id)
@@ -227,60 +257,47 @@ class EventStore:
         return rows
 
     def _attach_labels(self, events: list[dict]):
-        """Give each event the latest label that belongs to it (best time-frequency overlap).
-
-        The owner of a label is chosen among all events of the store near it, not just the
-        ones asked for, so a listing filtered by class shows the same labels. Two queries
-        per call (labels in range, events near them); boxes are parsed once.
-        """
+        """Give each event the latest label that belongs to it (bound by event id)."""
+        by_id = {}
         for e in events:
             e.update(label=None, label_note=None, label_who=None, label_utc=None)
-        if not events:
-            return
-        lo = min(e["start_utc"] for e in events)
-        hi = max(e["end_utc"] for e in events)
-        labels = [dict(r) for r in self.db.query(
-            "select * from labels where start_utc <= ? and end_utc >= ? order by label_id", [hi, lo])]
-        if not labels:
-            return
-        lab_lo = min(lab["start_utc"] for lab in labels)
-        lab_hi = max(lab["end_utc"] for lab in labels)
-        asked = {e["event_id"]: e for e in events}
-        near = [asked.get(r["event_id"], r) for r in (dict(r) for r in self.db.query(
-            "select event_id, station, start_utc, end_utc, fmin_mhz, fmax_mhz from events "
-            "where start_utc <= ? and end_utc >= ?", [lab_hi, lab_lo]))]
-        for lab in labels:   # later labels overwrite earlier ones: the latest wins
-            owner = _best_overlap(lab, near)
-            if owner is not None and owner["event_id"] in asked:
-                asked[owner["event_id"]].update(label=lab["label"], label_note=lab["note"],
-                                                label_who=lab["who"], label_utc=lab["created_utc"])
+            by_id[e["event_id"]] = e
+        ids = list(by_id)
+        for i in range(0, len(ids), 500):
+            part = ids[i:i + 500]
+            rows = self.db.execute("select event_id, label, note, who, created_utc from labels where event_id in ("
+                                   + ",".join("?" * len(part)) + ") order by label_id", part).fetchall()
+            for event_id, label, note, who, created in rows:   # later labels overwrite: the latest wins
+                by_id[event_id].update(label=label, label_note=note, label_who=who, label_utc=created)
 
     # -- labels ---------------------------------------------------------------------------
     def add_label(self, event_id: str, label: str, note: str = "", who: str = "") -> dict:
-        """Label an event; the label keeps the event's time-frequency box so it survives re-detection."""
+        """Label an event. The label keeps the event's time-frequency box, so that if
+        re-detection ever replaces the event the label can find its successor."""
         if label not in LABELS:
             raise RxlogError(f"unknown label {label!r}; expected one of {', '.join(LABELS)}")
         ev = self.get_event(event_id)
-        row = {"station": ev["station"], "event_id": event_id, "label": label, "note": note or "",
-               "who": who or "", "created_utc": iso(time.time()), "start_utc": ev["start_utc"],
-               "end_utc": ev["end_utc"], "fmin_mhz": ev["fmin_mhz"], "fmax_mhz": ev["fmax_mhz"]}
+        row = {"station": ev["station"], "event_id": event_id, "given_event_id": event_id, "label": label,
+               "note": note or "", "who": who or "", "created_utc": iso(time.time()),
+               "start_utc": ev["start_utc"], "end_utc": ev["end_utc"], "peak_utc": ev["peak_utc"],
+               "fmin_mhz": ev["fmin_mhz"], "fmax_mhz": ev["fmax_mhz"], "reattached_utc": None}
         with self.db.conn:
             self.db["labels"].insert(row, pk="label_id")
         return row
 
     def label_history(self, event_id: str) -> list[dict]:
         """Every label (oldest first) that belongs to this event now."""
-        ev = self.get_event(event_id)
-        labels = [dict(r) for r in self.db.query(
-            "select * from labels where station = ? and start_utc <= ? and end_utc >= ? order by label_id",
-            [ev["station"], ev["end_utc"], ev["start_utc"]])]
-        if not labels:
-            return []
-        near = [dict(r) for r in self.db.query(
-            "select event_id, station, start_utc, end_utc, fmin_mhz, fmax_mhz from events "
-            "where station = ? and start_utc <= ? and end_utc >= ?",
-            [ev["station"], max(lab["end_utc"] for lab in labels), min(lab["start_utc"] for lab in labels)])]
-        return [lab for lab in labels if (o := _best_overlap(lab, near)) is not None and o["event_id"] == event_id]
+        self.get_event(event_id)
+        return [dict(r) for r in self.db.query("select * from labels where event_id = ? order by label_id",
+                                                [event_id])]
+
+    def orphan_labels(self, station: str | None = None) -> list[dict]:
+        """Labels whose event was replaced by re-detection and that found no successor yet."""
+        sql = "select * from labels where event_id not in (select event_id from events)"
+        args = []
+        if station is not None:
+            sql += " and station = ?"; args.append(station)
+        return [dict(r) for r in self.db.query(sql + " order by label_id", args)]
 
     # -- quality and health ---------------------------------------------------------------
     def record_quality(self, rows: list[dict]):
@@ -334,30 +351,63 @@ def _t(text: str) -> float:
 
 
 def _box(row: dict) -> tuple[float, float, float, float]:
-    return _t(row["start_utc"]), _t(row["end_utc"]), row["fmin_mhz"], row["fmax_mhz"]
+    """A row's time-frequency box; a zero-length box still has extent (1 s and 10 kHz)."""
+    t0, t1, f0, f1 = _t(row["start_utc"]), _t(row["end_utc"]), row["fmin_mhz"], row["fmax_mhz"]
+    return t0, max(t1, t0 + 1.0), f0, max(f1, f0 + 0.01)
 
 
-def _overlap_fraction(a: dict, b: dict) -> float:
-    """Overlap area of two time-frequency boxes over the smaller box's area (0..1)."""
+def box_iou(a: dict, b: dict) -> float:
+    """Intersection over union of two rows' time-frequency boxes (0..1)."""
     a0, a1, af0, af1 = _box(a)
     b0, b1, bf0, bf1 = _box(b)
-    # A zero-length box still has extent: give it 1 s and 10 kHz.
-    a1, b1 = max(a1, a0 + 1.0), max(b1, b0 + 1.0)
-    af1, bf1 = max(af1, af0 + 0.01), max(bf1, bf0 + 0.01)
     dt = min(a1, b1) - max(a0, b0)
     df = min(af1, bf1) - max(af0, bf0)
     if dt <= 0 or df <= 0:
         return 0.0
-    smaller = min((a1 - a0) * (af1 - af0), (b1 - b0) * (bf1 - bf0))
-    return dt * df / smaller
+    inter = dt * df
+    return inter / ((a1 - a0) * (af1 - af0) + (b1 - b0) * (bf1 - bf0) - inter)
 
 
-def _best_overlap(label: dict, events: list[dict]) -> dict | None:
-    best, score = None, LABEL_MIN_OVERLAP
-    for e in events:
-        if e["station"] != label["station"]:
+def reattach_orphans(db: sqlite_utils.Database, station: str | None = None) -> list[tuple[int, str, str]]:
+    """Move labels whose event no longer exists to the event that replaced it.
+
+    The labels of one vanished event move together, judged by the box of the latest of
+    them. Candidates are events of the same station that carry no label of their own;
+    pairs are taken greedily by IoU (at least LABEL_MIN_IOU), ties by the nearer peak, so
+    each vanished event gets at most one successor and no successor two predecessors.
+    Runs inside the caller's transaction; returns (label_id, from_event, to_event).
+    """
+    sql = "select * from labels where event_id not in (select event_id from events)"
+    args = []
+    if station is not None:
+        sql += " and station = ?"; args.append(station)
+    groups: dict[str, list[dict]] = {}
+    for r in db.query(sql + " order by label_id", args):
+        groups.setdefault(r["event_id"], []).append(dict(r))
+    if not groups:
+        return []
+    pairs = []
+    for old_id, labels in groups.items():
+        lab = labels[-1]
+        near = db.query(
+            "select event_id, station, start_utc, end_utc, peak_utc, fmin_mhz, fmax_mhz from events "
+            "where station = ? and start_utc <= ? and end_utc >= ? "
+            "and event_id not in (select event_id from labels)",
+            [lab["station"], iso(_box(lab)[1]), lab["start_utc"]])
+        for e in near:
+            iou = box_iou(lab, e)
+            if iou >= LABEL_MIN_IOU:
+                dpeak = abs(_t(e["peak_utc"]) - _t(lab["peak_utc"])) if lab.get("peak_utc") else math.inf
+                pairs.append((-iou, dpeak, e["event_id"], old_id))
+    moved, taken, done = [], set(), set()
+    now = iso(time.time())
+    for _, _, new_id, old_id in sorted(pairs):
+        if new_id in taken or old_id in done:
             continue
-        f = _overlap_fraction(label, e)
-        if f >= score:
-            best, score = e, f
-    return best
+        taken.add(new_id)
+        done.add(old_id)
+        for lab in groups[old_id]:
+            db.execute("update labels set event_id = ?, reattached_utc = ? where label_id = ?",
+                       [new_id, now, lab["label_id"]])
+            moved.append((lab["label_id"], old_id, new_id))
+    return moved

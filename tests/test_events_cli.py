@@ -94,3 +94,25 @@ def test_events_on_an_empty_store_says_so(tmp_path):
     cfg = station_config(tmp_path)
     r = run("events", "--config", cfg.path)
     assert r.exit_code == 0 and "no events" in r.output
+
+
+def test_a_label_given_from_the_shell_lands_on_that_event_even_inside_a_larger_box(station):
+    # A short burst inside the box of a longer, wider event: `rxlog label` on the short
+    # one must show on the short one in `rxlog events`, and not on the larger one.
+    cfg, night, events = station
+    t = parse_iso(events[0]["peak_utc"])
+    big = _event(t + 10, 60.0, 16.5, 23.5, "solar_iv")
+    small = _event(t + 10, 4.0, 19.0, 20.0, "solar_iii")
+    store = EventStore(cfg.store_path)
+    store.upsert_events([small, big])
+    store.close()
+    r = run("label", "--config", cfg.path, small["event_id"], "solar_iii", "--who", "ana")
+    assert r.exit_code == 0, r.output
+    store = EventStore(cfg.store_path)
+    try:
+        assert store.get_event(small["event_id"])["label"] == "solar_iii"
+        assert store.get_event(big["event_id"])["label"] is None
+    finally:
+        store.close()
+    r = run("events", "--config", cfg.path, "--unlabelled")
+    assert big["event_id"] in r.output and small["event_id"] not in r.output

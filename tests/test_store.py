@@ -6,7 +6,7 @@ import pytest
 import sqlite_utils
 
 from rxlog.errors import RxlogError
-from rxlog.store import SCHEMA_VERSION, EventStore, _v1, make_event_id
+from rxlog.store import SCHEMA_VERSION, EventStore, _v1, _v2, make_event_id
 from rxlog.timeutil import iso
 
 T0 = 1_800_000_000.0  # 2027-01-15T08:00:00Z
@@ -57,7 +57,7 @@ def test_labels_survive_redetection_with_new_ids(tmp_path):
     assert store.events(unlabelled=True) == []
 
 
-def test_label_goes_to_best_overlapping_event_and_keeps_history(tmp_path):
+def test_label_stays_on_its_event_and_keeps_history(tmp_path):
     store = EventStore(tmp_path / "events.sqlite")
     a, b = event(T0 + 100), event(T0 + 104, fmin=21.0, fmax=23.0)
     store.upsert_events([a, b])
@@ -69,6 +69,118 @@ def test_label_goes_to_best_overlapping_event_and_keeps_history(tmp_path):
     assert [h["label"] for h in store.label_history(a["event_id"])] == ["unsure", "solar_iii"]
     # a class filter does not move labels onto other events
     assert store.events(cls="solar_iii")[1]["label"] is None
+
+
+def test_a_label_on_an_event_nested_in_another_stays_on_the_nested_one(tmp_path):
+    # A Type III inside the box of a longer, wider event: each keeps its own label.
+    store = EventStore(tmp_path / "events.sqlite")
+    big = event(T0 + 110, fmin=16.5, fmax=23.5, cls="solar_iv", dur=60)
+    small = event(T0 + 100, fmin=19.0, fmax=20.0, dur=4)
+    store.upsert_events([small, big])
+    store.add_label(small["event_id"], "solar_iii", who="ana")
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[small["event_id"]]["label"] == "solar_iii"
+    assert rows[big["event_id"]]["label"] is None
+    store.add_label(big["event_id"], "solar_iv", who="ben")
+    rows = {r["event_id"]: r for r in store.events()}
+    assert (rows[small["event_id"]]["label"], rows[big["event_id"]]["label"]) == ("solar_iii", "solar_iv")
+    assert [h["label"] for h in store.label_history(small["event_id"])] == ["solar_iii"]
+    assert [h["label"] for h in store.label_history(big["event_id"])] == ["solar_iv"]
+
+
+def test_identical_boxes_keep_their_own_labels(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    a = event(T0 + 100)
+    b = dict(event(T0 + 101), start_utc=a["start_utc"], end_utc=a["end_utc"])
+    store.upsert_events([a, b])
+    store.add_label(b["event_id"], "rfi")
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[a["event_id"]]["label"] is None and rows[b["event_id"]]["label"] == "rfi"
+    store.add_label(a["event_id"], "solar_iii")
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[a["event_id"]]["label"] == "solar_iii" and rows[b["event_id"]]["label"] == "rfi"
+
+
+def test_redetection_moves_nested_labels_to_their_own_successors(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    big = event(T0 + 110, fmin=16.5, fmax=23.5, cls="solar_iv", dur=60)
+    small = event(T0 + 100, fmin=19.0, fmax=20.0, dur=4)
+    store.replace_events("st-a", T0, T0 + 3600, [big, small])
+    store.add_label(small["event_id"], "solar_iii")
+    store.add_label(big["event_id"], "solar_iv")
+    big2 = event(T0 + 111, fmin=16.4, fmax=23.6, cls="solar_iv", dur=58)
+    small2 = event(T0 + 100.4, fmin=18.9, fmax=20.1, dur=4.5)
+    result = store.replace_events("st-a", T0, T0 + 3600, [big2, small2])
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[small2["event_id"]]["label"] == "solar_iii"
+    assert rows[big2["event_id"]]["label"] == "solar_iv"
+    assert sorted((f, t) for _, f, t in result["reattached"]) == sorted(
+        [(small["event_id"], small2["event_id"]), (big["event_id"], big2["event_id"])])
+    assert result["orphans"] == []
+    lab = store.label_history(small2["event_id"])[0]
+    assert lab["given_event_id"] == small["event_id"] and lab["reattached_utc"]
+
+
+def test_identical_boxes_after_redetection_pair_by_peak(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    a = event(T0 + 100)
+    b = dict(event(T0 + 102), start_utc=a["start_utc"], end_utc=a["end_utc"])
+    store.replace_events("st-a", T0, T0 + 3600, [a, b])
+    store.add_label(a["event_id"], "solar_iii")
+    store.add_label(b["event_id"], "rfi")
+    a2 = dict(event(T0 + 100.3, fmin=18.1, fmax=22.1))
+    b2 = dict(event(T0 + 102.2, fmin=18.1, fmax=22.1), start_utc=a2["start_utc"], end_utc=a2["end_utc"])
+    store.replace_events("st-a", T0, T0 + 3600, [b2, a2])
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[a2["event_id"]]["label"] == "solar_iii" and rows[b2["event_id"]]["label"] == "rfi"
+
+
+def test_a_label_is_never_moved_onto_a_labelled_event_nor_lost(tmp_path):
+    store = EventStore(tmp_path / "events.sqlite")
+    keep = event(T0 + 500)
+    frag = event(T0 + 100, fmin=19.0, fmax=20.0, dur=4)
+    store.replace_events("st-a", T0, T0 + 3600, [keep, frag])
+    store.add_label(keep["event_id"], "rfi", who="ana")
+    store.add_label(frag["event_id"], "solar_iii", who="ben")
+    # Re-detection: the fragment is swallowed by a long event ten times its size, and an
+    # event overlapping the labelled one keeps its id.
+    long_ev = event(T0 + 130, fmin=16.5, fmax=23.5, cls="solar_iv", dur=120)
+    result = store.replace_events("st-a", T0, T0 + 3600, [keep, long_ev])
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[long_ev["event_id"]]["label"] is None        # not moved onto a different detection
+    assert rows[keep["event_id"]]["label"] == "rfi"
+    assert [o["label"] for o in result["orphans"]] == ["solar_iii"]
+    assert [o["who"] for o in store.orphan_labels("st-a")] == ["ben"]
+    # A later re-detection that finds the burst again gives the label back.
+    frag3 = event(T0 + 100.5, fmin=19.05, fmax=20.0, dur=4)
+    store.replace_events("st-a", T0, T0 + 3600, [keep, frag3])
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[frag3["event_id"]]["label"] == "solar_iii" and store.orphan_labels() == []
+
+
+def test_migration_to_version_3_keeps_labels_on_the_events_they_were_given_to(tmp_path):
+    path = tmp_path / "events.sqlite"
+    db = sqlite_utils.Database(sqlite3.connect(str(path)))
+    _v1(db)
+    _v2(db)
+    for v in (1, 2):
+        db["schema_version"].insert({"version": v, "applied_utc": iso(T0)}, pk="version")
+    big = event(T0 + 110, fmin=16.5, fmax=23.5, cls="solar_iv", dur=60)
+    small = event(T0 + 100, fmin=19.0, fmax=20.0, dur=4)
+    gone = event(T0 + 900)
+    successor = event(T0 + 900.5, fmin=18.1, fmax=22.2)
+    db["events"].insert_all([big, small, successor])
+    for ev, lab in ((small, "solar_iii"), (gone, "rfi")):
+        db["labels"].insert({"station": "st-a", "event_id": ev["event_id"], "label": lab, "note": "", "who": "",
+                             "created_utc": iso(T0), "start_utc": ev["start_utc"], "end_utc": ev["end_utc"],
+                             "fmin_mhz": ev["fmin_mhz"], "fmax_mhz": ev["fmax_mhz"]})
+    db.conn.commit()
+    db.conn.close()
+    store = EventStore(path)
+    assert store.version == SCHEMA_VERSION
+    rows = {r["event_id"]: r for r in store.events()}
+    assert rows[small["event_id"]]["label"] == "solar_iii" and rows[big["event_id"]]["label"] is None
+    assert rows[successor["event_id"]]["label"] == "rfi"
 
 
 def test_unknown_label_and_event_are_clear_errors(tmp_path):

@@ -16,9 +16,11 @@ def detect_command(cfg, start, end):
     """Detect and classify bursts in the archived spectra and store them.
 
     Events peaking between --start and --end replace the station's earlier
-    detections there (running it twice gives the same store); labels are kept and
-    re-attach to the new events by time-frequency overlap. Hourly masked fraction
-    and gaps go to the store's quality table.
+    detections there (running it twice gives the same store). Labels stay on events
+    that keep their id; a label whose event was replaced moves to the new event that
+    matches its time-frequency box best, and is listed; one that finds none is kept
+    and named, and tried again at the next run. Hourly masked fraction and gaps go to
+    the store's quality table.
 
     \b
     Examples:
@@ -39,3 +41,8 @@ def detect_command(cfg, start, end):
     click.echo(f"{iso(summary['t0'])} to {iso(summary['t1'])}: {summary['events']} events ({classes}), "
                f"{summary['episodes']} episodes, {summary['hours']} hourly quality rows, "
                f"{summary['segments']} segment(s); stored in {cfg.store_path}")
+    for label_id, old, new in summary["labels_moved"]:
+        click.echo(f"label {label_id} moved from {old} to {new} (re-detected)")
+    for lab in summary["labels_orphaned"]:
+        click.echo(f"label {lab['label_id']} ({lab['label']}, given to {lab['given_event_id']}) found no "
+                   "matching event; kept for the next re-detection", err=True)
