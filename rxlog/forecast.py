@@ -377,7 +377,8 @@ def _plane(cfg, t, tags, ok, windows, dpi):
     fig = _new_figure(8.0, 6.4, dpi)
     ax = fig.add_axes((0.09, 0.09, 0.66, 0.83))
     handles = []
-    for reg, colour in zip(regions_from_config(cfg), _region_colours(cfg).values()):
+    for k, reg in enumerate(regions_from_config(cfg)):
+        colour = REGION_COLOURS[k % len(REGION_COLOURS)]
         io = [(0.0, 360.0)] if reg.io_from is None else _spans(reg.io_from, reg.io_to)
         for c0, c1 in _spans(reg.cml_from, reg.cml_to):
             for i0, i1 in io:

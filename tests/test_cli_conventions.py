@@ -92,9 +92,9 @@ def test_ingest_takes_mhz_and_still_reads_the_older_hz_spellings(tmp_path):
     new, old = spectra["new"][0], spectra["old"][0]
     assert np.array_equal(new.freq_hz, old.freq_hz) and np.array_equal(new.power_db, old.power_db, equal_nan=True)
     assert spectra["new"][1] == []
-    assert sorted(spectra["old"][1]) == ["rxlog: --center (Hz) is now spelled --center-mhz 21; the old spelling will go away",
-                               "rxlog: --rate (samples/s) is now spelled --rate-msps 2.4; "
-                               "the old spelling will go away"]
+    assert sorted(spectra["old"][1]) == [
+        "rxlog: --center (Hz) is now spelled --center-mhz 21; the old spelling will go away",
+        "rxlog: --rate (samples/s) is now spelled --rate-msps 2.4; the old spelling will go away"]
 
 
 def test_giving_both_spellings_is_an_error(tmp_path):

@@ -31,7 +31,8 @@ def simulate_command(cfg, start, hours, out, iq, seed, rfi, center_mhz):
     \b
     Examples:
       rxlog simulate --config station.toml --start 2026-12-01T18:00:00Z --hours 12 --out night
-      rxlog simulate --config station.toml --start 2026-12-01T22:00:00Z --hours 0.005 --iq --center-mhz 20.1 --out iq/test
+      rxlog simulate --config station.toml --start 2026-12-01T22:00:00Z --hours 0.005 --iq \\
+          --center-mhz 20.1 --out iq/test
     """
     from rxlog.simulator import write_simulation
 
