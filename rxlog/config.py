@@ -190,6 +190,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "boxes": Key(list, _ephemeris.DEFAULT_REGION_BOXES, check=_ephemeris.check_region_boxes,
                      help="Io-source boxes in the CML III / Io-phase plane, in order of precedence"),
     },
+    "forecast": {
+        "min_window_min": Key(NUMBER, 20.0, min=0, max=1440,
+                              help="rxlog forecast leaves out watches shorter than this many minutes"),
+    },
     "service": {
         "sim_feed": Key(str, "iq", choices=("iq", "spectra"),
                         help="Simulated receiver only: 'iq' runs samples through the channelizer, "

@@ -1,8 +1,11 @@
 """`rxlog ephem`: the table, CSV and JSON agree with the library; bad arguments exit 2."""
 
 import csv
+import datetime as dt
 import io
 import json
+import time
+import zoneinfo
 
 import numpy as np
 import pytest
@@ -66,6 +69,21 @@ def test_json_and_table(config):
     assert r.exit_code == 0 and lines[0].split() == COLUMNS and len(lines) == 1 + 7
 
 
+def test_start_now_is_the_current_time(config):
+    before = time.time()
+    r = _run("ephem", "--config", config, "--start", "now", "--format", "json")
+    assert r.exit_code == 0, r.output
+    t = parse_iso(json.loads(r.stdout)[0]["time_utc"])
+    assert before - 1.0 <= t <= time.time()
+
+
+def test_a_date_starts_at_local_noon_at_the_station(config):
+    r = _run("ephem", "--config", config, "--start", "2026-12-01", "--format", "json")
+    assert r.exit_code == 0, r.output
+    noon = dt.datetime(2026, 12, 1, 12, tzinfo=zoneinfo.ZoneInfo("Australia/Sydney")).timestamp()
+    assert parse_iso(json.loads(r.stdout)[0]["time_utc"]) == noon
+
+
 def test_refraction_flag_raises_altitudes_above_the_horizon(config):
     args = ["ephem", "--config", config, "--start", "2026-12-01T02:00:00Z", "--format", "json"]
     airless = json.loads(_run(*args).stdout)[0]
@@ -87,6 +105,7 @@ def test_bad_arguments_exit_2_with_a_clean_message(config, args, words):
     r = _run("ephem", "--config", config, *args)
     assert r.exit_code == 2, r.output
     assert words in r.output and "Traceback" not in r.output
+    assert len(r.output.strip().splitlines()) <= 2 and "Usage:" not in r.output
 
 
 def test_missing_or_bad_config_exit_2(tmp_path):

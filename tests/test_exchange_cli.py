@@ -23,10 +23,10 @@ def make_store(tmp_path):
 def test_export_formats_and_voevents(tmp_path, monkeypatch):
     cfg = make_store(tmp_path)
     run = CliRunner().invoke
-    r = run(main, ["export", "--config", str(cfg.path), "--format", "votable", "-o", str(tmp_path / "a.vot"),
+    r = run(main, ["export", "--config", str(cfg.path), "--format", "votable", "--out", str(tmp_path / "a.vot"),
                    "--end", "2027-01-15T09:00:00Z"])
     assert r.exit_code == 0, r.output
-    assert "wrote 1 events" in r.output and (tmp_path / "a.vot").exists()
+    assert "wrote 1 events" in r.output and (tmp_path / "a.vot").exists() and r.stderr == ""
     monkeypatch.chdir(tmp_path)
     r = run(main, ["export", "--config", str(cfg.path), "--include-rfi"])
     assert r.exit_code == 0 and (tmp_path / "st-a-events.csv").exists() and "wrote 3 events" in r.output
@@ -34,6 +34,22 @@ def test_export_formats_and_voevents(tmp_path, monkeypatch):
     r = run(main, ["export", "--config", str(cfg.path), "--voevent", str(tmp_path / "n"), ev_id])
     assert r.exit_code == 0, r.output
     assert (tmp_path / "n" / f"{ev_id}.xml").exists()
+
+
+def test_export_still_takes_the_older_output_spellings_with_a_notice(tmp_path):
+    cfg = make_store(tmp_path)
+    new = tmp_path / "new.csv"
+    r = CliRunner().invoke(main, ["export", "--config", str(cfg.path), "--out", str(new)])
+    assert r.exit_code == 0 and r.stderr == "", r.output
+    for old in ("-o", "--output"):
+        path = tmp_path / f"old{old}.csv"
+        r = CliRunner().invoke(main, ["export", "--config", str(cfg.path), old, str(path)])
+        assert r.exit_code == 0, r.output
+        assert r.stderr.splitlines() == ["rxlog: -o/--output is now spelled --out; the old spelling will go away"]
+        rows = lambda p: [x for x in p.read_text().splitlines() if not x.startswith("# exported_utc")]  # noqa: E731
+        assert rows(path) == rows(new) and any(x.startswith("st-a,") for x in rows(new))
+    r = CliRunner().invoke(main, ["export", "--config", str(cfg.path), "-o", str(new), "--out", str(new)])
+    assert r.exit_code == 2 and "give only --out" in r.output
 
 
 def test_export_mistakes_are_short_errors(tmp_path):

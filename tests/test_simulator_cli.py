@@ -59,10 +59,21 @@ def test_simulate_iq_writes_a_sigmf_recording_rxlog_can_replay(tmp_path):
     assert (tmp_path / "iq" / "rec.truth.csv").is_file()
 
 
+def test_a_date_start_is_local_noon_of_that_night(tmp_path):
+    p = tmp_path / "zurich.toml"
+    p.write_text(CONFIG.replace("longitude_deg = 8.7", 'longitude_deg = 8.7\ntimezone = "Europe/Zurich"'))
+    r = CliRunner().invoke(main, ["simulate", "--config", str(p), "--start", "2026-12-01", "--hours", "0.01",
+                                  "--out", str(tmp_path / "one.fits")])
+    assert r.exit_code == 0, r.output
+    spec = read_spectrum_fits(tmp_path / "one.fits")
+    # Europe/Zurich is UTC+1 in December: local noon is 11:00Z; the first spectrum's middle half a step later
+    assert abs(spec.t0 - parse_iso("2026-12-01T11:00:00Z")) <= spec.cadence_s
+
+
 def test_bad_options_are_one_line_and_exit_2(tmp_path):
     cfg = _cfg(tmp_path)
     for args in (["--start", "yesterday", "--hours", "1"],
                  ["--start", "2026-12-01", "--hours", "1", "--center-mhz", "20"]):
         r = CliRunner().invoke(main, ["simulate", "--config", cfg, "--out", str(tmp_path / "x")] + args)
         assert r.exit_code == 2, r.output
-        assert "Traceback" not in r.output
+        assert "Traceback" not in r.output and len(r.output.strip().splitlines()) == 1

@@ -6,12 +6,12 @@ import sys
 
 import click
 
-from rxlog.cli.base import parse_time_option, station_command
+from rxlog.cli.base import TIME_HELP, parse_time_option, station_command
 
 
 @station_command("detect")
-@click.option("--start", metavar="ISO", help="First UTC time to re-detect (default: start of the archive).")
-@click.option("--end", metavar="ISO", help="End UTC time, exclusive (default: end of the archive).")
+@click.option("--start", metavar="TIME", help=f"First time to re-detect: {TIME_HELP}. Default: start of the archive.")
+@click.option("--end", metavar="TIME", help="End, exclusive, read like --start. Default: end of the archive.")
 def detect_command(cfg, start, end):
     """Detect and classify bursts in the archived spectra and store them.
 
@@ -20,18 +20,20 @@ def detect_command(cfg, start, end):
     that keep their id; a label whose event was replaced moves to the new event that
     matches its time-frequency box best, and is listed; one that finds none is kept
     and named, and tried again at the next run. Hourly masked fraction and gaps go to
-    the store's quality table.
+    the store's quality table. A date is a night: --start 2026-12-01 --end 2026-12-08
+    covers the seven nights from local noon on the 1st to noon on the 8th.
 
     \b
     Examples:
       rxlog detect --config station.toml
       rxlog detect --config station.toml --start 2026-12-01T18:00Z --end 2026-12-02T06:00Z
+      rxlog detect --config station.toml --start 2026-12-01 --end 2026-12-08
     """
     from rxlog.detector import detect_range
     from rxlog.timeutil import iso
 
-    t0 = parse_time_option(start, "--start")
-    t1 = parse_time_option(end, "--end")
+    t0 = parse_time_option(start, "--start", cfg)
+    t1 = parse_time_option(end, "--end", cfg)
     with click.progressbar(length=1000, label="detecting", file=sys.stderr) as bar:
         def progress(done_s, total_s):
             bar.update(int(1000 * done_s / max(total_s, 1e-9)) - bar.pos)

@@ -3,17 +3,14 @@
 from __future__ import annotations
 
 import csv
-import datetime as dt
 import io
 import json
 import math
 import sys
-import time
-import zoneinfo
 
 import click
 
-from rxlog.cli.base import parse_time_option, station_command
+from rxlog.cli.base import TIME_HELP, parse_time_option, station_command
 
 COLUMNS = ("time_utc", "cml3_deg", "io_phase_deg", "jupiter_alt_deg", "jupiter_az_deg",
            "sun_alt_deg", "sun_az_deg", "source_region")
@@ -51,8 +48,8 @@ def _format_rows(rows: list[dict], fmt: str) -> str:
 
 
 @station_command("ephem")
-@click.option("--start", required=True, metavar="ISO", help="First time, ISO 8601 (naive means UTC).")
-@click.option("--end", metavar="ISO", help="Last time (inclusive). Default: only --start.")
+@click.option("--start", required=True, metavar="TIME", help=f"First time: {TIME_HELP}.")
+@click.option("--end", metavar="TIME", help="Last time (inclusive), read like --start. Default: only --start.")
 @click.option("--step", type=click.FloatRange(min=0.001), default=600.0, show_default=True, metavar="SECONDS",
               help="Seconds between rows.")
 @click.option("--format", "fmt", type=click.Choice(["table", "csv", "json"]), default="table", show_default=True)
@@ -65,57 +62,51 @@ def ephem(cfg, start, end, step, fmt, refraction):
 
     \b
     Example:
+      rxlog ephem --config station.toml --start now
       rxlog ephem --config station.toml --start 2026-12-01T20:00Z
       rxlog ephem --config station.toml --start 2026-12-01T18:00Z --end 2026-12-02T06:00Z --step 900 --format csv
     """
     from rxlog.ephemeris import tag_table
 
-    t0 = parse_time_option(start, "--start")
-    t1 = parse_time_option(end, "--end")
+    t0 = parse_time_option(start, "--start", cfg)
+    t1 = parse_time_option(end, "--end", cfg)
     table = tag_table(cfg, t0, t1, step, refraction=refraction)
     click.echo(_format_rows(_rows(table), fmt))
 
 
-def _start_of_forecast(cfg, start: str | None) -> float:
-    """--start: a date means local noon of that date (the night that begins then); else an instant."""
-    if start is None:
-        return math.floor(time.time() / 60.0) * 60.0
-    try:
-        day = dt.date.fromisoformat(start.strip())
-    except ValueError:
-        return parse_time_option(start, "--start")
-    tz = zoneinfo.ZoneInfo(cfg["station"].get("timezone", "UTC"))
-    return dt.datetime(day.year, day.month, day.day, 12, 0, tzinfo=tz).timestamp()
-
-
 @station_command("forecast")
-@click.option("--start", metavar="DATE", help="YYYY-MM-DD (from local noon that day) or an ISO 8601 time. "
-              "Default: now.")
+@click.option("--start", metavar="TIME", help=f"First time: {TIME_HELP}. Default: now.")
 @click.option("--days", type=click.FloatRange(min=0.01, max=400), required=True, metavar="N",
               help="How many days to forecast (up to 400).")
+@click.option("--min-window", "min_window", type=click.FloatRange(0, 1440), metavar="MINUTES",
+              help="Leave out watches shorter than this. Default: [forecast] min_window_min (20).")
 @click.option("--ics", "ics_path", type=click.Path(dir_okay=False, writable=True), metavar="FILE",
-              help="Also write the windows as an iCalendar file (.ics) for calendar programs.")
+              help="Also write the watches as an iCalendar file (.ics) for calendar programs.")
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False, writable=True), metavar="FILE",
-              help="Also draw the CML III / Io-phase plane with the regions and the nights' tracks (PNG).")
+              help="Also draw them (PNG): up to 7 days the CML III / Io-phase plane with each night's track, "
+                   "longer a calendar of nights by local hour, coloured by source region.")
 @click.option("--min-jupiter-alt", type=click.FloatRange(-5, 89), default=10.0, show_default=True, metavar="DEG",
               help="Lowest altitude of Jupiter that counts.")
 @click.option("--max-sun-alt", type=click.FloatRange(-90, 90), default=-6.0, show_default=True, metavar="DEG",
               help="Highest altitude of the Sun that counts (-6: after civil twilight).")
-def forecast(cfg, start, days, ics_path, plot_path, min_jupiter_alt, max_sun_alt):
-    """List the windows when Jupiter is up, the Sun low and CML / Io phase in a source region.
+def forecast(cfg, start, days, min_window, ics_path, plot_path, min_jupiter_alt, max_sun_alt):
+    """List the watches: Jupiter up, the Sun low and CML / Io phase in a source region.
 
-    Each window shows its start and end in the station's local time and in UTC, its
-    region, Jupiter's highest altitude, and CML III and Io phase at its ends.
+    Windows that follow one another without a break (the source region changes while
+    Jupiter stays observable) are one watch; the calendar entry of a watch lists its
+    regions with their times. Each line shows a watch's start and end in the station's
+    local time and in UTC, its regions, Jupiter's highest altitude, and CML III and Io
+    phase at its ends.
 
     \b
     Example:
       rxlog forecast --config station.toml --days 7
-      rxlog forecast --config station.toml --start 2026-12-01 --days 30 --ics jupiter.ics --plot cml-io.png
+      rxlog forecast --config station.toml --start 2026-12-01 --days 30 --ics jupiter.ics --plot nights.png
     """
     from rxlog.forecast import make_forecast
 
-    t0 = _start_of_forecast(cfg, start)
-    args = dict(ics_path=ics_path, plot_path=plot_path)
+    t0 = parse_time_option(start or "now", "--start", cfg)
+    args = dict(ics_path=ics_path, plot_path=plot_path, min_window_min=min_window)
     if days > 31:
         with click.progressbar(length=int(math.ceil(days * 86400 / 60.0)) + 1, label="forecasting",
                                file=sys.stderr) as bar:
@@ -124,8 +115,8 @@ def forecast(cfg, start, days, ics_path, plot_path, min_jupiter_alt, max_sun_alt
         done = make_forecast(cfg, t0, days, min_jupiter_alt, max_sun_alt, **args)
     click.echo(done["text"])
     if done["ics_path"]:
-        click.echo(f"calendar: {done['ics_path']} ({len(done['windows'])} events)")
+        click.echo(f"calendar: {done['ics_path']} ({len(done['watches'])} events)")
     elif ics_path:
-        click.echo(f"calendar: {ics_path} not written (no windows)")
+        click.echo(f"calendar: {ics_path} not written (no watches)")
     if done["plot_path"]:
         click.echo(f"plot: {done['plot_path']}")

@@ -6,29 +6,30 @@ from pathlib import Path
 
 import click
 
-from rxlog.cli.base import UserError, friendly_errors, main, parse_time_option, station_command
+from rxlog.cli.base import TIME_HELP, UserError, friendly_errors, main, parse_time_option, renamed, station_command
 
 
 @station_command("export")
+@renamed("-o", "--output", to="--out", dest="out")
 @click.option("--format", "fmt", type=click.Choice(["csv", "json", "votable"]), default="csv",
               show_default=True, help="Open format of the event list.")
-@click.option("-o", "--output", type=click.Path(dir_okay=False), metavar="FILE",
+@click.option("--out", type=click.Path(dir_okay=False), metavar="FILE",
               help="Where to write the list. Default: STATION-events.csv|.json|.vot here.")
-@click.option("--start", metavar="ISO", help="First peak time to include (ISO 8601 UTC).")
-@click.option("--end", metavar="ISO", help="Peak times before this (ISO 8601 UTC).")
+@click.option("--start", metavar="TIME", help=f"First peak time to include: {TIME_HELP}.")
+@click.option("--end", metavar="TIME", help="Peak times before this, read like --start.")
 @click.option("--include-rfi", is_flag=True, help="Also list events classed as interference.")
 @click.option("--labelled-only", is_flag=True, help="Only events a reviewer has labelled.")
 @click.option("--voevent", "voevent_dir", type=click.Path(file_okay=False), metavar="DIR",
               help="Instead of a list, write one IVOA VOEvent 2.0 notice per EVENT_ID into DIR.")
 @click.argument("event_ids", nargs=-1, metavar="[EVENT_ID]...")
-def export_cmd(cfg, fmt, output, start, end, include_rfi, labelled_only, voevent_dir, event_ids):
+def export_cmd(cfg, fmt, out, start, end, include_rfi, labelled_only, voevent_dir, event_ids):
     """Export this station's events for partner stations (CSV, JSON or VOTable), with the
     station's metadata in the header, or VOEvent 2.0 notices for single events.
 
     \b
     Examples:
-      rxlog export --config station.toml --start 2027-02-01 --end 2027-02-08 -o week.csv
-      rxlog export --config station.toml --format votable --labelled-only -o labelled.vot
+      rxlog export --config station.toml --start 2027-02-01 --end 2027-02-08 --out week.csv
+      rxlog export --config station.toml --format votable --labelled-only --out labelled.vot
       rxlog export --config station.toml --voevent notices/ birchwater-20270203T141502.0-20.000
     """
     from rxlog.exchange import SUFFIX, export_events, write_voevents
@@ -42,11 +43,11 @@ def export_cmd(cfg, fmt, output, start, end, include_rfi, labelled_only, voevent
         return
     if event_ids:
         raise UserError("EVENT_IDs are only for --voevent DIR; an event list takes --start/--end")
-    t0 = parse_time_option(start, "--start")
-    t1 = parse_time_option(end, "--end")
+    t0 = parse_time_option(start, "--start", cfg)
+    t1 = parse_time_option(end, "--end", cfg)
     if t0 is not None and t1 is not None and t1 <= t0:
         raise UserError("--end must be after --start")
-    out = Path(output) if output else Path(f"{cfg['station']['name']}-events{SUFFIX[fmt]}")
+    out = Path(out) if out else Path(f"{cfg['station']['name']}-events{SUFFIX[fmt]}")
     n = export_events(cfg, out, fmt, t0=t0, t1=t1, include_rfi=include_rfi, labelled_only=labelled_only)
     click.echo(f"wrote {n} events to {out} ({fmt})")
 

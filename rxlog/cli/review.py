@@ -43,8 +43,16 @@ def review(cfg, night, serve, port, host, allow_remote, access_token):
 
     The report folder (under the storage root's reports/) holds index.html with the
     plots beside it; it opens from disk and can be copied elsewhere. With --serve the
-    page on http://127.0.0.1:PORT/ saves labels to the event store as you choose them
-    (keys: j/k step, 1..0 label, n note).
+    page on http://127.0.0.1:PORT/ saves labels to the event store as you choose them.
+
+    \b
+    Keys on the page:
+      j or Down              next event
+      k or Up                previous event
+      u                      next unlabelled event
+      1 2 3 4 5 6 7 8 9 0    label the event (each label button shows its key)
+      n                      type a note, saved with the next label (Enter or Escape ends the note)
+      ?                      jump to the list of keys
 
     \b
     Example:
@@ -95,7 +103,7 @@ def label(cfg, event_id, label, note, who):
 
     \b
     Example:
-      rxlog label --config station.toml birchwater-20270203T0412305-18.250 jovian_l --note "clear arc"
+      rxlog label --config station.toml birchwater-20270202T170756.1-19.543 jovian_l --note "clear arc"
     """
     from rxlog.store import EventStore
 

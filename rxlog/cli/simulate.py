@@ -6,11 +6,11 @@ import sys
 
 import click
 
-from rxlog.cli.base import UserError, parse_time_option, station_command
+from rxlog.cli.base import TIME_HELP, UserError, parse_time_option, station_command
 
 
 @station_command("simulate")
-@click.option("--start", required=True, metavar="ISO", help="UTC start, e.g. 2026-12-01T18:00:00Z.")
+@click.option("--start", required=True, metavar="TIME", help=f"Start: {TIME_HELP}.")
 @click.option("--hours", required=True, type=click.FloatRange(min=0, min_open=True), metavar="H",
               help="How long to simulate (fractions allowed: --iq writes 4.8 MB per second at 2.4 MS/s).")
 @click.option("--out", "out", required=True, type=click.Path(), metavar="PATH",
@@ -31,11 +31,12 @@ def simulate_command(cfg, start, hours, out, iq, seed, rfi, center_mhz):
     \b
     Examples:
       rxlog simulate --config station.toml --start 2026-12-01T18:00:00Z --hours 12 --out night
-      rxlog simulate --config station.toml --start 2026-12-01T22:00:00Z --hours 0.005 --iq --out iq/test
+      rxlog simulate --config station.toml --start 2026-12-01T22:00:00Z --hours 0.005 --iq \\
+          --center-mhz 20.1 --out iq/test
     """
     from rxlog.simulator import write_simulation
 
-    t0 = parse_time_option(start, "--start")
+    t0 = parse_time_option(start, "--start", cfg)
     if center_mhz is not None and not iq:
         raise UserError("--center-mhz: only used with --iq (spectra cover the whole band)")
     with click.progressbar(length=1000, label="simulating", file=sys.stderr) as bar:
