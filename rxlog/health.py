@@ -188,7 +188,8 @@ def station_status(cfg, now: float | None = None) -> dict:
       ``samples_dropped``, ``spectra_dropped``, ``spectra_not_archived``;
     - ``last_event``: {event_id, class, peak_utc} of the latest event (by peak), or None;
     - ``last_archived``: {time_utc: end of the last archived row, path: the archive file
-      holding it}, or None for an empty archive;
+      holding it}, or None for an empty (or unreadable) archive; ``archive_error``: why
+      the archive could not be read, or None;
     - ``disk``: see ``disk_outlook``;
     - ``store``: the event store's path.
 
@@ -266,21 +267,25 @@ def _store_status(cfg, now: float, pid: int | None) -> dict:
 
 
 def _archive_status(cfg, now: float) -> dict:
-    """The last archived row and the disk outlook, from the archive's files."""
+    """The last archived row and the disk outlook, from the archive's files. An archive
+    that cannot be read (a damaged file, no permission) is reported, not raised: the
+    rest of the status still answers."""
     from rxlog import archive
+    from rxlog.errors import RxlogError
     from rxlog.timeutil import iso
 
-    hours = archive.archive_hours(cfg.archive_dir)
     now_hour = int(now // 3600)
-    recent = archive.file_spans(cfg.archive_dir, now_hour - 24, None) if hours else []
-    if hours and not recent:
-        newest = archive.file_spans(cfg.archive_dir, hours[-1], hours[-1])
-    else:
-        newest = recent
+    try:
+        hours = archive.archive_hours(cfg.archive_dir)
+        recent = archive.file_spans(cfg.archive_dir, now_hour - 24, None) if hours else []
+        newest = archive.file_spans(cfg.archive_dir, hours[-1], hours[-1]) if hours and not recent else recent
+        error = None
+    except (RxlogError, OSError) as e:
+        hours, recent, newest, error = [], [], [], str(e)
     last = max(newest, key=lambda f: f.t_end, default=None)
     last_archived = None if last is None else {"time_utc": iso(last.t_end), "path": last.path}
     in_day = [f for f in recent if f.t_end > now - DAY_S]
-    return {"last_archived": last_archived,
+    return {"last_archived": last_archived, "archive_error": error,
             "disk": disk_outlook(free_mb=disk_free_mb(cfg.storage_root),
                                  min_free_mb=float(cfg["service"]["disk_min_free_mb"]),
                                  day_bytes=sum(f.size_bytes for f in in_day),

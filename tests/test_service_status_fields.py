@@ -164,3 +164,18 @@ def test_retention_that_levels_the_archive_off_first_means_no_end():
 def test_days_left_unknown_below_six_hours_of_data():
     out = _outlook(1500.0, data_h=5.9)
     assert out["rate_mb_per_day"] is None and out["days_left"] is None
+
+
+def test_a_damaged_archive_file_is_named_and_the_rest_still_answers(cfg):
+    from click.testing import CliRunner
+
+    from rxlog.cli import main
+
+    _write(cfg, 60, T)
+    bad = cfg.archive_dir / "2026/12/01/faulty_20261201T23Z.fits"
+    bad.write_bytes(b"not FITS at all")
+    st = station_status(cfg, now=T + HOUR + 60)
+    assert st["last_archived"] is None and str(bad) in st["archive_error"]
+    r = CliRunner().invoke(main, ["status", "--config", str(cfg.path)])
+    assert r.exit_code == 0, r.output
+    assert f"last archived spectrum: unknown ({bad}" in r.stdout and "last event: none" in r.stdout

@@ -65,8 +65,11 @@ def status_command(cfg):
             if h.get(key) not in (None, ""):
                 click.echo(f"  {key}: {h[key]}")
     a = st["last_archived"]
-    click.echo(f"last archived spectrum: {a['time_utc']} in {a['path']}" if a
-               else f"last archived spectrum: none in {cfg.archive_dir}")
+    if st["archive_error"]:
+        click.echo(f"last archived spectrum: unknown ({st['archive_error']})")
+    else:
+        click.echo(f"last archived spectrum: {a['time_utc']} in {a['path']}" if a
+                   else f"last archived spectrum: none in {cfg.archive_dir}")
     ev = st["last_event"]
     click.echo(f"last event: {ev['event_id']} ({ev['class']}) at {ev['peak_utc']}" if ev else "last event: none")
     d = st["dropped_24h"]
