@@ -284,7 +284,8 @@ def _archive_status(cfg, now: float) -> dict:
         hours, recent, newest, error = [], [], [], str(e)
     last = max(newest, key=lambda f: f.t_end, default=None)
     last_archived = None if last is None else {"time_utc": iso(last.t_end), "path": last.path}
-    in_day = [f for f in recent if f.t_end > now - DAY_S]
+    # Chunks carry more header per second of data than the hour file they become: left out.
+    in_day = [f for f in recent if f.t_end > now - DAY_S and not f.path.name.endswith(".chunk.fits")]
     return {"last_archived": last_archived, "archive_error": error,
             "disk": disk_outlook(free_mb=disk_free_mb(cfg.storage_root),
                                  min_free_mb=float(cfg["service"]["disk_min_free_mb"]),
@@ -298,9 +299,9 @@ def disk_outlook(free_mb: float, min_free_mb: float, day_bytes: float, day_data_
                  archive_age_days: float, retention_days: float) -> dict:
     """Days until raw spectra pause for lack of space, at the archive's current growth.
 
-    The growth rate is the size of the archive files of the last day over the seconds of
-    data they hold (so a logger that was down part of the day is not mistaken for a slow
-    one), in MB per day of logging; with less than GROWTH_MIN_DATA_S of data it is
+    The growth rate is the size of the archive's hour files of the last day over the
+    seconds of data they hold (so a logger that was down part of the day is not mistaken
+    for a slow one), in MB per day of logging; with less than GROWTH_MIN_DATA_S of data it is
     unknown. Raw spectra pause at ``min_free_mb`` (``[service] disk_min_free_mb``), so the
     space that counts is free space above it. Retention deletes what is older than
     ``retention_days``: once the archive is that old it stops growing, so if the space

@@ -126,8 +126,11 @@ def test_growth_rate_is_the_last_days_bytes_over_its_seconds_of_data(cfg):
     recent = [p for p in cfg.archive_dir.rglob("*.fits") if p not in old_files]
     assert len(recent) == 8
     expected = sum(p.stat().st_size for p in recent) / 1e6 / (8 * HOUR) * DAY
+    # A running writer's chunk of the hour in progress: not an hour file yet, left out.
+    w = _write(cfg, 90, T + 8 * HOUR, cadence=cadence, segment="new", chunk_s=600.0, close=False)
+    assert w.rows_written == 60
 
-    st = station_status(cfg, now=T + 8 * HOUR + 60)
+    st = station_status(cfg, now=T + 8 * HOUR + 960)
     disk = st["disk"]
     assert disk["rate_mb_per_day"] == pytest.approx(expected, rel=1e-9)
     assert disk["data_h"] == pytest.approx(8.0)
