@@ -86,6 +86,7 @@ def test_uptime_counts_from_the_running_loggers_start_row(cfg):
         _health(store, now - 2 * HOUR, pid=222, note="logger started")
         _health(store, now - 1 * HOUR, pid=os.getpid(), note="logger started")
         _health(store, now - 60, pid=os.getpid())
+        _health(store, now - 600, pid=os.getpid(), note="logger started", station="elsewhere")
     finally:
         store.close()
     st = station_status(cfg, now=now)
