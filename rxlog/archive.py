@@ -812,6 +812,7 @@ class ArchiveWriter:
         self._buf_rows = 0
         self._pending: set[int] = set()     # hours with chunks written by us, not yet consolidated
         self._count = 0
+        self.rows_written = 0               # rows this writer has put on disk (chunk or hour files)
         with _locked(self.root):
             _recover(self.root)
 
@@ -823,6 +824,11 @@ class ArchiveWriter:
             raise ValueError(f"cadence_s must be positive, got {spec.cadence_s}")
         for piece in self._split_hours(spec):
             self._append(piece)
+
+    @property
+    def rows_buffered(self) -> int:
+        """Rows held in memory, not yet on disk (a crash now would lose them)."""
+        return self._buf_rows
 
     def flush(self) -> None:
         """Put everything held in memory on disk now (as a chunk)."""
@@ -897,6 +903,7 @@ class ArchiveWriter:
                 _write_atomic(path, [_primary(self.station, "chunk")] + _hdu_set(part, self.station, self.lossless, 1))
                 self._pending.add(hour)
         self._count += 1
+        self.rows_written += part.n_time
         self._buf = [rest] if rest.n_time else []
         self._buf_rows = rest.n_time
 
@@ -999,6 +1006,48 @@ def archive_extent(root) -> tuple[float, float] | None:
     if not starts:
         return None
     return min(starts), max(ends)
+
+
+def archive_hours(root) -> list[int]:
+    """The UTC hours (hours since 1970) that have archive files, oldest first; names only."""
+    return sorted({hour for _p, _n, hour, _c in _archive_files(Path(root))})
+
+
+@dataclass
+class FileSpan:
+    """One archive file as its headers describe it (no pixels are read)."""
+    path: Path
+    size_bytes: int
+    t0: float          # start of its first row (POSIX s)
+    t_end: float       # end of its last row
+    data_s: float      # seconds of rows it holds (sum over its runs; NaN rows filling a gap count)
+
+
+def file_spans(root, hour0: int | None = None, hour1: int | None = None) -> list[FileSpan]:
+    """The archive's files of UTC hours ``hour0..hour1`` (hours since 1970; None: no
+    limit), hour files before chunks, described from their headers only, so a look at a
+    day of files costs milliseconds. Takes no lock: a chunk that a writer consolidates
+    while we look is skipped (its rows are then in the hour file)."""
+    out = []
+    for path, _name, _hour, _chunk in _archive_files(Path(root), hour0, hour1):
+        try:
+            size = path.stat().st_size
+            with fits.open(path, memmap=False) as hdul:
+                if hdul[0].header.get("RXFORMAT") != FORMAT:
+                    raise RxlogError(f"{path}: not an rxlog archive file (primary RXFORMAT is not {FORMAT!r})")
+                runs = []
+                for hdu in hdul[1:]:
+                    if hdu.name == "POWER":
+                        t = _time_axis(hdu.header, 1, path)
+                        runs.append((t["t0"], int(hdu.header["NAXIS1"]) * t["cadence"]))
+        except FileNotFoundError:
+            continue
+        except (OSError, KeyError, ValueError, TypeError, IndexError) as e:
+            raise RxlogError(f"{path}: unreadable archive file ({e})") from None
+        if runs:
+            out.append(FileSpan(path=path, size_bytes=size, t0=min(a for a, _ in runs),
+                                t_end=max(a + d for a, d in runs), data_s=sum(d for _, d in runs)))
+    return out
 
 
 # --------------------------------------------------------------------------- retention

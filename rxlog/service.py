@@ -7,7 +7,8 @@ Two threads and a bounded queue between them:
   receiver fails it closes it, records when, and retries with a doubling wait (1 s up
   to ``[service] retry_max_s``) until it is back — no restart needed;
 - the **main** thread takes spectra off the queue and writes them to the archive
-  (flushed crash-safely every ``chunk_s``), feeds the online detector (which tags events
+  (flushed crash-safely every ``chunk_s``; the first flushes of a run come sooner, see
+  FIRST_FLUSH_S), feeds the online detector (which tags events
   with the ephemeris) and stores its events; it records a health row every
   ``health_interval_s``, prunes old spectra once a day, watches the clocks and the disk,
   and pings systemd.
@@ -20,10 +21,15 @@ What the logger does about each fault:
 - **stop** (SIGTERM / SIGINT): the chunk in progress is flushed, the detector's
   pending events stored, a last health row written; exit status 0 within a few seconds;
 - **SIGKILL / power cut**: nothing to do here — the archive's chunks and SQLite's WAL
-  are crash-safe, and the run lock is a flock the kernel drops with the process;
-- **disk nearly full** (free space under ``disk_min_free_mb``, or a write failing with
-  ENOSPC): raw spectra stop being archived, events and health go on, a warning is logged;
-  archiving resumes when free space is back above 1.2 × the threshold;
+  are crash-safe, and the run lock is a flock the kernel drops with the process. A
+  logger in a crash loop still leaves data: its first flush comes a few seconds after
+  its first spectra, not a whole ``chunk_s`` later;
+- **disk nearly full** (free space under ``disk_min_free_mb``, or an archive or event
+  store write failing for lack of space): raw spectra stop being archived, events and
+  health go on (rows the event store cannot take are held in memory and written once it
+  can), one warning is logged; archiving resumes, with one more warning, once free space
+  is back above 1.2 × the threshold and a test flush reached the disk. Retries in
+  between are quiet;
 - **clock step** (an NTP correction): seen as a jump of CLOCK_REALTIME against
   CLOCK_MONOTONIC between two looks (the sample counter would mix steps with drops and
   crystal drift). It is logged and recorded, starts a new segment, and any rows whose
@@ -61,6 +67,11 @@ RETRY_FIRST_S = 1.0             # first wait before reopening a lost receiver; d
 DISK_RESUME_FACTOR = 1.2        # resume archiving when free space is back above this × disk_min_free_mb
 DISK_CHECK_S = 1.0              # look at free space at most this often
 DISK_RETRY_S = 5.0              # after a pause, wait at least this long before archiving again
+DISK_RETRY_MAX_S = 60.0         # the wait doubles after each failed attempt, up to this
+FIRST_FLUSH_S = 2.0             # first flush this long after a run's first spectra; the wait then doubles
+                                # up to chunk_s, so a crash loop faster than chunk_s still archives
+STORE_RETRY_S = 5.0             # while the event store refuses rows, try again at most this often
+HELD_ROWS_MAX = 10000           # rows of each kind held in memory for the event store (a week of health rows)
 CLOCK_SYNC_CHECK_S = 60.0       # ask timedatectl/chronyc at most this often
 RETENTION_EVERY_S = 86400.0     # prune old spectra once a day
 PREVIOUS_AHEAD_MAX_S = 3600.0   # a previous run's data further ahead than this are not waited for
@@ -190,9 +201,9 @@ class FeedEnded:
 
 @dataclass
 class Counters:
-    """Counts since the last health row (reset there)."""
+    """Counts since the last health row (reset there). Spectra archived are not counted
+    here but read from the archive writer: only rows that reached the disk count."""
     spectra_received: int = 0
-    spectra_archived: int = 0
     spectra_not_archived: int = 0
     spectra_overlap_dropped: int = 0
     events: int = 0
@@ -242,6 +253,12 @@ class Logger:
         self.raw_paused = False
         self._paused_at = 0.0
         self._resume_above_mb = 0.0
+        self._disk_retry_s = DISK_RETRY_S
+        # Rows on disk: written by writers already dropped, plus the current writer's; rows
+        # handed to the current writer (those neither on disk nor buffered were lost with it).
+        self._rows_written_before = 0
+        self._rows_handed = 0
+        self._last_on_disk = 0
         self.clock_epoch = 0
         self.last_end: float | None = None     # end of the latest data accepted (POSIX s)
         self._last_segment = ""
@@ -250,6 +267,9 @@ class Logger:
         self.pending_events: list[dict] = []   # events the store could not take yet
         self.pending_episodes: list[dict] = []
         self.pending_quality: list[dict] = []
+        self.pending_health: list[dict] = []   # health rows the store could not take yet
+        self._store_trouble: str | None = None # why the event store refuses rows, while it does
+        self._store_retry_at = -1e9
         self.run_tag = time.strftime("%Y%m%dT%H%M%S", time.gmtime(self.clock.realtime()))
         self._clock_sync = (hl.UNKNOWN, -1e9)
         self._disk = (None, -1e9)
@@ -394,34 +414,65 @@ class Logger:
         free = self._disk_free()
         if not self.raw_paused and free < self.disk_min_mb:
             self._pause_raw(f"disk free {free:.1f} MB below disk_min_free_mb {self.disk_min_mb:g} MB")
-        elif (self.raw_paused and free >= self._resume_above_mb
-              and self.clock.monotonic() - self._paused_at >= DISK_RETRY_S):
-            self.raw_paused = False
-            self._notable(f"raw spectra resumed: disk free {free:.1f} MB", level=logging.WARNING)
-        if self.raw_paused:
+        probing = self.raw_paused and free >= self._resume_above_mb and \
+            self.clock.monotonic() - self._paused_at >= self._disk_retry_s
+        if self.raw_paused and not probing:
             self.counts.spectra_not_archived += spec.n_time
             return
         try:
             if self.archive is None:
                 self.archive = self.archive_factory()
+                self._rows_handed = 0
+        except (RxlogError, OSError) as e:
+            self.counts.spectra_not_archived += spec.n_time
+            self._archive_failed(e)
+            return
+        try:
+            self._rows_handed += spec.n_time
             self.archive.write(spec)
-            self.counts.spectra_archived += spec.n_time
+            if probing:
+                self.archive.flush()      # say "resumed" only once a chunk has reached the disk
         except (RxlogError, OSError) as e:
             self._archive_failed(e)
-            self.counts.spectra_not_archived += spec.n_time
+            return
+        if probing:
+            self.raw_paused = False
+            self._disk_retry_s = DISK_RETRY_S
+            self._notable(f"raw spectra resumed: disk free {free:.1f} MB", level=logging.WARNING)
+
+    def _on_disk(self) -> int:
+        """Spectra of this run that reached the disk (rows in the writer's buffer do not count)."""
+        return self._rows_written_before + (self.archive.rows_written if self.archive is not None else 0)
+
+    def _drop_writer(self):
+        """Forget the archive writer; the rows it was handed and never wrote are lost."""
+        if self.archive is None:
+            return
+        self.counts.spectra_not_archived += self._rows_handed - self.archive.rows_written
+        self._rows_written_before += self.archive.rows_written
+        self.archive = None
+        self._rows_handed = 0
 
     def _archive_failed(self, e: Exception):
         """A write or flush failed (disk full, a quota, permissions): pause raw spectra.
 
         The writer is dropped without closing it (closing would retry the failed write);
-        chunks it already wrote are consolidated by the next writer."""
-        self.archive = None
+        chunks it already wrote are consolidated by the next writer. A failed attempt to
+        resume only makes the next attempt wait longer: the pause was already reported."""
+        self._drop_writer()
         self._disk = (None, -1e9)
-        self._pause_raw(f"archive write failed: {e}", failed=True)
+        if not self.raw_paused:
+            self._pause_raw(f"archive write failed: {e}", failed=True)
+            return
+        log.debug("raw spectra still paused: %s", e)
+        self._paused_at = self.clock.monotonic()
+        self._disk_retry_s = min(2 * self._disk_retry_s, DISK_RETRY_MAX_S)
+        self._resume_above_mb = max(self._resume_above_mb, self._disk_free() + 1.0)
 
     def _pause_raw(self, why: str, failed: bool = False):
         self.raw_paused = True
         self._paused_at = self.clock.monotonic()
+        self._disk_retry_s = DISK_RETRY_S
         # After a failed write the threshold alone may already be met (e.g. threshold 0):
         # then wait for a megabyte more than there was when the write failed.
         self._resume_above_mb = max(DISK_RESUME_FACTOR * self.disk_min_mb,
@@ -466,32 +517,54 @@ class Logger:
         if self.detector is not None:
             self.pending_episodes.extend(self.detector.pop_episodes())
             self.pending_quality.extend(self.detector.pop_quality())
-        if self.pending_episodes or self.pending_quality:
-            try:
-                self.store.upsert_episodes(self.pending_episodes)
-                self.store.record_quality(self.pending_quality)
-                self.pending_episodes, self.pending_quality = [], []
-            except sqlite3.OperationalError as e:
-                log.warning("event store: %s; episodes and quality rows kept for a retry", e)
-                del self.pending_episodes[:-10000]
-                del self.pending_quality[:-10000]
-        self._store_event_rows(events)
-
-    def _store_event_rows(self, events):
         if events:
             self.pending_events.extend(events)
-        if not self.pending_events:
+        if not (self.pending_episodes or self.pending_quality or self.pending_events) or not self._store_may_try():
+            self._trim_held()
             return
         try:
-            self.store.upsert_events(self.pending_events)
+            self.store.upsert_episodes(self.pending_episodes)
+            self.pending_episodes = []
+            self.store.record_quality(self.pending_quality)
+            self.pending_quality = []
+            if self.pending_events:
+                self.store.upsert_events(self.pending_events)
         except sqlite3.OperationalError as e:
-            # "database or disk is full", or locked by a long reader: keep them for the next try.
-            log.warning("event store: %s; %d events kept for a retry", e, len(self.pending_events))
-            del self.pending_events[:-10000]
+            self._store_failed(e)
+            self._trim_held()
             return
+        self._store_ok()
         self.counts.events += len(self.pending_events)
         self.totals["events"] += len(self.pending_events)
         self.pending_events = []
+
+    def _trim_held(self):
+        for held in (self.pending_events, self.pending_episodes, self.pending_quality, self.pending_health):
+            del held[:-HELD_ROWS_MAX]
+
+    def _store_may_try(self) -> bool:
+        """While the store refuses rows, try again only every STORE_RETRY_S."""
+        return self._store_trouble is None or self.clock.monotonic() >= self._store_retry_at
+
+    def _store_failed(self, e: Exception):
+        """The event store refused a write ("database or disk is full", or locked by a long
+        reader): rows are held for a retry. A full disk pauses raw spectra, which is the one
+        warning about it; any other trouble gets one warning until the store works again."""
+        why = str(e)
+        self._store_retry_at = self.clock.monotonic() + STORE_RETRY_S
+        first, self._store_trouble = self._store_trouble is None, why
+        full = "full" in why.lower()          # SQLITE_FULL: "database or disk is full"
+        if full and not self.raw_paused:
+            self._pause_raw(f"event store: {why}", failed=True)
+        elif first and not full:
+            log.warning("event store: %s; rows are held in memory and written once it works again", why)
+        else:
+            log.debug("event store still refuses rows: %s", why)
+
+    def _store_ok(self):
+        if self._store_trouble is not None:
+            self._store_trouble = None
+            log.info("event store: writing again")
 
     # -- main thread: housekeeping --------------------------------------------------------
     def _flush(self):
@@ -501,13 +574,15 @@ class Logger:
             except (RxlogError, OSError) as e:
                 self._archive_failed(e)
         self._store_events([])
-        if self.segments:
+        self._store_health()
+        if self.segments and self._store_may_try():
             try:
                 for row in self.segments.values():
                     self.store.upsert_segment(row)
             except sqlite3.OperationalError as e:
-                log.warning("event store: %s; segment rows kept for a retry", e)
+                self._store_failed(e)
                 return
+            self._store_ok()
             # keep only the segment still growing
             current = max(self.segments.values(), key=lambda r: r["end_utc"])
             self.segments = {current["segment_id"]: current}
@@ -527,6 +602,7 @@ class Logger:
         cum = (int(getattr(self.feed, "samples_received", 0)), int(getattr(self.feed, "samples_dropped", 0)),
                self.queue_dropped)
         d_rx, d_drop, d_queue = (a - b for a, b in zip(cum, self._last_cumulative))
+        on_disk = self._on_disk()
         row = {"station": self.station, "time_utc": self._health_time(),
                "interval_s": round(now - self._last_health, 3),
                "samples_received": d_rx, "samples_dropped": d_drop,
@@ -534,29 +610,48 @@ class Logger:
                "disk_free_mb": round(hl.disk_free_mb(self.cfg.storage_root), 2),
                "clock_sync": self._clock_sync_state(), "receiver_state": self.receiver_state,
                "note": note,
-               "spectra_received": c.spectra_received, "spectra_archived": c.spectra_archived,
+               "spectra_received": c.spectra_received, "spectra_archived": on_disk - self._last_on_disk,
+               "spectra_buffered": self.archive.rows_buffered if self.archive is not None else 0,
                "spectra_not_archived": c.spectra_not_archived,
                "spectra_dropped": c.spectra_overlap_dropped + d_queue,
                "events": c.events, "clock_step_s": c.clock_step_s, "raw_archiving": raw,
                "rss_mb": round(hl.rss_mb(), 1), "pid": os.getpid()}
-        try:
-            self.store.record_health(row)
-        except sqlite3.OperationalError as e:
-            log.warning("event store: health row not written (%s): %s", e, row["note"])
-            return
-        self.totals["spectra_archived"] += c.spectra_archived
+        # The row is kept (in memory while the store refuses it), so the counts start again.
+        self.pending_health.append(row)
+        self.totals["spectra_archived"] = on_disk
         self.counts = Counters()
         self._last_cumulative = cum
+        self._last_on_disk = on_disk
         self._last_health = now
+        self._store_health()
         self.notifier.status(f"{self.receiver_state}; raw spectra {raw}; {self.totals['events']} events; "
                              f"disk {row['disk_free_mb']:.0f} MB free; clock {row['clock_sync']}")
+
+    def _store_health(self):
+        """Write the health rows held for the store, oldest first, as far as it takes them."""
+        if not self.pending_health or not self._store_may_try():
+            self._trim_held()
+            return
+        try:
+            while self.pending_health:
+                self.store.record_health(self.pending_health[0])
+                self.pending_health.pop(0)
+        except sqlite3.OperationalError as e:
+            self._store_failed(e)
+            self._trim_held()
+            return
+        self._store_ok()
 
     def _health_time(self) -> str:
         """Now, in ISO text; after a backward clock step 'now' can repeat an earlier row's time
         to the millisecond, and health rows are keyed by time: move on by 1 ms until free."""
         t = self.clock.realtime()
+        held = {r["time_utc"] for r in self.pending_health}
         for _ in range(1000):
             text = iso(t)
+            if text in held:
+                t += 0.001
+                continue
             try:
                 taken = self.store.db.execute("select 1 from health where station = ? and time_utc = ?",
                                               [self.station, text]).fetchone()
@@ -638,7 +733,11 @@ class Logger:
         self._health(note="logger started")
         self.notifier.ready(f"logging station {self.station}")
         wd = self.notifier.watchdog_s
-        next_flush = start + self.chunk_s
+        # Flush FIRST_FLUSH_S after the first spectra, then at doubling waits up to chunk_s:
+        # a logger that crashes and restarts faster than chunk_s still archives (about the
+        # first half of each run), and a health row shows it.
+        flush_wait = min(FIRST_FLUSH_S, self.chunk_s)
+        next_flush = None
         next_health = start + self.health_s
         next_prune = start
         next_ping = start
@@ -657,9 +756,16 @@ class Logger:
             elif item is not None:
                 self._on_marker(item)
             now = clock.monotonic()
-            if now >= next_flush:
+            if next_flush is None and self._last_segment:
+                next_flush = now + flush_wait
+            if next_flush is not None and now >= next_flush:
+                first = self._on_disk() == 0
                 self._flush()
-                next_flush = now + self.chunk_s
+                if first and self._on_disk():
+                    self._health(note=f"first spectra archived, up to {iso(self.last_end)}")
+                    next_health = now + self.health_s
+                flush_wait = min(2 * flush_wait, self.chunk_s)
+                next_flush = now + flush_wait
             if now >= next_health:
                 self._health()
                 next_health = now + self.health_s
@@ -723,8 +829,16 @@ class Logger:
                 self.archive.close()
             except (RxlogError, OSError) as e:
                 log.warning("archive: last chunk not written at stop: %s", e)
-            self.archive = None
+            self._drop_writer()
+        self._store_retry_at = -1e9             # one last try for whatever the store refused
         self._health(note=f"logger stopped: {self.stop_reason}")
+        self._store_retry_at = -1e9
+        self._store_events([])
+        held = {"health rows": len(self.pending_health), "events": len(self.pending_events),
+                "episodes": len(self.pending_episodes), "quality rows": len(self.pending_quality)}
+        if any(held.values()):
+            log.warning("event store: %s lost at stop (%s)", ", ".join(f"{n} {k}" for k, n in held.items() if n),
+                        self._store_trouble)
         summary = dict(self.totals, stop_reason=self.stop_reason, ended=ended)
         log.info("stopped: %(spectra_archived)d spectra archived, %(events)d events, "
                  "%(receiver_gaps)d receiver gaps, %(clock_steps)d clock steps", summary)

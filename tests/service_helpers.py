@@ -37,8 +37,8 @@ retention_days = 30
 [sweep]
 {sweep}
 [service]
-chunk_s = 1
-health_interval_s = 0.5
+chunk_s = {chunk_s}
+health_interval_s = {health_s}
 disk_min_free_mb = {disk_min}
 retry_max_s = 2
 clock_step_s = 0.5
@@ -55,8 +55,9 @@ NARROW_IQ = dict(fmin=19.92, fmax=20.08, sweep='mode = "single"\nfft_size = 256\
                  service='sim_feed = "iq"', receiver='kind = "simulated"\nsample_rate_hz = 250000')
 
 
-def write_config(tmp_path: Path, root: Path | None = None, disk_min: float = 1.0, **kw) -> Path:
-    values = dict(SPECTRA, root=root or tmp_path / "store", disk_min=disk_min)
+def write_config(tmp_path: Path, root: Path | None = None, disk_min: float = 1.0, chunk_s: float = 1,
+                 health_s: float = 0.5, **kw) -> Path:
+    values = dict(SPECTRA, root=root or tmp_path / "store", disk_min=disk_min, chunk_s=chunk_s, health_s=health_s)
     values.update(kw)
     path = tmp_path / "station.toml"
     path.write_text(BASE.format(**values), encoding="utf-8")

@@ -1,6 +1,7 @@
 """A nearly full disk, on a small filesystem the test mounts itself (tmpfs): the logger
-stops archiving raw spectra, keeps recording events and health, warns, survives the disk
-filling up completely, and resumes archiving once space is back — without a restart."""
+stops archiving raw spectra, keeps recording events and health, warns once, survives the
+disk filling up completely (health rows are held until the event store takes them again),
+and resumes archiving once space is back — without a restart, and with one more warning."""
 
 import os
 import signal
@@ -73,9 +74,11 @@ def test_disk_nearly_full_pauses_raw_spectra_then_resumes(tmp_path, small_fs):
 
         # Completely full: SQLite and FITS writes fail; the logger must keep running.
         _fill(ballast, 0)
+        t_full = time.time()
         time.sleep(2.0)
         assert run.proc.poll() is None, run.stderr
 
+        t_free = time.time()
         ballast.unlink()
         t_resume = run.wait_for("WARNING raw spectra resumed", timeout=15)
         time.sleep(2.5)
@@ -90,6 +93,13 @@ def test_disk_nearly_full_pauses_raw_spectra_then_resumes(tmp_path, small_fs):
     # Health went on through the full disk: rows before, during and after the pause.
     t = [parse_iso(h["time_utc"]) for h in health_rows(cfg.store_path)]
     assert any(t_pause < x < t_resume for x in t) and any(x > t_resume for x in t)
+    # ... also while the disk was completely full: those rows waited in memory.
+    assert sum(t_full < x < t_free for x in t) >= 2
+    # One warning when raw spectra paused and one when they resumed, not one per retry.
+    warnings = [ln for ln in run.lines if ln.startswith("WARNING")]
+    assert len(warnings) == 2, "\n".join(warnings[:20])
+    assert warnings[0].startswith("WARNING raw spectra paused")
+    assert warnings[1].startswith("WARNING raw spectra resumed")
     assert integrity(cfg.store_path) == "ok"
     assert open_every_fits(cfg.archive_dir) >= 1
     assert "Traceback" not in run.stderr

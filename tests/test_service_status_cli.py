@@ -6,11 +6,15 @@ import logging
 import signal
 from types import SimpleNamespace
 
+from pathlib import Path
+
+import pytest
 from click.testing import CliRunner
-from service_helpers import Run, write_config
+from service_helpers import Run, archive_rows, write_config
 
 from rxlog import service
 from rxlog.cli import main
+from rxlog.timeutil import parse_iso
 
 
 def _rxlog(*args):
@@ -33,7 +37,7 @@ def test_status_before_during_and_after_a_run(tmp_path):
         run.wait_for("segment ", timeout=30)
         p = _rxlog("status", "--config", str(path))
         assert p.returncode == 0, p.stderr
-        assert f"logger: running (pid {run.proc.pid})" in p.stdout
+        assert f"logger: running (pid {run.proc.pid}), up " in p.stdout and "1 start in the last 24 h" in p.stdout
         assert "receiver_state: streaming" in p.stdout and "latest health:" in p.stdout
         # a second logger on the same storage root is refused with a clear message
         second = _rxlog("run", "--config", str(path), "--duration", "5")
@@ -50,6 +54,15 @@ def test_status_before_during_and_after_a_run(tmp_path):
     p = _rxlog("status", "--config", str(path))
     assert p.returncode == 0
     assert "logger: not running" in p.stdout and "note: logger stopped: SIGTERM" in p.stdout
+    # the morning questions, one line each
+    last = next(ln for ln in p.stdout.splitlines() if ln.startswith("last archived spectrum: "))
+    when, _, file = last.removeprefix("last archived spectrum: ").partition(" in ")
+    got = archive_rows(tmp_path / "store" / "archive")
+    assert parse_iso(when) == pytest.approx(max(s.t_end for s in got.segments), abs=1e-3)
+    assert Path(file).is_file() and Path(file).is_relative_to(tmp_path / "store" / "archive")
+    assert "last event: " in p.stdout
+    assert "dropped in the last 24 h: 0 samples, 0 spectra; 0 spectra not archived" in p.stdout
+    assert "days left unknown" in p.stdout                  # seconds of archive, not six hours
     # read-only: no SQLite -wal/-shm files appear (as root they would lock the service user out)
     assert sidecars() == before
 

@@ -32,27 +32,53 @@ def run_command(cfg, duration):
 
 @station_command("status")
 def status_command(cfg):
-    """Say whether the logger is running and show its latest health row.
+    """Say whether the logger is running and how the station has been doing.
 
-    Exit status 0 whether or not it runs (2 only for a bad config).
+    Shows the logger's uptime and starts in the last 24 h, its latest health row, the
+    last archived spectrum and the file holding it, the last event, what was dropped in
+    the last 24 h, and how many days of disk are left at the archive's growth rate
+    ("unknown" with less than 6 h of archive in the last day). Reads the event store and
+    the archive without changing them. Exit status 0 whether or not it runs (2 only for a
+    bad config).
 
     \b
     Example:
       rxlog status --config station.toml
     """
-    from rxlog.health import station_status
+    from rxlog.health import describe_disk, format_duration, station_status
 
     st = station_status(cfg)
-    click.echo(f"logger: running (pid {st['pid']})" if st["pid"] else "logger: not running")
+    starts = f"{st['starts_24h']} start{'s' if st['starts_24h'] != 1 else ''} in the last 24 h"
+    if st["pid"]:
+        up = format_duration(st["uptime_s"]) if st["uptime_s"] is not None else "unknown"
+        click.echo(f"logger: running (pid {st['pid']}), up {up}; {starts}")
+    else:
+        click.echo(f"logger: not running; {starts}")
     h = st["health"]
     if h is None:
         click.echo(f"health: no health rows yet in {st['store']}")
-        return
-    click.echo(f"latest health: {h['time_utc']} ({st['age_s']:.0f} s ago)")
-    for key in ("receiver_state", "clock_sync", "disk_free_mb", "cpu_percent", "queue_depth",
-                "samples_received", "samples_dropped", "raw_archiving", "events", "note"):
-        if h.get(key) not in (None, ""):
-            click.echo(f"  {key}: {h[key]}")
+    else:
+        click.echo(f"latest health: {h['time_utc']} ({st['age_s']:.0f} s ago)")
+        for key in ("receiver_state", "clock_sync", "disk_free_mb", "cpu_percent", "queue_depth",
+                    "samples_received", "samples_dropped", "raw_archiving", "spectra_archived",
+                    "spectra_buffered", "events", "note"):
+            if h.get(key) not in (None, ""):
+                click.echo(f"  {key}: {h[key]}")
+    a = st["last_archived"]
+    if st["archive_error"]:
+        click.echo(f"last archived spectrum: unknown ({st['archive_error']})")
+    else:
+        click.echo(f"last archived spectrum: {a['time_utc']} in {a['path']}" if a
+                   else f"last archived spectrum: none in {cfg.archive_dir}")
+    ev = st["last_event"]
+    click.echo(f"last event: {ev['event_id']} ({ev['class']}) at {ev['peak_utc']}" if ev else "last event: none")
+    d = st["dropped_24h"]
+    if d is not None:
+        rx, lost = d["samples_received"], d["samples_dropped"]
+        share = f" ({100.0 * lost / (rx + lost):.3g} %)" if rx + lost else ""
+        click.echo(f"dropped in the last 24 h: {lost} samples{share}, {d['spectra_dropped']} spectra; "
+                   f"{d['spectra_not_archived']} spectra not archived")
+    click.echo(describe_disk(st["disk"], cfg["storage"]["retention_days"], cfg["service"]["disk_min_free_mb"]))
 
 
 @station_command("service")
