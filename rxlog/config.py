@@ -23,6 +23,7 @@ from typing import Any, Callable
 
 from rxlog import rfi as _rfi
 from rxlog import ephemeris as _ephemeris
+from rxlog import validate
 
 REQUIRED = object()
 
@@ -103,8 +104,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "sim_seed": Key(int, 0, min=0, help="simulated: seed of the simulated sky and noise (same seed, same sky)"),
     },
     "spectra": {
-        "fmin_mhz": Key(NUMBER, 16.0, min=1, max=60, help="Lower band edge, MHz"),
-        "fmax_mhz": Key(NUMBER, 24.0, min=1, max=60, help="Upper band edge, MHz"),
+        "fmin_mhz": Key(NUMBER, 16.0, min=validate.MIN_BAND_MHZ, max=validate.MAX_BAND_MHZ,
+                        help="Lower band edge, MHz"),
+        "fmax_mhz": Key(NUMBER, 24.0, min=validate.MIN_BAND_MHZ, max=validate.MAX_BAND_MHZ,
+                        help="Upper band edge, MHz"),
         "channels": Key(int, 1024, min=8, max=65536, help="Number of equal channels across the band"),
         "cadence_s": Key(NUMBER, 1.0, min=1e-4, max=600, help="Seconds between archived spectra"),
     },
@@ -307,8 +310,8 @@ def validate(data: dict, path: str | os.PathLike = "<config>", text: str = "") -
                 problems.append(f"{at(section, key)}: expected one of {', '.join(map(repr, spec.choices))}, got {value!r}")
                 continue
             if spec.min is not None and value < spec.min or spec.max is not None and value > spec.max:
-                lo = "" if spec.min is None else f"{spec.min}"
-                hi = "" if spec.max is None else f"{spec.max}"
+                lo = "" if spec.min is None else f"{spec.min:g}"
+                hi = "" if spec.max is None else f"{spec.max:g}"
                 rng = f"between {lo} and {hi}" if lo and hi else (f"at least {lo}" if lo else f"at most {hi}")
                 problems.append(f"{at(section, key)}: out of range, expected {rng}, got {value!r}")
                 continue

@@ -27,6 +27,13 @@ ERA_AHEAD_S = 366 * 86400.0
 # ionosphere, 16-24 MHz. Input must overlap it or the station's configured band.
 DECAMETRIC_HZ = (16e6, 24e6)
 
+# The band a station may be configured for ([spectra] fmin_mhz, fmax_mhz), and so the
+# frequencies of any rxlog event: above 60 MHz no Jovian emission reaches (its cut-off is
+# near 40 MHz) and the ionosphere no longer matters; 1 MHz is below any F2-layer
+# critical frequency, so nothing from space gets that low.
+MIN_BAND_MHZ = 1.0
+MAX_BAND_MHZ = 60.0
+
 # Time step of a dynamic spectrum. 0.1 ms is the finest [spectra] cadence_s accepts, ten
 # times finer than S-bursts need (~1 ms); one spectrum an hour is the coarsest that still
 # shows a burst at all (the archive keeps one file per hour).

@@ -283,8 +283,8 @@ finite = st.floats(min_value=-1e6, max_value=1e6, allow_nan=False, allow_infinit
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.lists(st.tuples(st.floats(min_value=0, max_value=3e8), st.floats(min_value=0, max_value=1e4),
-                          st.floats(min_value=0.001, max_value=60), st.floats(min_value=0, max_value=10),
+@given(st.lists(st.tuples(st.floats(min_value=0, max_value=2.5e7), st.floats(min_value=0, max_value=1e4),
+                          st.floats(min_value=1, max_value=50), st.floats(min_value=0, max_value=10),
                           st.sampled_from(["solar_iii", "jovian_l", "rfi", "unknown"]),
                           st.one_of(st.none(), finite), st.one_of(st.none(), st.text(max_size=20))),
                 min_size=1, max_size=10))
