@@ -322,7 +322,7 @@ def _read_file(path: Path) -> list[tuple[DynamicSpectrum, bool]]:
             if hdul[0].header.get("RXFORMAT") != FORMAT:
                 raise RxlogError(f"{path}: not an rxlog archive file (primary RXFORMAT is not {FORMAT!r})")
             return _own_sets(hdul, path)
-    except (OSError, KeyError, ValueError, TypeError, IndexError) as e:
+    except (OSError, KeyError, ValueError, TypeError, IndexError, fits.VerifyError) as e:
         raise RxlogError(f"{path}: unreadable archive file ({e})") from None
 
 
@@ -511,6 +511,7 @@ class _ForeignImage:
         if hdu is None:
             raise RxlogError(f"{path}: no image HDU with NAXIS = 2; expected a 2-D dynamic spectrum")
         h = hdu.header
+        _check_cards(h, path)
         if h["NAXIS"] != 2:
             raise RxlogError(f"{path}: keyword NAXIS = {h['NAXIS']}: expected a 2-D image (time x frequency)")
         self.hdu, self.header = hdu, h
@@ -555,7 +556,7 @@ class _ForeignImage:
         try:
             raw = self.hdu.section[:, r0:r1] if self.ti == 1 else self.hdu.section[r0:r1, :]
             img = np.asarray(raw, dtype=np.float64)          # astropy applies BSCALE/BZERO, BLANK -> NaN
-        except (OSError, EOFError, ValueError, TypeError, IndexError, zlib.error) as e:
+        except (OSError, EOFError, ValueError, TypeError, IndexError, KeyError, zlib.error) as e:
             raise RxlogError(f"{self.path}: image data unreadable from spectrum {i0 + 1} on ({str(e)[:80]}); "
                              "is the file cut short?") from None
         if self.ti == 1:
@@ -598,6 +599,19 @@ class _ForeignImage:
         flags[:, self.uncovered()] = FLAG_UNCOVERED
         return DynamicSpectrum(power_db=power, t0=self.t0 + i0 * self.cadence, cadence_s=self.cadence,
                                freq_hz=self.freq_hz, flags=flags, segment=self.segment, meta=dict(self.meta))
+
+
+def _check_cards(h, path) -> None:
+    """Every card's value must parse (FITS Standard 4.0 §4.2): astropy raises only when a
+    broken one is looked at, so look at all of them first."""
+    for card in h.cards:
+        try:
+            card.value
+        except fits.VerifyError:
+            raise RxlogError(f"{path}: keyword {card.keyword}: value {card.image[10:].strip()[:30]!r} is not "
+                             "a FITS value (a number, 'quoted text', T or F)") from None
+    if h.get("BITPIX") not in (8, 16, 32, 64, -32, -64):          # FITS Standard 4.0 Table 8
+        raise RxlogError(f"{path}: keyword BITPIX = {h.get('BITPIX')!r}: expected 8, 16, 32, 64, -32 or -64")
 
 
 def _check_axes(h, path, ti: int, fi: int, t: dict, freq_hz: np.ndarray, accepted) -> None:
@@ -646,7 +660,7 @@ def _check_complete(path: Path) -> None:
 def _open_foreign(path: Path, accepted_bands: list[tuple[float, float]] | None = None):
     try:
         hdul = fits.open(path, memmap=False)              # sections read from the file, scaled
-    except (OSError, EOFError, ValueError, zlib.error) as e:
+    except (OSError, EOFError, ValueError, zlib.error, fits.VerifyError) as e:
         raise RxlogError(f"{path}: cannot open as FITS ({e})") from None
     try:
         yield _ForeignImage(hdul, path, accepted_bands)
@@ -661,7 +675,7 @@ def _is_own(path: Path) -> bool:
     try:
         with fits.open(path, memmap=True) as hdul:
             return hdul[0].header.get("RXFORMAT") == FORMAT
-    except (OSError, ValueError) as e:
+    except (OSError, EOFError, ValueError, zlib.error, fits.VerifyError) as e:
         raise RxlogError(f"{path}: cannot open as FITS ({e})") from None
 
 
