@@ -626,10 +626,14 @@ def _check_reaches_band(rec, ch: Channelizer, cfg) -> None:
     for cap in rec.captures:
         if ch.channel_map(cap.center_hz, rec.rate_hz).chans.size == 0:
             half = ch.usable_fraction * rec.rate_hz / 2
-            raise RxlogError(f"{rec.source}: {cap.label} {cap.center_hz / 1e6:.6g} MHz at {rec.rate_hz:g} "
-                             f"samples/s covers {(cap.center_hz - half) / 1e6:.6g} to "
-                             f"{(cap.center_hz + half) / 1e6:.6g} MHz, outside the station band "
-                             f"{sp['fmin_mhz']:g}-{sp['fmax_mhz']:g} MHz ([spectra] fmin_mhz, fmax_mhz)")
+            lo, hi = cap.center_hz - half, cap.center_hz + half
+            covers = (f"{rec.source}: {cap.label} {cap.center_hz / 1e6:.6g} MHz at {rec.rate_hz:g} samples/s "
+                      f"covers {lo / 1e6:.6g} to {hi / 1e6:.6g} MHz")
+            if lo < sp["fmax_mhz"] * 1e6 and hi > sp["fmin_mhz"] * 1e6:
+                raise RxlogError(f"{covers}, too narrow to leave a usable FFT bin beyond [sweep] dc_cut_hz "
+                                 f"({ch.dc_cut_hz:g} Hz either side of the centre, the DC spike)")
+            raise RxlogError(f"{covers}, outside the station band {sp['fmin_mhz']:g}-{sp['fmax_mhz']:g} MHz "
+                             "([spectra] fmin_mhz, fmax_mhz)")
 
 
 class Dwell:
