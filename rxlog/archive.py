@@ -524,6 +524,12 @@ class _ForeignImage:
                              f"got CTYPE1={ctypes[0]!r}, CTYPE2={ctypes[1]!r}")
         self.ti, self.fi = time[0], freq[0]
         self.n_time, n_chan = int(h[f"NAXIS{self.ti}"]), int(h[f"NAXIS{self.fi}"])
+        info = hdu.fileinfo() or {}
+        size = getattr(info.get("file"), "size", 0)             # 0 for a gzipped file (checked unpacked)
+        tiled = isinstance(hdu, fits.CompImageHDU)               # stored size differs; bad tiles fail on reading
+        if size and not tiled and info["datLoc"] + hdu.size > size:
+            raise RxlogError(f"{path}: keywords BITPIX, NAXIS1, NAXIS2 declare {hdu.size} bytes of image data, "
+                             f"but the file ends {size - info['datLoc']} bytes after the header: it is cut short")
         if self.n_time < 1 or n_chan < 1:
             raise RxlogError(f"{path}: keyword NAXIS{self.ti if self.n_time < 1 else self.fi} = 0: "
                              "expected at least one spectrum and one channel")
@@ -608,8 +614,9 @@ def _check_cards(h, path) -> None:
         try:
             card.value
         except fits.VerifyError:
-            raise RxlogError(f"{path}: keyword {card.keyword}: value {card.image[10:].strip()[:30]!r} is not "
-                             "a FITS value (a number, 'quoted text', T or F)") from None
+            text = card.image[10:].split(" /")[0].strip()
+            raise RxlogError(f"{path}: keyword {card.keyword}: value {text[:30]} is not a FITS value "
+                             "(a number, 'quoted text', T or F)") from None
     if h.get("BITPIX") not in (8, 16, 32, 64, -32, -64):          # FITS Standard 4.0 Table 8
         raise RxlogError(f"{path}: keyword BITPIX = {h.get('BITPIX')!r}: expected 8, 16, 32, 64, -32 or -64")
 
@@ -620,7 +627,10 @@ def _check_axes(h, path, ti: int, fi: int, t: dict, freq_hz: np.ndarray, accepte
     problem = validate.cadence_problem(step)
     if problem:
         raise RxlogError(f"{path}: keyword {t_card}: {problem}")
-    df = float(freq_hz[1] - freq_hz[0]) if freq_hz.size > 1 else _axis_scale(h, fi, path)
+    if freq_hz.size > 1:
+        df = float(freq_hz[1] - freq_hz[0])
+    else:                                      # one channel: its width from the card (unit checked already)
+        df = _axis_scale(h, fi, path) * _FREQ_UNITS[str(h.get(f"CUNIT{fi}", "Hz")).strip().upper()]
     problem = validate.band_problem(float(freq_hz.min()) - abs(df) / 2, float(freq_hz.max()) + abs(df) / 2,
                                     accepted)
     if problem:
@@ -632,6 +642,18 @@ def _check_axes(h, path, ti: int, fi: int, t: dict, freq_hz: np.ndarray, accepte
     problem = validate.era_problem(min(t["t0"], t["t0"] + step * n_time), max(t["t0"], t["t0"] + step * n_time))
     if problem:
         raise RxlogError(f"{path}: keywords {t['origin']}, CRVAL{ti}, {t_card}: {problem}")
+
+
+@contextlib.contextmanager
+def _quiet_astropy():
+    """Reading a file from elsewhere, astropy warns about broken cards and short files on
+    the way; rxlog's own message says what is wrong, once."""
+    from astropy.utils.exceptions import AstropyUserWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", fits.verify.VerifyWarning)
+        warnings.simplefilter("ignore", AstropyUserWarning)
+        yield
 
 
 def _check_complete(path: Path) -> None:
@@ -698,13 +720,14 @@ def read_spectrum_fits(path) -> DynamicSpectrum:
     reached, time step, channel width, dates outside the receiver era)."""
     path = Path(path)
     _check_complete(path)
-    if _is_own(path):
-        sets = _read_file(path)
-        if len(sets) != 1:
-            raise RxlogError(f"{path}: holds {len(sets)} segments; read it with read_archive")
-        return sets[0][0]
-    with _open_foreign(path) as img:
-        return img.block(0, img.n_time)
+    with _quiet_astropy():
+        if _is_own(path):
+            sets = _read_file(path)
+            if len(sets) != 1:
+                raise RxlogError(f"{path}: holds {len(sets)} segments; read it with read_archive")
+            return sets[0][0]
+        with _open_foreign(path) as img:
+            return img.block(0, img.n_time)
 
 
 # --------------------------------------------------------------------------- runs
@@ -1162,8 +1185,13 @@ def ingest_fits(cfg, path, block_s: float = _HOUR) -> list[IngestSummary]:
     a refused or failed file leaves the archive byte for byte as it was.
     """
     path = Path(path)
-    accepted = validate.bands(cfg)
     _check_complete(path)
+    with _quiet_astropy():
+        return _ingest_checked_fits(cfg, path, block_s)
+
+
+def _ingest_checked_fits(cfg, path: Path, block_s: float) -> list[IngestSummary]:
+    accepted = validate.bands(cfg)
     if _is_own(path):
         digest = _file_digest(path)
         sets = [spec for spec, _l in _read_file(path)]
@@ -1236,12 +1264,25 @@ def staged_writer(cfg):
         raise RxlogError(f"{parent}: cannot make a staging folder for the ingest ({e.strerror or e}); "
                          "check free space and permissions") from None
     try:
-        w = ArchiveWriter(staging / "archive", cfg["station"], lossless=cfg["storage"]["lossless"])
+        with _os_errors_named(staging):
+            w = ArchiveWriter(staging / "archive", cfg["station"], lossless=cfg["storage"]["lossless"])
         yield w
-        w.close()
-        _commit(staging, cfg.archive_dir)
+        with _os_errors_named(staging):
+            w.close()
+        with _os_errors_named(cfg.archive_dir):
+            _commit(staging, cfg.archive_dir)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
+
+
+@contextlib.contextmanager
+def _os_errors_named(folder: Path):
+    """An OSError of the file system (no space, no permission) as an RxlogError naming the folder."""
+    try:
+        yield
+    except OSError as e:
+        raise RxlogError(f"{folder}: cannot store the ingested spectra ({e.strerror or e}); "
+                         "check free space and permissions; nothing was stored") from None
 
 
 def _remove_stale_staging(parent: Path) -> None:

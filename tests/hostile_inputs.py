@@ -158,6 +158,14 @@ def fits_gz_cut_short(folder):
     return path, [], ["partner-hour.fits.gz", "cut short"]
 
 
+def fits_card_unparsable(folder):
+    good = foreign_fits(folder / "good.fits").read_bytes()
+    i = good.index(b"CDELT2  =")
+    path = folder / "card.fits"
+    path.write_bytes(good[:i] + b"CDELT2  =                  NaX / spacing".ljust(80) + good[i + 80:])
+    return path, [], ["card.fits", "keyword CDELT2", "not a FITS value"]
+
+
 def fits_cut_short(folder):
     whole = foreign_fits(folder / "cut.fits").read_bytes()
     path = folder / "cut.fits"

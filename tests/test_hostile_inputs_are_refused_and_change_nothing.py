@@ -23,6 +23,7 @@ INGEST_CASES = {
     "fits year 1000": H.fits_year_1000,
     "fits.gz cut short": H.fits_gz_cut_short,
     "fits cut short": H.fits_cut_short,
+    "fits card value unparsable": H.fits_card_unparsable,
 }
 
 
