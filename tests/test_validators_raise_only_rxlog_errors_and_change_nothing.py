@@ -181,7 +181,7 @@ def fits_bytes(cards: dict, bitpix: int, n1: int, n2: int, values: str) -> bytes
     return text.encode("ascii") + data + b"\0" * (-len(data) % 2880)
 
 
-@settings(max_examples=150, **SETTINGS)
+@settings(max_examples=100, **SETTINGS)                 # each example writes, reads and may store a file
 @given(changes=st.dictionaries(st.sampled_from(sorted(GOOD_CARDS) + OTHER_KEYS), card_value, max_size=3),
        dropped=st.sets(st.sampled_from(sorted(GOOD_CARDS)), max_size=2),
        bitpix=st.sampled_from([-32, -32, -32, 16, 8, -64, 12]), n1=st.integers(0, 40), n2=st.integers(0, 12),
