@@ -38,18 +38,22 @@ from __future__ import annotations
 import contextlib
 import datetime as dt
 import fcntl
+import gzip
 import hashlib
 import math
 import os
 import re
+import shutil
+import tempfile
 import warnings
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 from astropy.io import fits
 
-from rxlog import __version__
+from rxlog import __version__, validate
 from rxlog.errors import RxlogError
 from rxlog.fileio import ensure_dir, fsync_dir, write_atomic
 from rxlog.spectrum import FLAG_GAP, FLAG_RETUNE, FLAG_RFI, FLAG_UNCOVERED, DynamicSpectrum
@@ -60,6 +64,11 @@ FORMAT = "rxlog-dynspec-1"          # value of RXFORMAT in the primary header of
 # where a 0.04-dB step would sit exactly on it. The int16 range is +-1307 dB.
 QUANT_STEP_DB = 0.0399
 BLANK = -32768                       # int16 value standing for NaN (FITS BLANK)
+# Largest |power| the quantised archive holds: 32767 steps of QUANT_STEP_DB. Power from
+# elsewhere beyond it would be clipped without a word; no receiver spans 1300 dB, so such
+# values are a wrong BUNIT or broken data and are refused.
+MAX_ABS_POWER_DB = 32767 * QUANT_STEP_DB
+FITS_BLOCK = 2880                    # FITS Standard 4.0 §3.1: a file is a sequence of 2880-byte blocks
 CHUNK_S = 60.0                       # longest stretch of spectra held in memory
 DEFAULT_FILL_S = 300.0               # read_archive fills gaps up to this long inside a segment
 
@@ -274,6 +283,8 @@ def _locked(root: Path):
 def _header_float(h, key: str, path) -> float:
     if key not in h:
         raise RxlogError(f"{path}: missing keyword {key}")
+    if isinstance(h[key], bool):
+        raise RxlogError(f"{path}: keyword {key} = {h[key]!r} is not a number")
     try:
         v = float(h[key])
     except (TypeError, ValueError):
@@ -311,7 +322,7 @@ def _read_file(path: Path) -> list[tuple[DynamicSpectrum, bool]]:
             if hdul[0].header.get("RXFORMAT") != FORMAT:
                 raise RxlogError(f"{path}: not an rxlog archive file (primary RXFORMAT is not {FORMAT!r})")
             return _own_sets(hdul, path)
-    except (OSError, KeyError, ValueError, TypeError, IndexError) as e:
+    except (OSError, KeyError, ValueError, TypeError, IndexError, fits.VerifyError) as e:
         raise RxlogError(f"{path}: unreadable archive file ({e})") from None
 
 
@@ -404,7 +415,11 @@ def _to_utc_offset(scale: str, t_ref: float, path, key: str) -> float:
                          "expected 'UTC' (or TAI, TT, GPS)")
     import erfa
 
-    d = dt.datetime(1970, 1, 1) + dt.timedelta(seconds=t_ref)
+    try:
+        d = dt.datetime(1970, 1, 1) + dt.timedelta(seconds=t_ref)
+    except (OverflowError, ValueError):
+        raise RxlogError(f"{path}: keyword {key} = {scale!r}: the reference time ({t_ref:g} s from 1970) "
+                         "has no calendar date; expected a time origin within the receiver era") from None
     tai_utc = float(erfa.dat(d.year, d.month, d.day, (d.hour * 3600 + d.minute * 60 + d.second) / 86400.0))
     return -(tai_utc + shift[scale])
 
@@ -430,7 +445,18 @@ def _time_axis(h, i: int, path) -> dict:
     first = ref + offs + crval * unit + (1.0 - crpix) * step        # world time of pixel 1
     first += _to_utc_offset(scale, ref, path, "TIMESYS" if ctype == "TIME" else f"CTYPE{i}")
     pixr = _opt_float(h, "TIMEPIXR", 0.5, path)                    # where in its bin a pixel's time sits
-    return {"t0": first - pixr * abs(step), "cadence": step, "origin": origin}
+    if not 0.0 <= pixr <= 1.0:
+        raise RxlogError(f"{path}: keyword TIMEPIXR = {pixr:g}: expected 0 to 1 (Paper VII)")
+    t0 = first - pixr * abs(step)
+    if not (math.isfinite(t0) and math.isfinite(step)):
+        raise RxlogError(f"{path}: keywords CRVAL{i}, {_scale_card(h, i)} and {origin}: the time axis "
+                         "does not give finite times")
+    return {"t0": t0, "cadence": step, "origin": origin}
+
+
+def _scale_card(h, i: int) -> str:
+    """The card that gives axis i's pixel spacing: CDi_i when a CD matrix is used, else CDELTi."""
+    return f"CD{i}_{i}" if f"CD{i}_{i}" in h else f"CDELT{i}"
 
 
 def _freq_axis(h, i: int, n: int, path) -> np.ndarray:
@@ -479,12 +505,13 @@ def _file_digest(path: Path) -> str:
 class _ForeignImage:
     """A 2-D FITS image with a FREQ and a TIME/UTC axis, read in blocks of rows."""
 
-    def __init__(self, hdul, path: Path):
+    def __init__(self, hdul, path: Path, accepted_bands: list[tuple[float, float]] | None = None):
         self.path = path
         hdu = next((x for x in hdul if x.is_image and x.header.get("NAXIS", 0) >= 2), None)
         if hdu is None:
             raise RxlogError(f"{path}: no image HDU with NAXIS = 2; expected a 2-D dynamic spectrum")
         h = hdu.header
+        _check_cards(h, path)
         if h["NAXIS"] != 2:
             raise RxlogError(f"{path}: keyword NAXIS = {h['NAXIS']}: expected a 2-D image (time x frequency)")
         self.hdu, self.header = hdu, h
@@ -497,9 +524,19 @@ class _ForeignImage:
                              f"got CTYPE1={ctypes[0]!r}, CTYPE2={ctypes[1]!r}")
         self.ti, self.fi = time[0], freq[0]
         self.n_time, n_chan = int(h[f"NAXIS{self.ti}"]), int(h[f"NAXIS{self.fi}"])
+        info = hdu.fileinfo() or {}
+        size = getattr(info.get("file"), "size", 0)             # 0 for a gzipped file (checked unpacked)
+        tiled = isinstance(hdu, fits.CompImageHDU)               # stored size differs; bad tiles fail on reading
+        if size and not tiled and info["datLoc"] + hdu.size > size:
+            raise RxlogError(f"{path}: keywords BITPIX, NAXIS1, NAXIS2 declare {hdu.size} bytes of image data, "
+                             f"but the file ends {size - info['datLoc']} bytes after the header: it is cut short")
+        if self.n_time < 1 or n_chan < 1:
+            raise RxlogError(f"{path}: keyword NAXIS{self.ti if self.n_time < 1 else self.fi} = 0: "
+                             "expected at least one spectrum and one channel")
         freq_hz = _freq_axis(h, self.fi, n_chan, path)
         t = _time_axis(h, self.ti, path)
         cad = t["cadence"]
+        _check_axes(h, path, self.ti, self.fi, t, freq_hz, accepted_bands or validate.bands())
         # Rows and channels in increasing order; remember where to read them from.
         self.t_flip = cad < 0
         self.f_flip = bool(freq_hz[-1] < freq_hz[0])
@@ -522,8 +559,12 @@ class _ForeignImage:
         """Rows i0..i1-1 (in increasing time, channels increasing) as float32 dB, NaN where no data."""
         n = self.n_time
         r0, r1 = (n - i1, n - i0) if self.t_flip else (i0, i1)
-        raw = self.hdu.section[:, r0:r1] if self.ti == 1 else self.hdu.section[r0:r1, :]
-        img = np.asarray(raw, dtype=np.float64)              # astropy applies BSCALE/BZERO, BLANK -> NaN
+        try:
+            raw = self.hdu.section[:, r0:r1] if self.ti == 1 else self.hdu.section[r0:r1, :]
+            img = np.asarray(raw, dtype=np.float64)          # astropy applies BSCALE/BZERO, BLANK -> NaN
+        except (OSError, EOFError, ValueError, TypeError, IndexError, KeyError, zlib.error) as e:
+            raise RxlogError(f"{self.path}: image data unreadable from spectrum {i0 + 1} on ({str(e)[:80]}); "
+                             "is the file cut short?") from None
         if self.ti == 1:
             img = img.T                                       # -> (time, freq)
         if self.t_flip:
@@ -533,6 +574,11 @@ class _ForeignImage:
         if not self.log_power:
             with np.errstate(divide="ignore", invalid="ignore"):
                 img = np.where(img > 0, 10.0 * np.log10(img), np.nan)   # zero/negative: no data
+        finite = np.isfinite(img)
+        if finite.any() and np.abs(img[finite]).max() > MAX_ABS_POWER_DB:
+            peak = np.abs(img[finite]).max()
+            raise RxlogError(f"{self.path}: power of {peak:.4g} dB in spectra {i0 + 1}-{i1}; expected at most "
+                             f"{MAX_ABS_POWER_DB:.0f} dB (keyword BUNIT: 'dB' for log power, else linear)")
         power = img.astype(np.float32)
         power[~np.isfinite(power)] = np.nan
         return power
@@ -545,6 +591,10 @@ class _ForeignImage:
             step = max(1, 4_000_000 // max(1, self.freq_hz.size))
             for i0 in range(0, self.n_time, step):
                 seen |= np.isfinite(self._power(i0, min(self.n_time, i0 + step))).any(axis=0)
+            if not seen.any():
+                what = "NaN or BLANK" if self.log_power else "NaN, zero or negative (linear power)"
+                raise RxlogError(f"{self.path}: no usable power value: every pixel is {what}; "
+                                 "expected a dynamic spectrum")
             self._uncovered = ~seen
         return self._uncovered
 
@@ -557,14 +607,85 @@ class _ForeignImage:
                                freq_hz=self.freq_hz, flags=flags, segment=self.segment, meta=dict(self.meta))
 
 
+def _check_cards(h, path) -> None:
+    """Every card's value must parse (FITS Standard 4.0 §4.2): astropy raises only when a
+    broken one is looked at, so look at all of them first."""
+    for card in h.cards:
+        try:
+            card.value
+        except fits.VerifyError:
+            text = card.image[10:].split(" /")[0].strip()
+            raise RxlogError(f"{path}: keyword {card.keyword}: value {text[:30]} is not a FITS value "
+                             "(a number, 'quoted text', T or F)") from None
+    if h.get("BITPIX") not in (8, 16, 32, 64, -32, -64):          # FITS Standard 4.0 Table 8
+        raise RxlogError(f"{path}: keyword BITPIX = {h.get('BITPIX')!r}: expected 8, 16, 32, 64, -32 or -64")
+
+
+def _check_axes(h, path, ti: int, fi: int, t: dict, freq_hz: np.ndarray, accepted) -> None:
+    """Refuse axes no dynamic spectrum of the band has: see rxlog.validate for the limits."""
+    step, f_card, t_card = t["cadence"], _scale_card(h, fi), _scale_card(h, ti)
+    problem = validate.cadence_problem(step)
+    if problem:
+        raise RxlogError(f"{path}: keyword {t_card}: {problem}")
+    if freq_hz.size > 1:
+        df = float(freq_hz[1] - freq_hz[0])
+    else:                                      # one channel: its width from the card (unit checked already)
+        df = _axis_scale(h, fi, path) * _FREQ_UNITS[str(h.get(f"CUNIT{fi}", "Hz")).strip().upper()]
+    problem = validate.band_problem(float(freq_hz.min()) - abs(df) / 2, float(freq_hz.max()) + abs(df) / 2,
+                                    accepted)
+    if problem:
+        raise RxlogError(f"{path}: keywords CRVAL{fi}, {f_card}, CUNIT{fi}: {problem}")
+    problem = validate.channel_problem(df, step)
+    if problem:
+        raise RxlogError(f"{path}: keyword {f_card}: {problem}")
+    n_time = int(h[f"NAXIS{ti}"])
+    problem = validate.era_problem(min(t["t0"], t["t0"] + step * n_time), max(t["t0"], t["t0"] + step * n_time))
+    if problem:
+        raise RxlogError(f"{path}: keywords {t['origin']}, CRVAL{ti}, {t_card}: {problem}")
+
+
 @contextlib.contextmanager
-def _open_foreign(path: Path):
+def _quiet_astropy():
+    """Reading a file from elsewhere, astropy warns about broken cards and short files on
+    the way; rxlog's own message says what is wrong, once."""
+    from astropy.utils.exceptions import AstropyUserWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", fits.verify.VerifyWarning)
+        warnings.simplefilter("ignore", AstropyUserWarning)
+        yield
+
+
+def _check_complete(path: Path) -> None:
+    """Refuse a FITS file (plain or gzip) that is cut short, before astropy reads it: astropy
+    silently drops HDUs missing from the end of a truncated .gz."""
+    try:
+        with open(path, "rb") as fh:
+            gz = fh.read(2) == b"\x1f\x8b"                  # gzip magic (RFC 1952 §2.3.1)
+        if gz:
+            n = 0
+            with gzip.open(path, "rb") as g:
+                for block in iter(lambda: g.read(1 << 20), b""):
+                    n += len(block)
+        else:
+            n = path.stat().st_size
+    except (EOFError, zlib.error, gzip.BadGzipFile) as e:
+        raise RxlogError(f"{path}: gzip data cut short or corrupt ({e}); expected a complete .fits.gz") from None
+    except OSError as e:
+        raise RxlogError(f"{path}: cannot read ({e.strerror or e})") from None
+    if n == 0 or n % FITS_BLOCK:
+        raise RxlogError(f"{path}: {n} bytes{' once unpacked' if gz else ''} is not a whole number of "
+                         f"{FITS_BLOCK}-byte FITS blocks (FITS Standard 4.0 §3.1): the file is cut short")
+
+
+@contextlib.contextmanager
+def _open_foreign(path: Path, accepted_bands: list[tuple[float, float]] | None = None):
     try:
         hdul = fits.open(path, memmap=False)              # sections read from the file, scaled
-    except (OSError, ValueError) as e:
+    except (OSError, EOFError, ValueError, zlib.error, fits.VerifyError) as e:
         raise RxlogError(f"{path}: cannot open as FITS ({e})") from None
     try:
-        yield _ForeignImage(hdul, path)
+        yield _ForeignImage(hdul, path, accepted_bands)
     finally:
         hdul.close()
 
@@ -576,7 +697,7 @@ def _is_own(path: Path) -> bool:
     try:
         with fits.open(path, memmap=True) as hdul:
             return hdul[0].header.get("RXFORMAT") == FORMAT
-    except (OSError, ValueError) as e:
+    except (OSError, EOFError, ValueError, zlib.error, fits.VerifyError) as e:
         raise RxlogError(f"{path}: cannot open as FITS ({e})") from None
 
 
@@ -594,15 +715,19 @@ def read_spectrum_fits(path) -> DynamicSpectrum:
     origin from MJDREF, MJDREFI+MJDREFF, JDREF or DATEREF; DATE-OBS as a fallback), in either
     axis order. BUNIT starting with 'dB' means log power; anything else is linear power and is
     converted to dB (zero or negative values become NaN with FLAG_GAP). OBSGEO-B/L/H (or -X/Y/Z)
-    give the site in ``meta``. Raises RxlogError naming the file and keyword when it cannot."""
+    give the site in ``meta``. Raises RxlogError naming the file and keyword when it cannot,
+    and for a foreign file whose axes fall outside ``rxlog.validate``'s limits (16-24 MHz not
+    reached, time step, channel width, dates outside the receiver era)."""
     path = Path(path)
-    if _is_own(path):
-        sets = _read_file(path)
-        if len(sets) != 1:
-            raise RxlogError(f"{path}: holds {len(sets)} segments; read it with read_archive")
-        return sets[0][0]
-    with _open_foreign(path) as img:
-        return img.block(0, img.n_time)
+    _check_complete(path)
+    with _quiet_astropy():
+        if _is_own(path):
+            sets = _read_file(path)
+            if len(sets) != 1:
+                raise RxlogError(f"{path}: holds {len(sets)} segments; read it with read_archive")
+            return sets[0][0]
+        with _open_foreign(path) as img:
+            return img.block(0, img.n_time)
 
 
 # --------------------------------------------------------------------------- runs
@@ -1102,24 +1227,196 @@ def ingest_fits(cfg, path, block_s: float = _HOUR) -> list[IngestSummary]:
     memory stays bounded. A file in rxlog's own layout (from a partner station) keeps its
     flags, channel table and segments. Segment ids start with the file's content hash, so
     ingesting a file twice stores it once. Returns one summary per stored segment.
+
+    The file is checked whole before it counts: complete (not cut short), axes within
+    ``rxlog.validate``'s limits and reaching 16-24 MHz or the station's band, dates in the
+    receiver era, some usable power. It is stored all or nothing (``staged_writer``):
+    a refused or failed file leaves the archive byte for byte as it was.
     """
     path = Path(path)
-    station, lossless = cfg["station"], cfg["storage"]["lossless"]
+    _check_complete(path)
+    with _quiet_astropy():
+        return _ingest_checked_fits(cfg, path, block_s)
+
+
+def _ingest_checked_fits(cfg, path: Path, block_s: float) -> list[IngestSummary]:
+    accepted = validate.bands(cfg)
     if _is_own(path):
         digest = _file_digest(path)
         sets = [spec for spec, _l in _read_file(path)]
-        with ArchiveWriter(cfg.archive_dir, station, lossless=lossless) as w:
+        if not sets:
+            raise RxlogError(f"{path}: an rxlog archive file without a POWER/FLAGS/CHANNELS set; "
+                             "expected at least one (is the file cut short?)")
+        for k, spec in enumerate(sets, start=1):
+            _check_own_set(spec, f"{path}: POWER extension {k}", accepted)
+        with staged_writer(cfg) as w:
             for spec in sets:
                 spec.segment = f"fits-{digest}:{spec.segment}"
                 spec.meta["source_file"] = _ascii(path.name)
                 w.write(spec)
         return [_summary(path, s.segment, s.t0, s.cadence_s, s.n_time, s.freq_hz) for s in sets]
-    with _open_foreign(path) as img:
+    with _open_foreign(path, accepted) as img:
+        img.uncovered()                      # reads every pixel once: cut-short data and empty images end here
         rows = max(1, int(block_s / img.cadence))
-        with ArchiveWriter(cfg.archive_dir, station, lossless=lossless) as w:
+        with staged_writer(cfg) as w:
             for i0 in range(0, img.n_time, rows):
                 w.write(img.block(i0, min(img.n_time, i0 + rows)))
         return [_summary(path, img.segment, img.t0, img.cadence, img.n_time, img.freq_hz)]
+
+
+def _check_own_set(spec: DynamicSpectrum, where: str, accepted) -> None:
+    """The checks of a foreign file's axes (``_check_axes``), for a set in rxlog's own layout."""
+    f = spec.freq_hz
+    problem = validate.cadence_problem(spec.cadence_s)
+    if problem:
+        raise RxlogError(f"{where}: keyword CDELT1: {problem}")
+    if not np.isfinite(f).all() or (f.size > 1 and not (np.diff(f) > 0).all()):
+        raise RxlogError(f"{where}: CHANNELS column FREQ: expected finite, increasing channel frequencies")
+    df = float(np.median(np.diff(f))) if f.size > 1 else validate.MAX_CHANNEL_HZ
+    problem = (validate.band_problem(float(f[0]) - df / 2, float(f[-1]) + df / 2, accepted)
+               or validate.channel_problem(df, spec.cadence_s))
+    if problem:
+        raise RxlogError(f"{where}: CHANNELS column FREQ: {problem}")
+    if not np.isfinite(spec.chan_offset_s).all():
+        raise RxlogError(f"{where}: CHANNELS column CHAN_OFFSET: expected finite seconds")
+    problem = validate.era_problem(spec.t0, spec.t_end)
+    if problem:
+        raise RxlogError(f"{where}: keywords MJDREFI, MJDREFF, CRVAL1: {problem}")
+    finite = np.isfinite(spec.power_db)
+    if not finite.any():
+        raise RxlogError(f"{where}: no usable power value (all NaN); expected a dynamic spectrum")
+    if np.abs(spec.power_db[finite]).max() > MAX_ABS_POWER_DB:
+        raise RxlogError(f"{where}: power beyond {MAX_ABS_POWER_DB:.0f} dB; expected log power in dB")
+
+
+# --------------------------------------------------------------------------- ingest: all or nothing
+
+_STAGING_PREFIX = ".rxlog-ingest-"
+
+
+@contextlib.contextmanager
+def staged_writer(cfg):
+    """An ArchiveWriter for one ingested file, which stores all of it or nothing.
+
+    Spectra go to a private staging archive: in the storage root (the archive's own file
+    system) when it exists, else in the temporary folder. Only when the ``with`` block ends
+    without an error are its hour files merged into the station archive, under the archive
+    lock, each by the crash-safe write (``_commit``); a failure part way puts back every
+    hour already merged. A failure before that never touched the archive at all.
+    """
+    root = cfg.storage_root
+    parent = root if root.is_dir() else Path(tempfile.gettempdir())
+    _remove_stale_staging(parent)
+    try:
+        staging = Path(tempfile.mkdtemp(prefix=f"{_STAGING_PREFIX}{os.getpid()}-", dir=parent))
+    except OSError as e:
+        raise RxlogError(f"{parent}: cannot make a staging folder for the ingest ({e.strerror or e}); "
+                         "check free space and permissions") from None
+    try:
+        with _os_errors_named(staging):
+            w = ArchiveWriter(staging / "archive", cfg["station"], lossless=cfg["storage"]["lossless"])
+        yield w
+        with _os_errors_named(staging):
+            w.close()
+        with _os_errors_named(cfg.archive_dir):
+            _commit(staging, cfg.archive_dir)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+
+
+@contextlib.contextmanager
+def _os_errors_named(folder: Path):
+    """An OSError of the file system (no space, no permission) as an RxlogError naming the folder."""
+    try:
+        yield
+    except OSError as e:
+        raise RxlogError(f"{folder}: cannot store the ingested spectra ({e.strerror or e}); "
+                         "check free space and permissions; nothing was stored") from None
+
+
+def _remove_stale_staging(parent: Path) -> None:
+    """Delete staging folders of ingests whose process is gone (killed part way)."""
+    for entry in parent.glob(f"{_STAGING_PREFIX}*"):
+        m = re.match(rf"{re.escape(_STAGING_PREFIX)}(\d+)-", entry.name)
+        if not (m and entry.is_dir()):
+            continue
+        try:
+            os.kill(int(m.group(1)), 0)
+        except ProcessLookupError:
+            shutil.rmtree(entry, ignore_errors=True)
+        except (PermissionError, OverflowError):
+            pass                               # alive under another user, or not a pid of ours
+
+
+def _commit(staging: Path, root: Path) -> None:
+    """Merge the hour files of a closed staging archive into ``root``, all or nothing.
+
+    Each staged hour is merged with the archive's hour file, if there is one (rows already
+    there are taken once, as in consolidation), or copied in. The archive's previous
+    version of every hour is kept (a hard link, else a copy) until all hours are in;
+    any failure restores them and removes new files and folders.
+    """
+    staged = [(p, name, hour) for p, name, hour, chunk in _archive_files(staging / "archive") if not chunk]
+    if not staged:
+        return
+    keep = staging / "previous"
+    keep.mkdir()
+    undo: list[tuple[Path, Path | None, list[Path]]] = []      # (hour file, previous version, new folders)
+    with _locked(root):
+        try:
+            for k, (path, name, hour) in enumerate(staged):
+                sub, stem = _hour_stem(name, hour)
+                target = root / sub / f"{stem}.fits"
+                if target.exists():
+                    previous = keep / f"{k}.fits"
+                    _keep_copy(target, previous)
+                    undo.append((target, previous, []))
+                    runs = _merge(_read_file(target) + _read_file(path))
+                    station = {"name": name}
+                    hdus = [_primary(station, "hour")]
+                    for ver, (spec, lossless) in enumerate(runs, start=1):
+                        hdus += _hdu_set(spec, station, lossless, ver)
+                    _write_atomic(target, hdus)
+                else:
+                    new = [d for d in (target.parent, target.parent.parent, target.parent.parent.parent)
+                           if not d.exists()]
+                    undo.append((target, None, new))
+                    write_atomic(target, lambda fh, src=path: _copy_file(src, fh), what="archive file")
+        except BaseException:
+            _undo(undo)
+            raise
+
+
+def _keep_copy(src: Path, dst: Path) -> None:
+    try:
+        os.link(src, dst)
+    except OSError:
+        shutil.copy2(src, dst)
+
+
+def _copy_file(src: Path, fh) -> None:
+    with open(src, "rb") as f:
+        shutil.copyfileobj(f, fh, 1 << 20)
+
+
+def _undo(undo: list[tuple[Path, Path | None, list[Path]]]) -> None:
+    """Put the archive's hour files back as they were before a failed commit."""
+    for target, previous, new_dirs in reversed(undo):
+        try:
+            if previous is None:
+                target.unlink(missing_ok=True)
+                for d in new_dirs:                  # deepest first; only empty ones go
+                    with contextlib.suppress(OSError):
+                        d.rmdir()
+            else:
+                try:
+                    os.replace(previous, target)
+                except OSError:                     # another file system: copy the bytes back
+                    write_atomic(target, previous.read_bytes(), what="archive file")
+            if target.parent.is_dir():
+                fsync_dir(target.parent)
+        except (OSError, RxlogError) as e:
+            warnings.warn(f"{target}: could not be put back after a failed ingest ({e})", RuntimeWarning)
 
 
 def _summary(path, segment, t0, cadence, n_time, freq_hz) -> IngestSummary:

@@ -599,6 +599,7 @@ def spectra_from_recording(cfg, path, progress=None, *, fmt=None, rate_hz=None, 
 
     rec = open_recording(path, fmt=fmt, rate_hz=rate_hz, center_hz=center_hz, start=start)
     ch = Channelizer(cfg, ring_s=0)
+    _check_reaches_band(rec, ch, cfg)
     meta = rec.meta()
     total, done = rec.n_samples, 0
     with rec:
@@ -615,6 +616,24 @@ def spectra_from_recording(cfg, path, progress=None, *, fmt=None, rate_hz=None, 
             if progress is not None:
                 progress(done, total)
         yield from ch.flush()
+
+
+def _check_reaches_band(rec, ch: Channelizer, cfg) -> None:
+    """Every tuning of a recording must feed some channel of the station grid: one that
+    feeds none would give nothing at all, which is an error in its description (or the
+    wrong recording), not a short file."""
+    sp = cfg["spectra"]
+    for cap in rec.captures:
+        if ch.channel_map(cap.center_hz, rec.rate_hz).chans.size == 0:
+            half = ch.usable_fraction * rec.rate_hz / 2
+            lo, hi = cap.center_hz - half, cap.center_hz + half
+            covers = (f"{rec.source}: {cap.label} {cap.center_hz / 1e6:.6g} MHz at {rec.rate_hz:g} samples/s "
+                      f"covers {lo / 1e6:.6g} to {hi / 1e6:.6g} MHz")
+            if lo < sp["fmax_mhz"] * 1e6 and hi > sp["fmin_mhz"] * 1e6:
+                raise RxlogError(f"{covers}, too narrow to leave a usable FFT bin beyond [sweep] dc_cut_hz "
+                                 f"({ch.dc_cut_hz:g} Hz either side of the centre, the DC spike)")
+            raise RxlogError(f"{covers}, outside the station band {sp['fmin_mhz']:g}-{sp['fmax_mhz']:g} MHz "
+                             "([spectra] fmin_mhz, fmax_mhz)")
 
 
 class Dwell:
@@ -692,17 +711,21 @@ def ingest_recording(cfg, path, progress=None, *, fmt=None, rate_hz=None, center
     """Channelize a recording onto the station grid and append it to the station archive.
 
     The same channelizer as the live logger (``[sweep]`` FFT settings, ``[spectra]`` grid
-    and cadence); each tuning of the recording is a segment of its own.
+    and cadence); each tuning of the recording is a segment of its own. The recording's
+    description is checked whole before a sample is read (``open_recording``, and every
+    tuning must reach the station band), and the spectra are stored all or nothing
+    (``rxlog.archive.staged_writer``): a refused or failed recording leaves the archive
+    as it was.
     """
-    from rxlog.archive import ArchiveWriter
+    from rxlog.archive import staged_writer
 
     segments, rows, t0, t_end = [], 0, math.inf, -math.inf
     spectra = spectra_from_recording(cfg, path, progress, fmt=fmt, rate_hz=rate_hz, center_hz=center_hz,
                                      start=start, chunk_samples=chunk_samples)
-    first = next(spectra, None)          # open and check the recording before touching the archive
+    first = next(spectra, None)          # open and check the recording before staging anything
     if first is None:
         raise RxlogError(f"{path}: too short for one {cfg['spectra']['cadence_s']:g}-s spectrum; nothing stored")
-    with ArchiveWriter(cfg.archive_dir, cfg["station"], lossless=cfg["storage"]["lossless"]) as w:
+    with staged_writer(cfg) as w:
         for ds in itertools.chain([first], spectra):
             w.write(ds)
             rows += ds.n_time

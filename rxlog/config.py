@@ -12,6 +12,7 @@ also documents ``config/station.example.toml``.
 from __future__ import annotations
 
 import difflib
+import math
 import os
 import re
 import tomllib
@@ -22,6 +23,7 @@ from typing import Any, Callable
 
 from rxlog import rfi as _rfi
 from rxlog import ephemeris as _ephemeris
+from rxlog import validate
 
 REQUIRED = object()
 
@@ -55,6 +57,10 @@ def _timezone_check(value: str) -> list[str]:
 
 
 NUMBER = (int, float)
+
+# Characters no config value has a use for: NUL and the other C0 controls (tab, line feed
+# and carriage return allowed in free text), DEL. A NUL in a path makes every file call fail.
+_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
 
 SCHEMA: dict[str, dict[str, Key]] = {
     "station": {
@@ -91,21 +97,24 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "recording_path": Key(str, "", help="recording: SigMF or raw file to replay; relative to this file"),
         "recording_format": Key(str, "sigmf", choices=("sigmf", "cu8", "ci8", "ci16_le", "cf32_le"),
                                 help="recording: SigMF, or the sample format of a raw file"),
-        "recording_center_hz": Key(NUMBER, 0.0, min=0, help="recording (raw): centre frequency, Hz"),
+        "recording_center_hz": Key(NUMBER, 0.0, min=0, max=2e9, help="recording (raw): centre frequency, Hz"),
         "recording_start_utc": Key(str, "", help="recording (raw): ISO 8601 UTC time of the first sample"),
         "sim_rfi": Key(str, "rural", choices=("quiet-rural", "rural", "residential", "city"),
                        help="simulated: man-made noise category (ITU-R P.372) and its local interference"),
         "sim_seed": Key(int, 0, min=0, help="simulated: seed of the simulated sky and noise (same seed, same sky)"),
     },
     "spectra": {
-        "fmin_mhz": Key(NUMBER, 16.0, min=1, max=60, help="Lower band edge, MHz"),
-        "fmax_mhz": Key(NUMBER, 24.0, min=1, max=60, help="Upper band edge, MHz"),
+        "fmin_mhz": Key(NUMBER, 16.0, min=validate.MIN_BAND_MHZ, max=validate.MAX_BAND_MHZ,
+                        help="Lower band edge, MHz"),
+        "fmax_mhz": Key(NUMBER, 24.0, min=validate.MIN_BAND_MHZ, max=validate.MAX_BAND_MHZ,
+                        help="Upper band edge, MHz"),
         "channels": Key(int, 1024, min=8, max=65536, help="Number of equal channels across the band"),
         "cadence_s": Key(NUMBER, 1.0, min=1e-4, max=600, help="Seconds between archived spectra"),
     },
     "storage": {
         "root": Key(str, "data", help="Folder for archive, event store and reports; relative to this file"),
-        "retention_days": Key(NUMBER, 90, min=0.01, help="Delete archived spectra older than this many days"),
+        # at most 100,000 days (~270 years): "keep everything", while the cut-off date stays a date
+        "retention_days": Key(NUMBER, 90, min=0.01, max=1e5, help="Delete archived spectra older than this many days"),
         "lossless": Key(bool, False, help="Store float32 power exactly (~200 MB/day) instead of 0.0399-dB steps (~49 MB/day)"),
     },
     "sweep": {
@@ -115,8 +124,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                           check=lambda v: [] if all(isinstance(f, (int, float)) and not isinstance(f, bool)
                                                     and 1e5 <= f <= 2e9 for f in v)
                           else ["expected a list of centre frequencies in Hz, e.g. [17e6, 19e6]"]),
-        "step_hz": Key(NUMBER, 0.0, min=0, help="Spacing of automatic tunings, Hz (0: as few windows as cover the band)"),
-        "center_hz": Key(NUMBER, 0.0, min=0, help="single: window centre, Hz (0: the middle of the band)"),
+        # frequencies in Hz up to 2e9 as tunings_hz: above any RTL-SDR tuner (~1.77 GHz)
+        "step_hz": Key(NUMBER, 0.0, min=0, max=2e9, help="Spacing of automatic tunings, Hz (0: as few windows as cover the band)"),
+        "center_hz": Key(NUMBER, 0.0, min=0, max=2e9, help="single: window centre, Hz (0: the middle of the band)"),
         "cycle_s": Key(NUMBER, 1.0, min=0.01, max=600, help="sweep: seconds per pass over all tunings"),
         "discard_s": Key(NUMBER, 0.01, min=0, max=10, help="Samples thrown away after each retune, seconds (rounded up to buffers)"),
         "buffer_samples": Key(int, 16384, min=256, max=1 << 22,
@@ -293,12 +303,19 @@ def validate(data: dict, path: str | os.PathLike = "<config>", text: str = "") -
             if not _is_type(value, spec.type):
                 problems.append(f"{at(section, key)}: expected {_type_name(spec.type)}, got {value!r}")
                 continue
+            if isinstance(value, float) and not math.isfinite(value):
+                problems.append(f"{at(section, key)}: expected a finite number, got {value!r}")
+                continue
+            if isinstance(value, str) and _CONTROL.search(value):
+                problems.append(f"{at(section, key)}: control character "
+                                f"{_CONTROL.search(value).group()!r} in {value!r}; expected plain text")
+                continue
             if spec.choices is not None and value not in spec.choices:
                 problems.append(f"{at(section, key)}: expected one of {', '.join(map(repr, spec.choices))}, got {value!r}")
                 continue
             if spec.min is not None and value < spec.min or spec.max is not None and value > spec.max:
-                lo = "" if spec.min is None else f"{spec.min}"
-                hi = "" if spec.max is None else f"{spec.max}"
+                lo = "" if spec.min is None else f"{spec.min:g}"
+                hi = "" if spec.max is None else f"{spec.max:g}"
                 rng = f"between {lo} and {hi}" if lo and hi else (f"at least {lo}" if lo else f"at most {hi}")
                 problems.append(f"{at(section, key)}: out of range, expected {rng}, got {value!r}")
                 continue
@@ -324,7 +341,12 @@ def validate(data: dict, path: str | os.PathLike = "<config>", text: str = "") -
         problems.append(f"{at('spectra', 'fmax_mhz')}: expected fmax_mhz above fmin_mhz "
                         f"({sp['fmin_mhz']} >= {sp['fmax_mhz']})")
     for check in CROSS_CHECKS:
-        problems.extend(check(out, at))
+        try:
+            problems.extend(check(out, at))
+        except KeyError:
+            if not problems:
+                raise
+            # a key the check needs is invalid, and already reported
     return out, problems
 
 
@@ -401,7 +423,26 @@ def load_config(path: str | os.PathLike | None) -> Config:
     cfg.path = p.resolve()
     root = Path(os.path.expanduser(cfg["storage"]["root"]))
     cfg.storage_root = root if root.is_absolute() else (cfg.path.parent / root)
+    problem = _root_problem(cfg["storage"]["root"], cfg.storage_root)
+    if problem:
+        n = _key_lines(text).get(("storage", "root")) or _key_lines(text).get(("storage", ""))
+        raise ConfigError([f"{p}:{n}: [storage] root: {problem}" if n else f"{p}: [storage] root: {problem}"])
     return cfg
+
+
+def _root_problem(text: str, root: Path) -> str | None:
+    """What is wrong with the storage root as a folder to create or use, or None."""
+    if not text.strip():
+        return 'empty; expected the folder for archive, event store and reports, e.g. root = "data"'
+    try:
+        for folder in (root, *root.parents):
+            if folder.exists():
+                if not folder.is_dir():
+                    return f"{folder} is a file, not a folder; expected a folder (existing or to be created)"
+                return None
+    except OSError as e:
+        return f"{root}: unusable as a folder ({e.strerror or e})"
+    return None
 
 
 def config_from_text(text: str, path: str | os.PathLike) -> Config:

@@ -35,7 +35,7 @@ from pathlib import Path
 
 import numpy as np
 
-from rxlog import __version__
+from rxlog import __version__, validate
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
 from rxlog.store import CLASSES, LABELS, EventStore
@@ -100,6 +100,31 @@ HEADER = {
 STATION_NAME = re.compile(r"[A-Za-z0-9_-]{1,40}")
 # Times as rxlog writes them (rxlog.timeutil.iso); others are rewritten in this form.
 CANONICAL_TIME = re.compile(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d\.\d{3}Z")
+
+# Ranges of numbers on import (inclusive). Frequencies: the band an rxlog station can be
+# configured for ([spectra] fmin_mhz, fmax_mhz); angles by their definitions; the site as
+# [station] accepts it; cadence as rxlog.validate. A row with a value outside is skipped
+# with a notice, a header value outside is ignored with a notice, as for a wrong type.
+COLUMN_RANGES = {
+    "fmin_mhz": (validate.MIN_BAND_MHZ, validate.MAX_BAND_MHZ),
+    "fmax_mhz": (validate.MIN_BAND_MHZ, validate.MAX_BAND_MHZ),
+    "confidence": (0.0, 1.0),
+    "cml3_deg": (0.0, 360.0),
+    "io_phase_deg": (0.0, 360.0),
+    "jupiter_alt_deg": (-90.0, 90.0),
+    "sun_alt_deg": (-90.0, 90.0),
+}
+HEADER_RANGES = {
+    "latitude_deg": (-90.0, 90.0),
+    "longitude_deg": (-180.0, 180.0),
+    "elevation_m": (-500.0, 9000.0),
+    "band_fmin_mhz": (validate.MIN_BAND_MHZ, validate.MAX_BAND_MHZ),
+    "band_fmax_mhz": (validate.MIN_BAND_MHZ, validate.MAX_BAND_MHZ),
+    "channels": (1, 1 << 20),
+    "cadence_s": (validate.MIN_CADENCE_S, validate.MAX_CADENCE_S),
+    "n_events": (0, 1 << 40),
+    "format_version": (1, 1 << 20),
+}
 
 # Limits that keep a hostile or broken file from exhausting memory (our own choice: a
 # year of events of a busy station is a few MB).
@@ -569,8 +594,15 @@ def _cell(v, kind: str):
     return _convert(v, kind)
 
 
-def _event(cells: dict) -> dict:
-    """Typed, checked event from raw cells of the known columns; ValueError names the problem."""
+def _era_text() -> tuple[str, str]:
+    """The receiver era as canonical time text (which sorts in time order)."""
+    return iso(validate.ERA_START), iso(validate.era_end())
+
+
+def _event(cells: dict, era: tuple[str, str]) -> dict:
+    """Typed, checked event from raw cells of the known columns; ValueError names the problem.
+
+    ``era``: ``_era_text()``, the first and last times accepted."""
     ev = {}
     for name, kind in KIND.items():
         try:
@@ -580,13 +612,20 @@ def _event(cells: dict) -> dict:
     for name in REQUIRED:
         if ev[name] is None:
             raise ValueError(f"{name}: empty; a value is required")
+    for name, (lo, hi) in COLUMN_RANGES.items():
+        v = ev[name]
+        if v is not None and not lo <= v <= hi:
+            raise ValueError(f"{name} {v:g}: expected {lo:g} to {hi:g}")
+    for name in ("start_utc", "end_utc", "peak_utc"):
+        t = ev[name]
+        if not (CANONICAL_TIME.fullmatch(t) and era[0] <= t <= era[1]):   # in-era years have 4 digits
+            raise ValueError(f"{name} {t}: outside the receiver era, {era[0][:10]} to {era[1][:10]} "
+                             "(a wrong epoch or clock?)")
     if ev["class"] not in CLASSES:
         raise ValueError(f"class: unknown class {_short(ev['class'])}; expected one of {', '.join(CLASSES)}")
     if ev["label"] is not None and ev["label"] not in LABELS:
         raise ValueError(f"label: unknown label {_short(ev['label'])}; expected one of {', '.join(LABELS)}")
     t0, t1, tp = (ev[k] for k in ("start_utc", "end_utc", "peak_utc"))
-    if not all(CANONICAL_TIME.fullmatch(t) for t in (t0, t1, tp)):  # years outside 1000-9999
-        t0, t1, tp = (parse_iso(t) for t in (t0, t1, tp))
     # Canonical times (same width, zero-padded) sort as text in time order.
     if t1 < t0:
         raise ValueError(f"end_utc {ev['end_utc']} is before start_utc {ev['start_utc']}")
@@ -594,8 +633,6 @@ def _event(cells: dict) -> dict:
         raise ValueError(f"peak_utc {ev['peak_utc']} is outside start_utc..end_utc")
     if not 0 < ev["fmin_mhz"] <= ev["fmax_mhz"]:
         raise ValueError(f"fmin_mhz {ev['fmin_mhz']} and fmax_mhz {ev['fmax_mhz']}: expected 0 < fmin <= fmax")
-    if ev["confidence"] is not None and not 0 <= ev["confidence"] <= 1:
-        raise ValueError(f"confidence {ev['confidence']}: expected 0-1")
     if ev["station"] is not None and not STATION_NAME.fullmatch(ev["station"]):
         raise ValueError(f"station {_short(ev['station'])}: expected 1-40 letters, digits, '-' or '_'")
     return ev
@@ -608,10 +645,25 @@ def _header(raw: dict, where: str, notices: list[str]) -> dict:
         if key not in raw:
             continue
         try:
-            out[key] = _convert(raw[key], kind)
+            out[key] = _header_value(key, _convert(raw[key], kind))
         except ValueError as e:
             notices.append(f"{where}: header {key}: {e}; ignored")
     return out
+
+
+def _header_value(key: str, v):
+    """A typed header value checked against HEADER_RANGES and the receiver era; ValueError if outside."""
+    if v is None:
+        return v
+    if key in HEADER_RANGES:
+        lo, hi = HEADER_RANGES[key]
+        if not lo <= v <= hi:
+            raise ValueError(f"{v:g} is out of range, expected {lo:g} to {hi:g}")
+    elif HEADER[key][0] == "time":
+        problem = validate.era_problem(parse_iso(v))
+        if problem:
+            raise ValueError(f"{v}: {problem}")
+    return v
 
 
 def _read_csv(p: Path, data: bytes):
@@ -793,9 +845,10 @@ def _finish(p: Path, fmt: str, header_raw: dict, rows: list[tuple[str, dict]], p
         raise RxlogError(f"{where}: header station {_short(station)}: expected 1-40 letters, digits, '-' or '_'")
     events: list[dict] = []
     seen: dict[str, str] = {}
+    era = _era_text()
     for loc, cells in rows:
         try:
-            ev = _event(cells)
+            ev = _event(cells, era)
         except ValueError as e:
             problems.row(loc, str(e))
             continue

@@ -39,6 +39,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rxlog import validate
 from rxlog.errors import RxlogError
 from rxlog.timeutil import parse_iso
 
@@ -728,6 +729,7 @@ class Capture:
     t0: float                # POSIX seconds UTC of sample_start
     segment: str
     dropped_before: int = 0  # samples missing before this capture (from its start time)
+    label: str = "--center"  # what gave its frequency, for messages ("captures[2] core:frequency")
 
 
 @dataclass
@@ -757,11 +759,13 @@ class RecordingSource:
 
     kind = "recording"
 
-    def __init__(self, data_path, fmt: str, rate_hz: float, captures: list[Capture], gain_db: float = math.nan):
+    def __init__(self, data_path, fmt: str, rate_hz: float, captures: list[Capture], gain_db: float = math.nan,
+                 source=None):
         if fmt not in FORMATS:
             raise RxlogError(f"{data_path}: sample format {fmt!r} not supported; expected one of "
                              f"{', '.join(FORMATS)}")
         self.data_path = Path(data_path)
+        self.source = Path(source or data_path)      # the file that describes it (SigMF metadata)
         self.fmt = fmt
         self.rate_hz = float(rate_hz)
         self.captures = captures
@@ -796,8 +800,11 @@ class RecordingSource:
         return self.n_samples / self.rate_hz
 
     def open(self) -> None:
-        if not self.data_path.is_file():
-            raise RxlogError(f"{self.data_path}: recording data file not found")
+        try:
+            with open(self.data_path, "rb"):
+                pass
+        except OSError as e:
+            raise RxlogError(f"{self.data_path}: cannot read the recording ({e.strerror or e})") from None
         self._k, self._pos = 0, 0
         self.is_open = True
 
@@ -817,7 +824,11 @@ class RecordingSource:
         cap = self.captures[self._k]
         n = int(min(n_samples, cap.n_samples - self._pos))
         offset = cap.byte_offset + self._pos * self.bytes_per_sample
-        data = np.memmap(self.data_path, dtype=self._dtype, mode="r", offset=offset, shape=(2 * n,))
+        try:
+            data = np.memmap(self.data_path, dtype=self._dtype, mode="r", offset=offset, shape=(2 * n,))
+        except (OSError, ValueError) as e:      # shortened or removed while being read
+            raise RxlogError(f"{self.data_path}: cannot read samples at byte {offset} ({e}); "
+                             "was the file changed while it was read?") from None
         chunk = RawChunk(data, self.fmt, cap.t0 + self._pos / self.rate_hz, cap.center_hz, self.rate_hz,
                          cap.segment, cap.dropped_before if self._pos == 0 else 0)
         self._pos += n
@@ -852,13 +863,27 @@ def _sigmf_paths(path: Path) -> tuple[Path, Path] | None:
     return None
 
 
+# A .sigmf-meta larger than this is refused unread: a whole day retuned every second is
+# ~10 MB of JSON, so anything bigger is not metadata.
+MAX_SIGMF_META_BYTES = 64 * 1024 * 1024
+
+# A capture may start up to this long before the previous one ends by its sample count:
+# recorders stamp core:datetime from the host clock when the retune is asked for, while
+# librtlsdr still holds ~0.8 s of queued buffers (15 x 256 KiB at 2.4 MS/s). More overlap
+# than this is not a clock quirk but captures out of order.
+CAPTURE_OVERLAP_S = 1.0
+
+
 def open_recording(path, fmt: str | None = None, rate_hz: float | None = None,
                    center_hz: float | None = None, start=None) -> RecordingSource:
     """A SigMF recording (``x.sigmf-meta`` / ``x.sigmf-data``) or a raw I/Q file.
 
     Raw files need ``fmt`` (cu8, ci8, ci16_le, cf32_le), ``rate_hz``, ``center_hz`` and
     ``start`` (ISO 8601 UTC text or POSIX seconds). For SigMF, ``start`` (if given)
-    overrides the first capture's ``core:datetime``.
+    overrides the first capture's ``core:datetime``. Everything the description says is
+    checked here, before a sample is read: types, finite values, rates and frequencies in
+    range (``rxlog.validate``), times within the receiver era, and the data file's length
+    against the metadata. RxlogError names the file and the key or option.
     """
     path = Path(path)
     if fmt in (None, "", "sigmf"):
@@ -868,76 +893,118 @@ def open_recording(path, fmt: str | None = None, rate_hz: float | None = None,
         if fmt == "sigmf":
             raise RxlogError(f"{path}: no SigMF metadata ({path.name}.sigmf-meta) found")
     missing = [opt for opt, v in (("--format", fmt), ("--rate", rate_hz), ("--center", center_hz),
-                                  ("--start", start)) if v in (None, "")]
+                                  ("--start", start)) if v is None or (isinstance(v, str) and not v)]
     if missing:
         raise RxlogError(f"{path}: a raw recording (not SigMF) needs {', '.join(missing)} "
                          "(sample format, sample rate in Hz, centre frequency in Hz, start time in UTC)")
-    if fmt not in FORMATS:
+    if not isinstance(fmt, str) or fmt not in FORMATS:
         raise RxlogError(f"{path}: --format {fmt!r} not supported; expected one of {', '.join(FORMATS)}")
     if not path.is_file():
         raise RxlogError(f"{path}: recording not found")
     t0 = _start_time(start, f"{path}: --start")
+    rate = validate.number(rate_hz, f"{path}: --rate", validate.MIN_RATE_HZ, validate.MAX_RATE_HZ,
+                           "a sample rate in Hz")
+    center = validate.number(center_hz, f"{path}: --center", 1.0, validate.MAX_TUNING_HZ,
+                             "a centre frequency in Hz")
     bps = 2 * FORMATS[fmt][0].itemsize
-    n = path.stat().st_size // bps
+    size = path.stat().st_size
+    if size % bps:
+        raise RxlogError(f"{path}: {size} bytes is not a whole number of {fmt} samples ({bps} bytes each); "
+                         "is --format right, or is the file cut short?")
+    n = size // bps
     if n == 0:
         raise RxlogError(f"{path}: no complete {fmt} sample in the file")
-    if not rate_hz or rate_hz <= 0:
-        raise RxlogError(f"{path}: --rate must be a positive sample rate in Hz, got {rate_hz!r}")
-    cap = Capture(0, n, 0, float(center_hz), t0, f"rec-{path.stem}-0")
-    return RecordingSource(path, fmt, float(rate_hz), [cap])
+    validate.check_era(t0, t0 + n / rate, f"{path}: --start")
+    cap = Capture(0, n, 0, center, t0, f"rec-{path.stem}-0")
+    return RecordingSource(path, fmt, rate, [cap])
 
 
 def _start_time(start, what: str) -> float:
-    if isinstance(start, (int, float)):
-        return float(start)
+    if validate.is_number(start):
+        t = float(start)
+    else:
+        try:
+            t = parse_iso(start)
+        except (TypeError, ValueError, OverflowError) as e:
+            raise RxlogError(f"{what}: {e}") from None
+    validate.check_era(t, None, what)
+    return t
+
+
+def _read_sigmf_json(meta_path: Path):
+    where = str(meta_path)
     try:
-        return parse_iso(start)
-    except ValueError as e:
-        raise RxlogError(f"{what}: {e}") from None
+        size = meta_path.stat().st_size
+        if size > MAX_SIGMF_META_BYTES:
+            raise RxlogError(f"{where}: {size / 2**20:.0f} MB is too large for SigMF metadata "
+                             f"(limit {MAX_SIGMF_META_BYTES // 2**20} MB)")
+        return json.loads(meta_path.read_bytes().decode("utf-8"))
+    except FileNotFoundError:
+        raise RxlogError(f"{where}: SigMF metadata file not found") from None
+    except (OSError, UnicodeDecodeError, RecursionError, ValueError) as e:   # JSONDecodeError is a ValueError
+        raise RxlogError(f"{where}: unreadable SigMF metadata ({str(e)[:120]}); expected JSON text") from None
+
+
+def _optional_whole(c: dict, key: str, where: str) -> int:
+    """A SigMF byte count that may be absent (or null): 0 then."""
+    v = c.get(key)
+    return 0 if v is None else validate.whole(v, f"{where} {key}")
 
 
 def _open_sigmf(meta_path: Path, data_path: Path, start=None) -> RecordingSource:
-    """Read SigMF metadata (core namespace) into captures. The sigmf package is not needed."""
+    """Read SigMF metadata (core namespace) into captures. The sigmf package is not needed.
+
+    The whole description is checked before anything is read from the data file: see
+    ``open_recording``.
+    """
     where = str(meta_path)
-    try:
-        meta = json.loads(meta_path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise RxlogError(f"{where}: SigMF metadata file not found") from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as e:
-        raise RxlogError(f"{where}: unreadable SigMF metadata ({e})") from None
-    g = meta.get("global")
+    meta = _read_sigmf_json(meta_path)
+    g = meta.get("global") if isinstance(meta, dict) else None
     if not isinstance(g, dict):
-        raise RxlogError(f"{where}: no 'global' object; expected SigMF metadata")
+        raise RxlogError(f"{where}: no 'global' object; expected SigMF metadata "
+                         "{\"global\": {...}, \"captures\": [...]}")
     dtype = g.get("core:datatype")
-    if dtype not in FORMATS:
+    if not isinstance(dtype, str) or dtype not in FORMATS:
         raise RxlogError(f"{where}: global core:datatype {dtype!r} not supported; expected one of "
                          f"{', '.join(FORMATS)} (complex samples)")
-    rate = g.get("core:sample_rate")
-    if not isinstance(rate, (int, float)) or isinstance(rate, bool) or rate <= 0:
-        raise RxlogError(f"{where}: global core:sample_rate missing or not a positive number")
-    if g.get("core:num_channels", 1) != 1:
-        raise RxlogError(f"{where}: core:num_channels = {g['core:num_channels']}; rxlog reads one channel")
+    rate = validate.number(g.get("core:sample_rate"), f"{where}: global core:sample_rate",
+                           validate.MIN_RATE_HZ, validate.MAX_RATE_HZ, "a sample rate in Hz")
+    n_chan = g.get("core:num_channels", 1)
+    if validate.whole(n_chan, f"{where}: global core:num_channels", 1) != 1:
+        raise RxlogError(f"{where}: global core:num_channels = {n_chan}; rxlog reads one channel")
+    trailing = _optional_whole(g, "core:trailing_bytes", f"{where}: global")
     caps = meta.get("captures")
     if not isinstance(caps, list) or not caps:
         raise RxlogError(f"{where}: no captures; expected at least one with core:frequency")
     if not data_path.is_file():
         raise RxlogError(f"{data_path}: SigMF data file not found beside {meta_path.name}")
     bps = 2 * FORMATS[dtype][0].itemsize
-    size = data_path.stat().st_size - int(g.get("core:trailing_bytes", 0) or 0)
-    starts, headers = [], 0
-    byte_offsets = []
+    size = data_path.stat().st_size
+    starts, freqs, byte_offsets, headers = [], [], [], 0
     for i, c in enumerate(caps):
-        s = c.get("core:sample_start", 0 if i == 0 else None)
-        if not isinstance(s, int) or s < 0:
-            raise RxlogError(f"{where}: captures[{i}] core:sample_start missing or not a whole number")
+        at = f"{where}: captures[{i}]"
+        if not isinstance(c, dict):
+            raise RxlogError(f"{at}: expected an object with core:sample_start and core:frequency, got {c!r:.40}")
+        s = validate.whole(c.get("core:sample_start", 0 if i == 0 else None), f"{at} core:sample_start")
         if starts and s < starts[-1]:
-            raise RxlogError(f"{where}: captures[{i}] core:sample_start goes backwards")
-        if "core:frequency" not in c:
-            raise RxlogError(f"{where}: captures[{i}] has no core:frequency (centre frequency in Hz)")
-        headers += int(c.get("core:header_bytes", 0) or 0)
+            raise RxlogError(f"{at} core:sample_start {s} goes backwards (captures[{i - 1}] starts at {starts[-1]})")
+        freqs.append(validate.number(c.get("core:frequency"), f"{at} core:frequency", 1.0,
+                                     validate.MAX_TUNING_HZ, "a centre frequency in Hz"))
+        headers += _optional_whole(c, "core:header_bytes", at)
         starts.append(s)
         byte_offsets.append(headers + s * bps)
-    total = (size - headers) // bps
+    payload = size - trailing - headers
+    if payload < 0:
+        raise RxlogError(f"{data_path}: {size} bytes, fewer than the {headers + trailing} header and trailing "
+                         f"bytes {meta_path.name} declares")
+    if payload % bps:
+        raise RxlogError(f"{data_path}: {payload} bytes of samples is not a whole number of {dtype} samples "
+                         f"({bps} bytes each); is core:datatype right, or is the file cut short?")
+    total = payload // bps
+    for i, s in enumerate(starts):
+        if s > total:
+            raise RxlogError(f"{where}: captures[{i}] core:sample_start {s} lies past the end of the data: "
+                             f"{data_path.name} holds {total} {dtype} samples")
     captures: list[Capture] = []
     stem = data_path.name[: -len(".sigmf-data")] if data_path.name.endswith(".sigmf-data") else data_path.stem
     for i, c in enumerate(caps):
@@ -945,32 +1012,44 @@ def _open_sigmf(meta_path: Path, data_path: Path, start=None) -> RecordingSource
         n = end - starts[i]
         if n <= 0:
             continue
-        when = c.get("core:datetime")
-        if i == 0 and start not in (None, ""):
-            t0 = _start_time(start, f"{where}: --start")
-        elif when is not None:
-            try:
-                t0 = parse_iso(when)
-            except (TypeError, ValueError):
-                raise RxlogError(f"{where}: captures[{i}] core:datetime {when!r} is not ISO 8601 UTC") from None
-        elif captures:
-            prev = captures[-1]
-            t0 = prev.t0 + (starts[i] - prev.sample_start) / rate
-        else:
-            raise RxlogError(f"{where}: captures[0] has no core:datetime; give the start time (--start)")
-        freq = float(c["core:frequency"])
+        t0, said = _capture_time(c, i, start, captures, starts[i], rate, where)
+        validate.check_era(t0, t0 + n / rate, said)
+        freq = freqs[i]
         dropped, segment = 0, f"rec-{stem}-{len(captures)}"
         if captures:
             prev = captures[-1]
             expected = prev.t0 + prev.n_samples / rate
+            if t0 < expected - CAPTURE_OVERLAP_S:
+                raise RxlogError(f"{said}: starts at {validate.when(t0)}, {expected - t0:.3g} s before the end "
+                                 f"of the capture before it; expected captures in time order")
             gap = int(round((t0 - expected) * rate))
             dropped = max(0, gap)
             if freq == prev.center_hz and gap >= 0:
                 segment = prev.segment          # same tuning: one segment, with a gap if any
-        captures.append(Capture(starts[i], n, byte_offsets[i], freq, t0, segment, dropped))
+        captures.append(Capture(starts[i], n, byte_offsets[i], freq, t0, segment, dropped,
+                                label=f"captures[{i}] core:frequency"))
     if not captures:
         raise RxlogError(f"{data_path}: no samples in the data file")
-    return RecordingSource(data_path, dtype, float(rate), captures)
+    return RecordingSource(data_path, dtype, rate, captures, source=meta_path)
+
+
+def _capture_time(c: dict, i: int, start, captures: list[Capture], sample_start: int, rate: float,
+                  where: str) -> tuple[float, str]:
+    """UTC of a capture's first sample, and what gave it (for messages)."""
+    if i == 0 and start is not None and not (isinstance(start, str) and not start):
+        return _start_time(start, f"{where}: --start"), f"{where}: --start"
+    said = f"{where}: captures[{i}] core:datetime"
+    text = c.get("core:datetime")
+    if text is not None:
+        try:
+            return parse_iso(text), said
+        except (TypeError, ValueError, OverflowError):
+            raise RxlogError(f"{said} {text!r:.60} is not ISO 8601 UTC "
+                             "(expected e.g. \"2026-12-01T22:00:00Z\")") from None
+    if captures:
+        prev = captures[-1]
+        return prev.t0 + (sample_start - prev.sample_start) / rate, said
+    raise RxlogError(f"{where}: captures[0] has no core:datetime; give the start time (--start)")
 
 
 # ---------------------------------------------------------------------------- config checks

@@ -51,6 +51,12 @@ def test_minimal_config_gets_defaults(tmp_path):
     (GOOD + "[station\n", ["unreadable TOML"]),
     (GOOD.replace("latitude_deg = 46.0", 'timezone = "Mars/Olympus"\nlatitude_deg = 46.0'), ["[station] timezone", "unknown IANA time zone"]),
     (GOOD + "[spectra]\nfmin_mhz = 24.0\nfmax_mhz = 16.0\n", ["fmax_mhz above fmin_mhz"]),
+    (GOOD + "[receiver]\ngain_db = inf\n", ["[receiver] gain_db", "expected a finite number, got inf"]),
+    (GOOD + "[storage]\nroot = \"da\\u0000ta\"\n", ["[storage] root", "control character '\\x00'"]),
+    (GOOD + "[storage]\nroot = \"station.toml/data\"\n", ["[storage] root", "station.toml is a file"]),
+    (GOOD + "[storage]\nretention_days = 1e300\n", ["[storage] retention_days", "between 0.01 and 100000"]),
+    (GOOD + "[sweep]\ncenter_hz = 1e300\n", ["[sweep] center_hz", "out of range"]),
+    (GOOD + "[sweep]\nring_s = 1e12\ncycle_s = 0.3\n", ["[sweep] ring_s", "out of range"]),
 ])
 def test_each_error_names_file_key_and_expectation(tmp_path, text, expected):
     r, p = check(tmp_path, text)

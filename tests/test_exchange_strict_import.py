@@ -143,6 +143,36 @@ def test_values_out_of_their_domain_are_skipped(tmp_path):
         assert what in text, what
 
 
+def test_times_outside_the_receiver_era_and_numbers_outside_their_range_skip_the_row(tmp_path):
+    bad = [dict(GOOD[0], event_id="old", start_utc="1000-01-01T00:00:00.000Z"),
+           dict(GOOD[1], event_id="far", end_utc="2999-01-01T00:00:00.000Z"),
+           dict(GOOD[2], event_id="hf", fmax_mhz=1e30),
+           dict(GOOD[3], event_id="cml", cml3_deg=400.0),
+           dict(GOOD[4], event_id="alt", sun_alt_deg=-95.0)]
+    p = tmp_path / "absurd.json"
+    p.write_text(json.dumps({"header": list_header("st-a"), "events": bad + [dict(GOOD[0])]}))
+    el = read_event_list(p)
+    assert [e["event_id"] for e in el.events] == [GOOD[0]["event_id"]]
+    text = "\n".join(el.notices)
+    for what in ("events[0]: start_utc 1000-01-01T00:00:00.000Z: outside the receiver era, 1990-01-01 to",
+                 "events[1]: end_utc 2999-01-01T00:00:00.000Z: outside the receiver era",
+                 "events[2]: fmax_mhz 1e+30: expected 1 to 60", "events[3]: cml3_deg 400: expected 0 to 360",
+                 "events[4]: sun_alt_deg -95: expected -90 to 90"):
+        assert what in text, (what, text)
+
+
+def test_header_values_out_of_range_are_ignored_with_a_notice(tmp_path):
+    header = dict(list_header("st-a"), latitude_deg=123.0, cadence_s=1e-9, exported_utc="1900-01-01T00:00:00.000Z")
+    p = write_event_list(tmp_path / "h.csv", "csv", header, GOOD)
+    el = read_event_list(p)
+    assert len(el.events) == 5
+    assert not {"latitude_deg", "cadence_s", "exported_utc"} & set(el.station)
+    text = "\n".join(el.notices)
+    for what in ("header latitude_deg: 123 is out of range, expected -90 to 90; ignored",
+                 "header cadence_s: 1e-09 is out of range", "header exported_utc: 1900-01-01T00:00:00.000Z: "):
+        assert what in text, (what, text)
+
+
 def test_nothing_usable_refuses_the_file_with_the_first_problems(tmp_path):
     p = tmp_path / "junk.csv"
     p.write_text("station,event_id,start_utc,end_utc,peak_utc,fmin_mhz,fmax_mhz,class\n"
@@ -283,8 +313,8 @@ finite = st.floats(min_value=-1e6, max_value=1e6, allow_nan=False, allow_infinit
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.lists(st.tuples(st.floats(min_value=0, max_value=3e8), st.floats(min_value=0, max_value=1e4),
-                          st.floats(min_value=0.001, max_value=60), st.floats(min_value=0, max_value=10),
+@given(st.lists(st.tuples(st.floats(min_value=0, max_value=2.5e7), st.floats(min_value=0, max_value=1e4),
+                          st.floats(min_value=1, max_value=50), st.floats(min_value=0, max_value=10),
                           st.sampled_from(["solar_iii", "jovian_l", "rfi", "unknown"]),
                           st.one_of(st.none(), finite), st.one_of(st.none(), st.text(max_size=20))),
                 min_size=1, max_size=10))

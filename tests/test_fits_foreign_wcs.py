@@ -6,6 +6,8 @@ the time keywords; astropy.time (astropy 8.0) computes the expected epochs (MJD,
 and astropy.wcs writes one of the headers, as outside implementations.
 """
 
+import warnings
+
 import numpy as np
 import pytest
 from astropy import units as u
@@ -222,3 +224,81 @@ def test_not_a_2d_image(tmp_path):
     (tmp_path / "junk.fits").write_bytes(b"not fits at all" * 200)
     with pytest.raises(RxlogError, match="junk.fits"):
         read_spectrum_fits(tmp_path / "junk.fits")
+
+
+@pytest.mark.parametrize("change, words", [
+    ({"TIMEPIXR": 1.5}, ["TIMEPIXR", "0 to 1"]),
+    ({"CDELT1": 7200.0}, ["CDELT1", "time step 7200 s"]),
+    ({"CRVAL2": 0.5, "CDELT2": 20.0}, ["CDELT2", "channels 2e+07 Hz wide"]),
+    ({"CDELT2": 1e-7}, ["CDELT2", "0.1 Hz wide sampled every 0.5 s", "time-bandwidth"]),
+    ({"CRVAL2": 40.0}, ["CRVAL2", "do not reach 16-24 MHz"]),
+    ({"MJDREF": 40587.0}, ["MJDREF", "receiver era"]),                      # 1970: an unset clock
+    ({"CDELT1": True}, ["CDELT1", "not a number"]),
+])
+def test_axes_outside_the_limits_are_refused_naming_the_card(tmp_path, change, words):
+    path = _write(tmp_path / "odd.fits", _power_db(), 1, "MJDREF")
+    with fits.open(path, mode="update") as hdul:
+        hdul[0].header.update(change)
+    with pytest.raises(RxlogError) as e:
+        read_spectrum_fits(path)
+    assert "odd.fits" in str(e.value)
+    for w in words:
+        assert w in str(e.value), (w, str(e.value))
+
+
+@pytest.mark.parametrize("power, bunit, words", [
+    (np.full((N_TIME, N_CHAN), 5000.0, np.float32), "dB", ["power of 5000 dB", "BUNIT"]),
+    (np.zeros((N_TIME, N_CHAN), np.float32), "K", ["no usable power value", "zero or negative"]),
+])
+def test_absurd_or_empty_power_is_refused(tmp_path, power, bunit, words):
+    path = _write(tmp_path / "p.fits", power, 1, "MJDREF", bunit=bunit)
+    with pytest.raises(RxlogError) as e:
+        read_spectrum_fits(path)
+    for w in words:
+        assert w in str(e.value), (w, str(e.value))
+
+
+def test_unparsable_card_and_bitpix_name_the_keyword(tmp_path):
+    good = _write(tmp_path / "g.fits", _power_db(), 1, "MJDREF").read_bytes()
+    i = good.index(b"CDELT2  =")
+    broken = good[:i] + b"CDELT2  =                  NaX / spacing".ljust(80) + good[i + 80:]
+    (tmp_path / "card.fits").write_bytes(broken)
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        with pytest.raises(RxlogError, match=r"card.fits: keyword CDELT2: value .*NaX"):
+            read_spectrum_fits(tmp_path / "card.fits")
+    assert not seen, [str(w.message) for w in seen]        # rxlog's message alone, not astropy's on the way
+    small = _write(tmp_path / "s.fits", _power_db()[:10, :5].copy(), 1, "MJDREF").read_bytes()   # one data block
+    i = small.index(b"BITPIX  =")
+    (tmp_path / "bitpix.fits").write_bytes(small[:i] + b"BITPIX  =                   12".ljust(80) + small[i + 80:])
+    with pytest.raises(RxlogError, match="bitpix.fits.*BITPIX"):
+        read_spectrum_fits(tmp_path / "bitpix.fits")
+
+
+def test_cut_short_files_are_refused_plain_and_gzipped(tmp_path):
+    import gzip
+
+    whole = _write(tmp_path / "w.fits", _power_db(), 1, "MJDREF").read_bytes()
+    (tmp_path / "short.fits").write_bytes(whole[:-2880])                 # a whole block missing
+    (tmp_path / "odd.fits").write_bytes(whole[:-100])
+    packed = gzip.compress(whole)
+    (tmp_path / "short.fits.gz").write_bytes(packed[:-20])
+    for name, words in (("short.fits", "declare 3840 bytes of image data.*cut short"),
+                        ("odd.fits", "2880-byte FITS blocks"), ("short.fits.gz", "gzip data cut short")):
+        with pytest.raises(RxlogError, match=words) as e:
+            read_spectrum_fits(tmp_path / name)
+        assert name in str(e.value)
+
+
+def test_tile_compressed_image_is_read_and_refused_when_cut_short(tmp_path):
+    power = _power_db()
+    plain = _write(tmp_path / "p.fits", power, 1, "MJDREF")
+    with fits.open(plain) as hdul:
+        h = hdul[0].header.copy()
+    fits.HDUList([fits.PrimaryHDU(), fits.CompImageHDU(power.T.copy(), header=h, compression_type="GZIP_2",
+                                                        quantize_level=0.0)]).writeto(tmp_path / "tiled.fits")
+    assert np.allclose(read_spectrum_fits(tmp_path / "tiled.fits").power_db, power)
+    whole = (tmp_path / "tiled.fits").read_bytes()
+    (tmp_path / "cut.fits").write_bytes(whole[:-2880])
+    with pytest.raises(RxlogError, match="cut.fits: image data unreadable"):
+        read_spectrum_fits(tmp_path / "cut.fits")

@@ -8,9 +8,10 @@ from astropy.io import fits
 from astropy.time import Time
 from click.testing import CliRunner
 
-from rxlog.archive import ArchiveWriter, ingest_fits, read_archive
+from rxlog.archive import ArchiveWriter, ingest_fits, read_archive, write_spectrum_fits
 from rxlog.cli import main
 from rxlog.config import config_from_text
+from rxlog.errors import RxlogError
 from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED
 
 from archive_helpers import STATION, noisy_spectrum
@@ -134,3 +135,31 @@ def test_ingest_command_refuses_bad_files_cleanly(tmp_path, cfg):
     r = CliRunner().invoke(main, ["ingest", "--config", str(cfg.path), str(path)])
     assert r.exit_code == 2 and "partner.fits" in r.output and "MJDREF" in r.output
     assert not list(cfg.archive_dir.rglob("*.fits"))            # nothing half-stored
+
+
+def test_band_may_be_the_stations_own(tmp_path, cfg):
+    """A file must reach 16-24 MHz or the station's configured band."""
+    path, _ = foreign(tmp_path / "high.fits")
+    with fits.open(path, mode="update") as hdul:
+        hdul[0].header["CRVAL2"] = 30.125                         # 30-36 MHz
+    with pytest.raises(RxlogError, match="high.fits: keywords CRVAL2, CDELT2, CUNIT2: .*do not reach 16-24 MHz"):
+        ingest_fits(cfg, path)
+    wide = config_from_text('[station]\nname = "w"\nlatitude_deg = 1\nlongitude_deg = 2\n'
+                            '[spectra]\nfmin_mhz = 28.0\nfmax_mhz = 36.0\n', tmp_path / "wide.toml")
+    [s] = ingest_fits(wide, path)
+    assert s.fmin_hz == pytest.approx(30.125e6)
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    (dict(t0=Time("1985-06-01T00:00:00", scale="utc").unix), ["POWER extension 1", "receiver era"]),
+    (dict(fmin=40.0, fmax=50.0), ["POWER extension 1", "CHANNELS column FREQ", "do not reach 16-24 MHz"]),
+])
+def test_partner_rxlog_file_outside_the_limits_is_refused(tmp_path, cfg, kwargs, words):
+    partner = {"name": "partner", "latitude_deg": 44.0, "longitude_deg": 5.5}
+    spec = noisy_spectrum(60, 16, **{"t0": REF.unix, **kwargs})
+    path = write_spectrum_fits(spec, tmp_path / "partner.fits", partner)
+    with pytest.raises(RxlogError) as e:
+        ingest_fits(cfg, path)
+    for w in ["partner.fits", *words]:
+        assert w in str(e.value), (w, str(e.value))
+    assert not cfg.archive_dir.exists()

@@ -106,3 +106,95 @@ def test_recording_kind_replays_the_configured_file(tmp_path):
     b = src.read(10_000)
     assert b.n == 2000 and b.center_hz == 21e6 and b.t0 == parse_iso("2026-12-01T23:00:00Z")
     np.testing.assert_allclose(b.samples, to_complex64(data, "cu8"))
+
+
+# -- recordings from elsewhere: each part of the description is checked before a sample is read
+
+GOOD_CAPTURE = {"core:sample_start": 0, "core:frequency": 20e6, "core:datetime": "2026-12-01T22:00:00Z"}
+
+
+def sigmf_pair(folder, meta, data_bytes=4000):
+    import json
+
+    (folder / "r.sigmf-data").write_bytes(b"\x80" * data_bytes)
+    (folder / "r.sigmf-meta").write_text(meta if isinstance(meta, str) else json.dumps(meta))
+    return folder / "r.sigmf-meta"
+
+
+def with_global(**g):
+    base = {"core:datatype": "cu8", "core:sample_rate": 250_000}
+    base.update(g)
+    return {"global": base, "captures": [dict(GOOD_CAPTURE)]}
+
+
+def with_captures(*caps):
+    return {"global": {"core:datatype": "cu8", "core:sample_rate": 250_000}, "captures": list(caps)}
+
+
+@pytest.mark.parametrize("meta, data_bytes, words", [
+    ("[]", 4000, ["no 'global' object"]),
+    ("[[[[" * 20000, 4000, ["unreadable SigMF metadata"]),                    # nested past the recursion limit
+    (with_global(**{"core:datatype": ["cu8"]}), 4000, ["core:datatype ['cu8'] not supported"]),
+    (with_global(**{"core:sample_rate": float("inf")}), 4000, ["core:sample_rate", "inf"]),
+    (with_global(**{"core:sample_rate": True}), 4000, ["core:sample_rate", "True"]),
+    (with_global(**{"core:sample_rate": 1e12}), 4000, ["core:sample_rate", "from 1000 to 1e+08"]),
+    (with_global(**{"core:trailing_bytes": "many"}), 4000, ["core:trailing_bytes", "'many'"]),
+    (with_global(**{"core:num_channels": 2}), 4000, ["core:num_channels = 2"]),
+    (with_captures(dict(GOOD_CAPTURE), 7), 4000, ["captures[1]: expected an object"]),
+    (with_captures(dict(GOOD_CAPTURE, **{"core:frequency": "20 MHz"})), 4000, ["captures[0] core:frequency"]),
+    (with_captures(dict(GOOD_CAPTURE, **{"core:frequency": -20e6})), 4000, ["captures[0] core:frequency"]),
+    (with_captures(dict(GOOD_CAPTURE, **{"core:header_bytes": 1.5})), 4000, ["captures[0] core:header_bytes"]),
+    (with_captures(dict(GOOD_CAPTURE), {"core:sample_start": 2000, "core:frequency": 20e6,
+                                        "core:datetime": "2026-12-01T21:59:00Z"}), 8000,
+     ["captures[1] core:datetime", "before the end of the capture before it"]),
+    (with_captures(dict(GOOD_CAPTURE, **{"core:datetime": 1796162400})), 4000, ["captures[0] core:datetime"]),
+    (with_captures(dict(GOOD_CAPTURE, **{"core:datetime": "2100-01-01T00:00:00Z"})), 4000, ["receiver era"]),
+    (with_captures(dict(GOOD_CAPTURE)), 4001, ["r.sigmf-data: 4001 bytes", "whole number of cu8 samples"]),
+    (with_captures(dict(GOOD_CAPTURE, **{"core:header_bytes": 5000})), 4000, ["fewer than the 5000 header"]),
+    (with_captures(dict(GOOD_CAPTURE), {"core:sample_start": 2001, "core:frequency": 20e6}), 4000,
+     ["captures[1] core:sample_start 2001 lies past the end", "holds 2000 cu8 samples"]),
+])
+def test_sigmf_description_problems_name_the_key(tmp_path, meta, data_bytes, words):
+    path = sigmf_pair(tmp_path, meta, data_bytes)
+    with pytest.raises(RxlogError) as e:
+        open_recording(path)
+    assert "r.sigmf" in str(e.value)
+    for w in words:
+        assert w in str(e.value), (w, str(e.value))
+
+
+def test_sigmf_capture_may_start_a_little_before_the_previous_ends(tmp_path):
+    """A host-clock stamp up to CAPTURE_OVERLAP_S early is a clock quirk, not captures out of order."""
+    late_stamp = {"core:sample_start": 1000, "core:frequency": 20e6, "core:datetime": "2026-12-01T21:59:59.9Z"}
+    rec = open_recording(sigmf_pair(tmp_path, with_captures(dict(GOOD_CAPTURE), late_stamp)))
+    assert [c.n_samples for c in rec.captures] == [1000, 1000]
+
+
+def test_oversized_sigmf_metadata_is_refused_unread(tmp_path, monkeypatch):
+    from rxlog import receiver
+
+    monkeypatch.setattr(receiver, "MAX_SIGMF_META_BYTES", 100)
+    path = sigmf_pair(tmp_path, with_global(**{"note": "x" * 200}))
+    with pytest.raises(RxlogError, match="too large for SigMF metadata"):
+        open_recording(path)
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    (dict(rate_hz=float("nan")), ["--rate", "nan"]),
+    (dict(rate_hz=500.0), ["--rate", "from 1000"]),
+    (dict(center_hz=float("inf")), ["--center", "inf"]),
+    (dict(center_hz=0.0), ["--center"]),
+    (dict(start="1989-12-31T23:59:59Z"), ["--start", "receiver era"]),
+    (dict(start=float("nan")), ["--start", "not finite"]),
+    (dict(fmt="ci16_le"), ["whole number of ci16_le samples"]),   # 102 bytes, ci16_le samples are 4
+])
+def test_raw_description_problems_name_the_option(tmp_path, kwargs, words):
+    path = tmp_path / "night.raw"
+    np.zeros(102, np.uint8).tofile(path)
+    args = dict(fmt="cu8", rate_hz=1e6, center_hz=2e7, start="2026-12-01T22:00:00Z")
+    args.update(kwargs)
+    with pytest.raises(RxlogError) as e:
+        open_recording(path, **args)
+    assert "night.raw" in str(e.value)
+    for w in words:
+        assert w in str(e.value), (w, str(e.value))

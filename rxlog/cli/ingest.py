@@ -7,6 +7,7 @@ from pathlib import Path
 
 import click
 
+from rxlog import validate
 from rxlog.cli.base import TIME_HELP, UserError, parse_time_option, renamed, station_command
 from rxlog.timeutil import iso
 
@@ -83,6 +84,12 @@ def ingest(cfg, paths, fmt, rate_msps, center_mhz, start):
     if raw and missing:
         raise UserError(f"{raw[0]}: a raw recording (not SigMF) needs {RAW_OPTIONS}; "
                         f"not given: {', '.join(missing)}")
+    if raw:
+        # In the options' own units, so the message names what the user typed.
+        validate.number(rate_msps, f"{raw[0]}: --rate-msps", validate.MIN_RATE_HZ / 1e6, validate.MAX_RATE_HZ / 1e6,
+                        "a sample rate in MS/s")
+        validate.number(center_mhz, f"{raw[0]}: --center-mhz", 1e-6, validate.MAX_TUNING_HZ / 1e6,
+                        "a centre frequency in MHz")
     for path, kind in kinds:
         if kind == "fits":
             from rxlog.archive import ingest_fits
