@@ -17,7 +17,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from rxlog import simulator, sky
+from rxlog import simulator
+from rxlog.sim import model as sky
 from rxlog.config import config_from_text
 from rxlog.timeutil import parse_iso
 

@@ -1,6 +1,6 @@
 """The simulated station: dynamic spectra and IQ samples from one sky model, with truth.
 
-Two outputs of ``rxlog.sky.SkyModel``:
+Two outputs of ``rxlog.sim.model.SkyModel``:
 
 - **spectral domain** (``iter_spectra``, ``simulate_spectra``): the mean power of each
   archive cell, times noise drawn from the exact distribution of a mean of K independent
@@ -38,7 +38,7 @@ from pathlib import Path
 
 import numpy as np
 
-from rxlog import sky
+from rxlog.sim import model as sky
 from rxlog.errors import RxlogError
 from rxlog.spectrum import FLAG_UNCOVERED, DynamicSpectrum
 from rxlog.timeutil import iso

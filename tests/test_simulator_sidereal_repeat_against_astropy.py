@@ -11,7 +11,7 @@ from astropy import units as u
 from astropy.time import Time
 from astropy.utils import iers
 
-from rxlog import sky
+from rxlog.sim import model as sky
 from rxlog.config import config_from_text
 from rxlog.timeutil import parse_iso
 
