@@ -2,7 +2,7 @@
 
 Simulated days and nights at the example station (config/station.example.toml, the
 default [rfi] and [detector] settings), each fed to the online detector in one-minute
-chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
+chunks as the logger does, with ephemeris tags from rxlog.sky:
 
 * day-bursts-1, -2: two winter days with Jupiter below the horizon; on each, 20 Type III
   and 10 Type II bursts injected at peak excesses of 0.5, 1, 2, 4 and 8 dB among the

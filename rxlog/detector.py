@@ -1579,7 +1579,7 @@ TagsFn = Callable[[np.ndarray], dict]
 def default_tags_fn(cfg) -> TagsFn | None:
     """Ephemeris tags for this station, or None when the ephemeris module is missing."""
     try:
-        from rxlog.ephemeris import station_tags
+        from rxlog.sky.tags import station_tags
     except ImportError:
         return None
     return lambda times: station_tags(cfg, np.asarray(times, dtype=np.float64))

@@ -4,7 +4,7 @@ icalendar package (RFC 5545 reader, test-only); the CML-Io plot; Jupiter/Sun-up 
 import numpy as np
 import pytest
 
-from rxlog.ephemeris import body_up_intervals, station_tags
+from rxlog.sky.tags import body_up_intervals, station_tags
 from rxlog.errors import RxlogError
 from rxlog.forecast import format_forecast, forecast_windows, make_forecast, plot_forecast, write_ics
 

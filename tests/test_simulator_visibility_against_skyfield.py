@@ -2,7 +2,7 @@
 ephemeris puts (CML, Io phase) in a source region.
 
 Reference for altitudes: skyfield with JPL DE421 (skyfield-data), test-only. Regions:
-rxlog.ephemeris (the module the simulator plans from; its own tests check it against
+rxlog.sky (the package the simulator plans from; its own tests check it against
 skyfield). A day at a raised event rate so the check is not vacuous.
 """
 
@@ -14,7 +14,7 @@ import pytest
 
 from rxlog import simulator
 from rxlog.config import config_from_text
-from rxlog.ephemeris import station_tags
+from rxlog.sky.tags import station_tags
 from rxlog.timeutil import parse_iso
 
 with warnings.catch_warnings():

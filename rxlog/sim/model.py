@@ -536,7 +536,7 @@ class SkyModel:
         n0 = math.floor((self.start - margin) / NODE_S)
         n1 = math.ceil((self.end + margin) / NODE_S)
         self.node_t = np.arange(n0, n1 + 1) * NODE_S
-        from rxlog.ephemeris import station_tags
+        from rxlog.sky.tags import station_tags
         self.geo = station_tags(cfg, self.node_t)
         self.r12 = solar_r12(self.node_t)
         self.fof2 = fof2_mhz(self.geo["sun_alt_deg"], self.r12) * 1e6
@@ -803,7 +803,7 @@ class SkyModel:
     def _region_passages(self, t_day):
         """(region, start, end) intervals in which (CML, Io phase) lie in a source box,
         starting within this UTC day; geocentric to well under a node."""
-        from rxlog.ephemeris import station_tags
+        from rxlog.sky.tags import station_tags
         t = t_day - 4 * 3600 + np.arange(0, DAY_S + 8 * 3600 + 1, NODE_S)
         reg = station_tags(self.cfg, t)["source_region"]
         out = []
