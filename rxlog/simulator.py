@@ -38,6 +38,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rxlog.constants import K_B
 from rxlog.sim import model as sky
 from rxlog.errors import RxlogError
 from rxlog.spectrum import FLAG_UNCOVERED, DynamicSpectrum
@@ -90,7 +91,7 @@ def cell_layout(cfg) -> CellLayout:
 def system_psd_per_kelvin(cfg) -> float:
     """Full-scale^2 per hertz per kelvin at the ADC."""
     gain = float(cfg["receiver"].get("gain_db", 30.0))
-    return sky.K_B * 10 ** ((gain + SYSTEM_GAIN_DB) / 10)
+    return K_B * 10 ** ((gain + SYSTEM_GAIN_DB) / 10)
 
 
 # --- spectral domain ---------------------------------------------------------------------

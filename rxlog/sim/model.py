@@ -30,16 +30,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from rxlog.constants import C_M_S, EARTH_RADIUS_KM, K_B, SFU
 from rxlog.errors import RxlogError
 from rxlog.spectrum import channel_grid
 
-K_B = 1.380649e-23          # Boltzmann constant, J/K (SI, exact)
 T0_K = 290.0                # reference temperature of ITU-R P.372 noise figures
-C_M_S = 299_792_458.0
-SFU = 1e-22                 # solar flux unit, W m^-2 Hz^-1
 DAY_S = 86400.0
 NODE_S = 60.0               # slow quantities (geometry, background) are computed on this grid
-R_EARTH_KM = 6371.0
 
 # ITU-R P.372 (Radio noise), median man-made noise figure Fam = c - d log10(f/MHz) in dB
 # above k T0 b, for the environmental categories of its man-made noise table; and the
@@ -157,7 +154,7 @@ def d_absorption_db(f_hz, sun_alt_deg, r12):
 
 def _sec_layer(zenith_deg, height_km):
     """sec of the incidence angle at a layer of the given height (spherical Earth)."""
-    s = np.sin(np.radians(zenith_deg)) * R_EARTH_KM / (R_EARTH_KM + height_km)
+    s = np.sin(np.radians(zenith_deg)) * EARTH_RADIUS_KM / (EARTH_RADIUS_KM + height_km)
     return 1.0 / np.sqrt(np.clip(1.0 - s * s, 1e-4, 1.0))
 
 
@@ -1060,7 +1057,7 @@ def _scintillation(rng, n_t, n_f, sigma_t, sigma_f):
 
 def _station_xy_km(lat, lon):
     """Rough local position of a station on the Earth's surface (km), for pattern shifts."""
-    return R_EARTH_KM * math.radians(lon) * math.cos(math.radians(lat)), R_EARTH_KM * math.radians(lat)
+    return EARTH_RADIUS_KM * math.radians(lon) * math.cos(math.radians(lat)), EARTH_RADIUS_KM * math.radians(lat)
 
 
 # --- drawing -------------------------------------------------------------------------------

@@ -25,11 +25,9 @@ import math
 import erfa
 import numpy as np
 
+from rxlog.constants import AU_LIGHT_S
 from rxlog.sky.timescales import J2000_JD
 
-AU_M = 149_597_870_700.0            # IAU 2012 Resolution B2 (exact)
-C_M_S = 299_792_458.0               # SI definition (exact)
-AU_LIGHT_S = AU_M / C_M_S           # light time for 1 au, s (~499.005)
 E5_EPOCH_JD = 2443000.5             # 1976 Aug 10.0 TDT, epoch of Lieske's E5 theory
 B1950_JD = 2433282.4235             # Besselian epoch B1950.0 (Lieske 1979)
 

@@ -20,6 +20,7 @@ import logging
 
 import numpy as np
 
+from rxlog.constants import TT_MINUS_TAI_S
 from rxlog.errors import RxlogError
 
 log = logging.getLogger("rxlog.sky")
@@ -27,7 +28,6 @@ log = logging.getLogger("rxlog.sky")
 J2000_UNIX = 946_728_000.0          # 2000-01-01T12:00:00 UTC as POSIX seconds
 J2000_JD = 2451545.0
 MJD_UNIX_EPOCH = 40587.0            # MJD of 1970-01-01T00:00:00 UTC
-TT_MINUS_TAI_S = 32.184             # IAU 1991 Resolution A4 (exact)
 
 # Supported range: leap seconds are defined from 1972; plan94 is fitted 1000-3000 AD
 # but rxlog has no use for dates this far out.
