@@ -1,4 +1,4 @@
-"""Detection accuracy against the simulator's ground truth (``rxlog.simulator``).
+"""Detection accuracy against the simulator's ground truth (``rxlog.sim``).
 
 Simulated days and nights at the example station (config/station.example.toml, the
 default [rfi] and [detector] settings), each fed to the online detector in one-minute
@@ -41,7 +41,7 @@ import numpy as np
 from rxlog.config import load_config
 from rxlog.detector import OnlineDetector, latest
 from rxlog.errors import RxlogError
-from rxlog.simulator import iter_spectra
+from rxlog.sim.spectra import iter_spectra
 from rxlog.timeutil import parse_iso
 
 from pathlib import Path

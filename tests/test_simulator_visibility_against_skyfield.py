@@ -12,8 +12,8 @@ import warnings
 import numpy as np
 import pytest
 
-from rxlog import simulator
 from rxlog.config import config_from_text
+from rxlog.sim.spectra import iter_spectra
 from rxlog.sky.tags import station_tags
 from rxlog.timeutil import parse_iso
 
@@ -39,7 +39,7 @@ channels = 64
 cadence_s = 10.0
 """, tmp_path_factory.mktemp("vis") / "station.toml")
     classes = ("solar_iii", "solar_ii", "solar_iv", "fadeout", "jovian_l", "jovian_s")
-    run = simulator.iter_spectra(cfg, START, 48, seed=3, rfi="quiet-rural", include=classes, event_rate=30)
+    run = iter_spectra(cfg, START, 48, seed=3, rfi="quiet-rural", include=classes, event_rate=30)
     return cfg, run.truth_rows()
 
 
