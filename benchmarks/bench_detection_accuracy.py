@@ -1,8 +1,8 @@
-"""Detection accuracy against the simulator's ground truth (``rxlog.simulator``).
+"""Detection accuracy against the simulator's ground truth (``rxlog.sim``).
 
 Simulated days and nights at the example station (config/station.example.toml, the
 default [rfi] and [detector] settings), each fed to the online detector in one-minute
-chunks as the logger does, with ephemeris tags from rxlog.ephemeris:
+chunks as the logger does, with ephemeris tags from rxlog.sky:
 
 * day-bursts-1, -2: two winter days with Jupiter below the horizon; on each, 20 Type III
   and 10 Type II bursts injected at peak excesses of 0.5, 1, 2, 4 and 8 dB among the
@@ -41,7 +41,7 @@ import numpy as np
 from rxlog.config import load_config
 from rxlog.detector import OnlineDetector, latest
 from rxlog.errors import RxlogError
-from rxlog.simulator import iter_spectra
+from rxlog.sim.spectra import iter_spectra
 from rxlog.timeutil import parse_iso
 
 from pathlib import Path

@@ -1,7 +1,7 @@
 """Ephemeris and forecast speed, and the error the node interpolation costs.
 
 Figures, all measured in this run on this machine:
-- cold start: a fresh interpreter importing rxlog.ephemeris and tagging one instant
+- cold start: a fresh interpreter importing rxlog.sky.tags and tagging one instant
   (astropy import, bundled IERS and leap-second tables);
 - all tags for 100,000 instants: one night at 1 s cadence (the detector's case), a
   month of scattered events, and ten years of scattered events (the ERFA-direct path);
@@ -20,7 +20,7 @@ import time
 
 import numpy as np
 
-from rxlog.ephemeris import compute_tags
+from rxlog.sky.tags import compute_tags
 from rxlog.forecast import forecast_windows
 
 SITE = (47.5, 8.7, 450.0)
@@ -42,7 +42,7 @@ def _angle(a, b):
 def run() -> list[tuple]:
     rows = []
     cold = subprocess.run([sys.executable, "-c", "import time; t = time.perf_counter(); "
-                           "from rxlog.ephemeris import compute_tags; "
+                           "from rxlog.sky.tags import compute_tags; "
                            f"compute_tags([{T0}], 47.5, 8.7, 450.0); print(time.perf_counter() - t)"],
                           capture_output=True, text=True, check=True)
     rows.append(("cold start: import and tag one instant", float(cold.stdout.strip()), "s", "report", None))

@@ -17,8 +17,11 @@ import tempfile
 import time
 from pathlib import Path
 
-from rxlog import simulator, sky
 from rxlog.config import config_from_text
+from rxlog.sim.cells import system_psd_per_kelvin
+from rxlog.sim.iq import IQGenerator, SimulatedReceiver
+from rxlog.sim.model import SkyModel
+from rxlog.sim.spectra import iter_spectra, simulate_spectra
 from rxlog.timeutil import parse_iso
 
 NIGHT = parse_iso("2026-12-01T18:00:00Z")
@@ -36,17 +39,17 @@ elevation_m = 450.0
 def _night(cfg) -> tuple[float, float, float, int]:
     """(wall s, CPU s, planning wall s, rows) for the whole night, truth rows included."""
     t, c = time.perf_counter(), time.process_time()
-    spec, truth = simulator.simulate_spectra(cfg, NIGHT, 12.0, seed=1, rfi="rural")
+    spec, truth = simulate_spectra(cfg, NIGHT, 12.0, seed=1, rfi="rural")
     wall, cpu = time.perf_counter() - t, time.process_time() - c
     t = time.perf_counter()
-    simulator.iter_spectra(cfg, NIGHT, 12.0, seed=1, rfi="rural")      # planning alone
+    iter_spectra(cfg, NIGHT, 12.0, seed=1, rfi="rural")      # planning alone
     return wall, cpu, time.perf_counter() - t, spec.n_time
 
 
 def _iq(cfg, t0, rfi, center, seconds=10) -> tuple[float, float]:
     """(x real time by the wall clock, x real time per CPU second) for cu8 samples."""
-    model = sky.SkyModel(cfg, t0, t0 + seconds + 5, seed=1, rfi=rfi)
-    gen = simulator.IQGenerator(model, t0, center, RATE, simulator.system_psd_per_kelvin(cfg), seed=1)
+    model = SkyModel(cfg, t0, t0 + seconds + 5, seed=1, rfi=rfi)
+    gen = IQGenerator(model, t0, center, RATE, system_psd_per_kelvin(cfg), seed=1)
     gen.read(int(RATE) // 10)
     t, c = time.perf_counter(), time.process_time()
     for _ in range(seconds):
@@ -68,7 +71,7 @@ def _bare_reference(seconds=3) -> float:
 
 
 def _receiver(cfg, seconds=5) -> float:
-    rx = simulator.SimulatedReceiver(cfg, start_unix=NIGHT, seed=1, realtime=False)
+    rx = SimulatedReceiver(cfg, start_unix=NIGHT, seed=1, realtime=False)
     rx.open()
     rx.read(int(RATE) // 10)
     c = time.process_time()
@@ -80,7 +83,7 @@ def _receiver(cfg, seconds=5) -> float:
 def run() -> list[tuple]:
     with tempfile.TemporaryDirectory() as tmp:
         cfg = config_from_text(CONFIG, Path(tmp) / "station.toml")
-        simulator.iter_spectra(cfg, NIGHT, 0.01)         # astropy's tables load once per process
+        iter_spectra(cfg, NIGHT, 0.01)         # astropy's tables load once per process
         t_night, c_night, t_plan, rows = _night(cfg)
         day = _iq(cfg, DAY, "city", 21.6e6)
         night = _iq(cfg, NIGHT + 6 * 3600, "rural", 20.0e6)

@@ -54,6 +54,7 @@ import numpy as np
 from astropy.io import fits
 
 from rxlog import __version__, validate
+from rxlog.constants import GPS_MINUS_TAI_S, TT_MINUS_TAI_S
 from rxlog.errors import RxlogError
 from rxlog.fileio import ensure_dir, fsync_dir, write_atomic
 from rxlog.spectrum import FLAG_GAP, FLAG_RETUNE, FLAG_RFI, FLAG_UNCOVERED, DynamicSpectrum
@@ -409,7 +410,7 @@ def _to_utc_offset(scale: str, t_ref: float, path, key: str) -> float:
     """
     if scale in ("UTC", "UT"):
         return 0.0
-    shift = {"TAI": 0.0, "TT": 32.184, "TDT": 32.184, "GPS": -19.0}
+    shift = {"TAI": 0.0, "TT": TT_MINUS_TAI_S, "TDT": TT_MINUS_TAI_S, "GPS": GPS_MINUS_TAI_S}
     if scale not in shift:
         raise RxlogError(f"{path}: keyword {key} = {scale!r}: time scale not supported; "
                          "expected 'UTC' (or TAI, TT, GPS)")

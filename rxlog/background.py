@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import numpy as np
 
-MAD_TO_SIGMA = 1.4826  # Gaussian consistency factor of the median absolute deviation
+from rxlog.constants import MAD_TO_SIGMA
 
 
 def nanmedian(x: np.ndarray, axis: int = 0) -> np.ndarray:

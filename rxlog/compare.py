@@ -37,6 +37,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rxlog.constants import MAD_TO_SIGMA
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
 from rxlog.exchange import EventList, read_event_list
@@ -459,7 +460,7 @@ def _solve(grp, st, t, sig, kind, n_st, iterations=20) -> _Solution:
                 # a pair take two values a cadence apart, whose MAD can be far smaller
                 # than their spread; a scale below the prior would then reject the
                 # minority value and bias the offset towards the majority one.
-                scale[g] = max(1.4826 * float(np.median(np.abs(z[m]))), 1.0)
+                scale[g] = max(MAD_TO_SIGMA * float(np.median(np.abs(z[m]))), 1.0)
         u = np.abs(z) / scale[kind]
         robust = np.where(u <= HUBER_K, 1.0, HUBER_K / np.maximum(u, 1e-12))
         robust[u > REJECT_SIGMAS] = 0.0

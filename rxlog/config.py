@@ -22,8 +22,8 @@ from pathlib import Path
 from typing import Any, Callable
 
 from rxlog import rfi as _rfi
-from rxlog import ephemeris as _ephemeris
 from rxlog import validate
+from rxlog.sky import regions as _regions
 
 REQUIRED = object()
 
@@ -197,7 +197,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
                              help="Impulses closer than this form one impulse storm (one rfi event)"),
     },
     "regions": {
-        "boxes": Key(list, _ephemeris.DEFAULT_REGION_BOXES, check=_ephemeris.check_region_boxes,
+        "boxes": Key(list, _regions.DEFAULT_REGION_BOXES, check=_regions.check_region_boxes,
                      help="Io-source boxes in the CML III / Io-phase plane, in order of precedence"),
     },
     "forecast": {

@@ -123,7 +123,7 @@ def simulate_into_archive(cfg, start: float, hours: float, inject: list[dict],
     the same, the station writes it down late (positive) or early (negative).
     """
     from rxlog.archive import ArchiveWriter
-    from rxlog.simulator import iter_spectra
+    from rxlog.sim.spectra import iter_spectra
 
     run = iter_spectra(cfg, start, hours, inject=inject)
     # A batch that can simply be re-run needs no minute-by-minute crash safety: hour-long
@@ -174,7 +174,7 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     from rxlog.exchange import export_events, write_voevents
     from rxlog.forecast import make_forecast
     from rxlog.report import build_report
-    from rxlog.simulator import write_truth_csv
+    from rxlog.sim.truth import write_truth_csv
     from rxlog.store import EventStore
 
     out = Path(out).resolve()

@@ -44,6 +44,7 @@ from scipy.sparse.csgraph import connected_components
 
 from rxlog import background as bg
 from rxlog import rfi
+from rxlog.constants import MAD_TO_SIGMA
 from rxlog.spectrum import FLAG_GAP, FLAG_RETUNE, FLAG_RFI, FLAG_UNCOVERED, DynamicSpectrum
 from rxlog.timeutil import iso
 
@@ -357,7 +358,7 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
         ts = float(np.median((tb[j] - tb[i])[pair] / dx[pair]))
         r0 = tb - ts * fb
         r0 = r0 - np.median(r0)
-        cut = np.abs(r0) <= max(3.0 * bg.MAD_TO_SIGMA * float(np.median(np.abs(r0))), cadence_s)
+        cut = np.abs(r0) <= max(3.0 * MAD_TO_SIGMA * float(np.median(np.abs(r0))), cadence_s)
         if dwell is not None:
             # A sweep samples each sub-band (``dwell``: its id per input cell) at one moment:
             # a pulse or a missing step there moves all its bins together. A sub-band whose
@@ -381,7 +382,7 @@ def fit_drift(t: np.ndarray, f_mhz: np.ndarray, w: np.ndarray, bin_mhz: float,
             return out
         coef = cov0 @ (AtW @ tb[keep])
         r_all = tb - A @ coef
-        mad = bg.MAD_TO_SIGMA * float(np.median(np.abs(r_all[keep])))
+        mad = MAD_TO_SIGMA * float(np.median(np.abs(r_all[keep])))
         new_keep = (np.abs(r_all) <= max(3.0 * mad, cadence_s)) & allowed
         if new_keep.sum() < max(deg + 3, 0.5 * len(tb)) or np.array_equal(new_keep, keep):
             break
@@ -1104,8 +1105,8 @@ class _Segment:
         nxt_s, nxt_g = self._next_rows(j + 1)
         # Robust widths about the median (a pulse train lifts the fast background a little,
         # so dark sub-bands sit slightly below zero: the spread, not the offset, is the noise).
-        scale_s = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(S - np.median(S)))), 1.0), 4.0)
-        scale_g = min(max(bg.MAD_TO_SIGMA * float(np.median(np.abs(G - np.median(G)))), 1.0), 4.0)
+        scale_s = min(max(MAD_TO_SIGMA * float(np.median(np.abs(S - np.median(S)))), 1.0), 4.0)
+        scale_g = min(max(MAD_TO_SIGMA * float(np.median(np.abs(G - np.median(G)))), 1.0), 4.0)
         es = np.concatenate([prev_s[-1:], S, nxt_s[:1]], axis=0) / scale_s
         Sn = es[1:-1]
         lit_t = Sn >= self.s.impulse_sigma
@@ -1302,7 +1303,7 @@ class _Segment:
         # distribution: rescale by its robust width, never below the independent case.
         wc = m["w"][:, ::4] > 0
         if wc.sum() > 100:
-            scale = bg.MAD_TO_SIGMA * float(np.median(np.abs(sig[:, ::4][wc])))
+            scale = MAD_TO_SIGMA * float(np.median(np.abs(sig[:, ::4][wc])))
             sig /= min(max(scale, 1.0), 4.0)
         enough = den * nbox >= 0.25 * nbox
         grow = (sig >= s.grow_sigma) & enough
@@ -1579,7 +1580,7 @@ TagsFn = Callable[[np.ndarray], dict]
 def default_tags_fn(cfg) -> TagsFn | None:
     """Ephemeris tags for this station, or None when the ephemeris module is missing."""
     try:
-        from rxlog.ephemeris import station_tags
+        from rxlog.sky.tags import station_tags
     except ImportError:
         return None
     return lambda times: station_tags(cfg, np.asarray(times, dtype=np.float64))

@@ -25,7 +25,8 @@ from typing import Callable
 
 import numpy as np
 
-from rxlog.ephemeris import regions_from_config, station_tags
+from rxlog.sky.regions import regions_from_config
+from rxlog.sky.tags import station_tags
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
 from rxlog.timeutil import iso

@@ -11,10 +11,10 @@ logger never care which one they read:
   live receiver stops delivering (the logger closes it and reopens it later);
 - properties ``rate_hz``, ``center_hz``, ``gain_db`` and ``segment``.
 
-Kinds (``[receiver] kind``): ``simulated`` (``rxlog.simulator.SimulatedReceiver``),
-``rtlsdr`` (a USB dongle through pyrtlsdr), ``rtltcp`` (a dongle served by rtl_tcp on
-another computer) and ``recording`` (a SigMF or raw file replayed at full speed).
-``open_source(cfg)`` builds the configured one.
+Kinds (``[receiver] kind``): ``rtlsdr`` (a USB dongle through pyrtlsdr), ``rtltcp`` (a
+dongle served by rtl_tcp on another computer) and ``recording`` (a SigMF or raw file
+replayed at full speed); ``simulated`` is ``rxlog.sim.iq.SimulatedReceiver``.
+``rxlog.station.sources.open_source(cfg)`` builds the configured one.
 
 Time. An RTL2832U sends neither timestamps nor sequence numbers and its crystal is off
 by 1-50 ppm (up to ~4 s a day). Live sources therefore count samples and discipline the
@@ -30,7 +30,6 @@ import collections
 import json
 import logging
 import math
-import os
 import socket
 import struct
 import time
@@ -270,39 +269,6 @@ class ClockDiscipline:
             if abs(s * self.rate_nominal - 1.0) < 1e-3:
                 self.s = s
             self.a = float(m0 - e0 * self.s)
-
-
-# ---------------------------------------------------------------------------- factory
-
-def open_source(cfg, **kwargs):
-    """The source ``cfg['receiver']['kind']`` names, not yet opened.
-
-    ``simulated`` builds ``rxlog.simulator.SimulatedReceiver(cfg, **kwargs)`` (imported
-    only then); the others take their settings from ``[receiver]`` (kwargs go to their
-    constructors: tests pass clocks and device factories this way).
-    """
-    rx = cfg["receiver"]
-    kind = rx["kind"]
-    if kind == "simulated":
-        from rxlog import simulator
-
-        return simulator.SimulatedReceiver(cfg, **kwargs)
-    if kind == "rtlsdr":
-        return RtlSdrSource.from_config(cfg, **kwargs)
-    if kind == "rtltcp":
-        return RtlTcpSource.from_config(cfg, **kwargs)
-    if kind == "recording":
-        return open_recording(rx["recording_path"] and _config_relative(cfg, rx["recording_path"]),
-                              fmt=rx["recording_format"], rate_hz=rx["sample_rate_hz"],
-                              center_hz=rx["recording_center_hz"],
-                              start=rx["recording_start_utc"] or None)
-    raise RxlogError(f"[receiver] kind: unknown receiver kind {kind!r}")
-
-
-def _config_relative(cfg, p: str) -> Path:
-    path = Path(os.path.expanduser(p))
-    base = getattr(cfg, "path", None)
-    return path if path.is_absolute() or base is None else Path(base).parent / path
 
 
 # ---------------------------------------------------------------------------- live sources

@@ -655,7 +655,7 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
     _mpl()
     from matplotlib.figure import Figure
     from matplotlib.patches import Rectangle
-    from rxlog.ephemeris import regions_from_config
+    from rxlog.sky.regions import regions_from_config
 
     fig = Figure(figsize=(7.0, 6.2), dpi=dpi)
     ax = fig.add_axes((0.11, 0.09, 0.62, 0.84))
@@ -1198,7 +1198,7 @@ TRACK_STEP_S = 300.0   # sampling of the night's CML–Io-phase track
 
 def _jupiter_track(cfg, jupiter_up: list[tuple[float, float]]):
     """(CML III, Io phase) every TRACK_STEP_S while Jupiter was up, NaN between the up intervals."""
-    from rxlog.ephemeris import station_tags
+    from rxlog.sky.tags import station_tags
 
     pieces = [np.append(np.arange(a, b, TRACK_STEP_S), np.nan) for a, b in jupiter_up if b > a]
     if not pieces:
@@ -1277,7 +1277,7 @@ def build_report(cfg, night: Night | str | dt.date | None = None, progress=None,
     finally:
         store.close()
 
-    from rxlog.ephemeris import body_up_intervals
+    from rxlog.sky.tags import body_up_intervals
     from rxlog.forecast import forecast_windows
 
     jupiter_up = body_up_intervals(cfg, night.t0, night.t1, body="jupiter")

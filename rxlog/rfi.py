@@ -35,6 +35,8 @@ import math
 
 import numpy as np
 
+from rxlog.constants import MAD_TO_SIGMA
+
 # ITU Radio Regulations Article 5 allocations in and near 16-24 MHz (values from memory).
 DEFAULT_STATIC_RANGES = [
     {"fmin_mhz": 15.10, "fmax_mhz": 15.80, "note": "broadcasting (15 MHz band)"},
@@ -203,7 +205,7 @@ def kurtosis_flags(sk: np.ndarray, valid: np.ndarray, threshold_sigma: float) ->
     channelizer's M need not be known.
     """
     d = np.where(valid & np.isfinite(sk), sk - 1.0, np.nan)
-    scale = 1.4826 * np.nanmedian(np.abs(d)) if np.isfinite(d).any() else np.nan
+    scale = MAD_TO_SIGMA * np.nanmedian(np.abs(d)) if np.isfinite(d).any() else np.nan
     if not np.isfinite(scale) or scale <= 0:
         return np.zeros(sk.shape, dtype=bool)
     return np.abs(np.nan_to_num(d)) > threshold_sigma * scale

@@ -895,7 +895,7 @@ class SweepFeed:
 
     def open(self):
         from rxlog.channelizer import Channelizer
-        from rxlog.receiver import open_source
+        from rxlog.station.sources import open_source
         from rxlog.sweep import Sweeper, SweepPlan
 
         kind = self.cfg["receiver"]["kind"]
@@ -999,7 +999,7 @@ class SpectraFeed:
         return self.clock.monotonic() + self._offset0
 
     def _new_run(self):
-        from rxlog.simulator import iter_spectra
+        from rxlog.sim.spectra import iter_spectra
 
         hours = self.RUN_HOURS if self.end is None else min(self.RUN_HOURS, (self.end - self.next_t) / 3600.0)
         self._run = iter_spectra(self.cfg, self.next_t, hours, seed=self.seed + self._runs)

@@ -17,7 +17,7 @@ import warnings
 import numpy as np
 from astropy.time import Time
 
-from rxlog.ephemeris import compute_tags
+from rxlog.sky.tags import compute_tags
 
 SITE = (47.5, 8.7, 450.0)
 EXAMPLE = dt.datetime(1992, 12, 16, 0, 0, tzinfo=dt.timezone.utc).timestamp()

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from rxlog.ephemeris import compute_tags
+from rxlog.sky.tags import compute_tags
 
 with warnings.catch_warnings():
     warnings.simplefilter("ignore")

@@ -15,7 +15,7 @@ import ephem
 import numpy as np
 import pytest
 
-from rxlog.ephemeris import compute_tags
+from rxlog.sky.tags import compute_tags
 
 SITE = (47.5, 8.7, 450.0)
 

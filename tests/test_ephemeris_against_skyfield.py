@@ -12,7 +12,7 @@ import warnings
 import numpy as np
 import pytest
 
-from rxlog.ephemeris import compute_tags
+from rxlog.sky.tags import compute_tags
 
 with warnings.catch_warnings():
     warnings.simplefilter("ignore")  # skyfield-data warns that its IERS file is old; unused here

@@ -12,7 +12,7 @@ import pytest
 from click.testing import CliRunner
 
 from rxlog.cli import main
-from rxlog.ephemeris import station_tags
+from rxlog.sky.tags import station_tags
 from rxlog.timeutil import parse_iso
 
 STATION = """[station]

@@ -6,8 +6,9 @@ import socket
 import numpy as np
 import pytest
 
-from rxlog import ephemeris
-from rxlog.ephemeris import TAG_KEYS, compute_tags, station_tags
+from rxlog.sky import tags as sky_tags
+from rxlog.sky import timescales
+from rxlog.sky.tags import TAG_KEYS, compute_tags, station_tags
 from rxlog.errors import RxlogError
 
 SITE = (47.5, 8.7, 450.0)
@@ -36,7 +37,7 @@ def test_interpolated_tags_match_direct_computation():
 
 def test_chunk_size_does_not_change_results(monkeypatch):
     whole = compute_tags(NIGHT, *SITE)
-    monkeypatch.setattr(ephemeris, "CHUNK", 1001)
+    monkeypatch.setattr(sky_tags, "CHUNK", 1001)
     pieces = compute_tags(NIGHT, *SITE)
     for key in TAG_KEYS:
         if key == "source_region":
@@ -95,12 +96,12 @@ def test_no_network_and_one_warning_line_past_the_earth_orientation_table(monkey
 
     monkeypatch.setattr(socket.socket, "connect", refuse)
     monkeypatch.setattr(socket, "create_connection", refuse)
-    ephemeris._tables.cache_clear()          # load the bundled tables again, offline
-    monkeypatch.setattr(ephemeris, "_warned", set())
+    timescales._tables.cache_clear()         # load the bundled tables again, offline
+    monkeypatch.setattr(timescales, "_warned", set())
     from astropy.utils import iers
 
     far = 2_051_222_400.0 + np.arange(0.0, 86400.0, 600.0)   # 2035: past the bundled tables
-    with caplog.at_level(logging.WARNING, logger="rxlog.ephemeris"):
+    with caplog.at_level(logging.WARNING, logger="rxlog.sky"):
         a = compute_tags(far, *SITE)
         b = compute_tags(far + 86400.0, *SITE)
     assert iers.conf.auto_download is False and iers.conf.auto_max_age is None

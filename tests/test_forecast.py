@@ -10,7 +10,8 @@ import numpy as np
 import pytest
 
 from rxlog.config import SCHEMA
-from rxlog.ephemeris import DEFAULT_REGION_BOXES, body_up_intervals, station_tags
+from rxlog.sky.regions import DEFAULT_REGION_BOXES
+from rxlog.sky.tags import body_up_intervals, station_tags
 from rxlog.errors import RxlogError
 from rxlog.forecast import (MIN_WINDOW_MIN, REGION_COLOURS, TOUCH_S, calendar_bars, forecast_figure,
                             forecast_watches, forecast_windows, format_forecast, make_forecast, plot_forecast,

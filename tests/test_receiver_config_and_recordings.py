@@ -6,7 +6,8 @@ import pytest
 
 from rxlog.config import ConfigError, config_from_text, load_config
 from rxlog.errors import RxlogError
-from rxlog.receiver import EndOfStream, RecordingSource, open_recording, open_source, to_complex64
+from rxlog.receiver import EndOfStream, RecordingSource, open_recording, to_complex64
+from rxlog.station.sources import open_source
 from rxlog.timeutil import parse_iso
 
 BASE = "[station]\nname='t'\nlatitude_deg=47\nlongitude_deg=8\n"

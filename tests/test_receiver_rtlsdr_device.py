@@ -15,8 +15,9 @@ import pytest
 from rxlog.channelizer import Channelizer
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
-from rxlog.receiver import ReceiverLost, RtlSdrSource, open_source
+from rxlog.receiver import ReceiverLost, RtlSdrSource
 from rxlog.spectrum import channel_grid
+from rxlog.station.sources import open_source
 
 R820T_GAINS = [0, 9, 14, 27, 37, 77, 87, 125, 144, 157, 166, 197, 207, 229, 254, 280, 297, 328, 338, 364, 372,
                386, 402, 421, 434, 439, 445, 480, 496]     # tenths of dB (librtlsdr's r82xx table, from memory)

@@ -5,9 +5,12 @@ predicts. Also: the SimulatedReceiver source contract and seeded reproducibility
 import numpy as np
 import pytest
 
-from rxlog import channelizer, simulator
+from rxlog import channelizer
 from rxlog.config import config_from_text
 from rxlog.receiver import EndOfStream
+from rxlog.sim.cells import cell_layout
+from rxlog.sim.iq import SimulatedReceiver, simulate_iq
+from rxlog.sim.spectra import simulate_spectra
 from rxlog.timeutil import parse_iso
 
 T0 = parse_iso("2026-12-01T23:00:00Z")
@@ -35,11 +38,11 @@ ring_s = 0
 
 @pytest.fixture(scope="module")
 def channelized(cfg):
-    x = simulator.simulate_iq(cfg, T0, 6.0, FC, RATE, seed=3, include=(), rfi="quiet-rural")
+    x = simulate_iq(cfg, T0, 6.0, FC, RATE, seed=3, include=(), rfi="quiet-rural")
     ch = channelizer.Channelizer(cfg, ring_s=0)
     pieces = ch.feed_samples(x, T0, FC, RATE, 30.0, "sim") + ch.flush()
     iq = pieces[0]
-    spec, _ = simulator.simulate_spectra(cfg, T0, 6 / 3600, seed=3, include=(), rfi="quiet-rural", noise=False)
+    spec, _ = simulate_spectra(cfg, T0, 6 / 3600, seed=3, include=(), rfi="quiet-rural", noise=False)
     return x, iq, spec
 
 
@@ -63,7 +66,7 @@ def test_channelized_background_matches_spectral_mode_within_half_a_db(channeliz
 def test_channelized_scatter_matches_the_spectral_gamma_shape(cfg, channelized):
     _, iq, spec = channelized
     ok = np.isfinite(iq.power_db).all(axis=0)
-    k = simulator.cell_layout(cfg).samples[ok]
+    k = cell_layout(cfg).samples[ok]
     resid = iq.power_db[:5, ok] - spec.power_db[:5, ok]
     resid -= resid.mean(axis=0)
     expected = 10 / np.log(10) / np.sqrt(k.mean()) * np.sqrt(4 / 5)   # 5 rows, mean removed
@@ -73,9 +76,9 @@ def test_channelized_scatter_matches_the_spectral_gamma_shape(cfg, channelized):
 
 
 def test_same_seed_same_samples(cfg):
-    a = simulator.simulate_iq(cfg, T0, 0.05, FC, RATE, seed=8)
-    b = simulator.simulate_iq(cfg, T0, 0.05, FC, RATE, seed=8)
-    c = simulator.simulate_iq(cfg, T0, 0.05, FC, RATE, seed=9)
+    a = simulate_iq(cfg, T0, 0.05, FC, RATE, seed=8)
+    b = simulate_iq(cfg, T0, 0.05, FC, RATE, seed=8)
+    c = simulate_iq(cfg, T0, 0.05, FC, RATE, seed=9)
     np.testing.assert_array_equal(a, b)
     assert not np.array_equal(a, c)
 
@@ -83,8 +86,8 @@ def test_same_seed_same_samples(cfg):
 def test_simulated_receiver_source_contract(cfg):
     waits = []
     now = [1000.0]
-    rx = simulator.SimulatedReceiver(cfg, start_unix=T0, seed=1, realtime=True, hours=0.5 / 3600,
-                                     clock=lambda: now[0], sleep=waits.append)
+    rx = SimulatedReceiver(cfg, start_unix=T0, seed=1, realtime=True, hours=0.5 / 3600,
+                           clock=lambda: now[0], sleep=waits.append)
     rx.open()
     b1 = rx.read(240_000)
     assert b1.samples.dtype == np.complex64 and b1.n == 240_000 and b1.t0 == T0
@@ -116,15 +119,15 @@ channels = 512
 [sweep]
 ring_s = 0
 """, tmp_path / "station.toml")
-    rx = simulator.SimulatedReceiver(cfg, start_unix=T0, seed=5, realtime=False, rfi="quiet-rural",
-                                     include=(), hours=8 / 3600)
+    rx = SimulatedReceiver(cfg, start_unix=T0, seed=5, realtime=False, rfi="quiet-rural",
+                           include=(), hours=8 / 3600)
     plan = sweep.SweepPlan.from_config(cfg)
     with sweep.Sweeper(rx, plan, channelizer.Channelizer(cfg, ring_s=0)) as sw:
         rows = list(sw.spectra())
     got = np.concatenate([r.power_db for r in rows])
     t_first = rows[0].t0
-    spec, _ = simulator.simulate_spectra(cfg, t_first, got.shape[0] / 3600, seed=5, include=(),
-                                         rfi="quiet-rural", noise=False)
+    spec, _ = simulate_spectra(cfg, t_first, got.shape[0] / 3600, seed=5, include=(),
+                               rfi="quiet-rural", noise=False)
     np.testing.assert_allclose(rows[0].chan_offset_s, spec.chan_offset_s, atol=1e-6)
     ok = np.isfinite(got).all(axis=0)
     assert ok.mean() > 0.95

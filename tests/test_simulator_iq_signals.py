@@ -6,8 +6,10 @@ carrier lines are steady tones, so their spectral kurtosis falls below the Gauss
 import numpy as np
 import pytest
 
-from rxlog import channelizer, simulator
+from rxlog import channelizer
 from rxlog.config import config_from_text
+from rxlog.sim.iq import SimulatedReceiver, simulate_iq
+from rxlog.sim.spectra import SpectralRun
 from rxlog.timeutil import parse_iso
 
 T = parse_iso("2026-12-02T04:00:00Z")      # Jupiter high over 47.5 N before dawn
@@ -41,7 +43,7 @@ def test_s_bursts_drift_at_the_storms_rate(tmp_path):
     cfg = _cfg(tmp_path, 0.004)
     inject = [{"class": "jovian_s", "t": T - 100, "duration_s": 600, "peak_excess_db": 12.0}]
     opts = dict(seed=2, include=(), inject=inject, rfi="quiet-rural")
-    x = simulator.simulate_iq(cfg, T, 2.0, FC, RATE, **opts)
+    x = simulate_iq(cfg, T, 2.0, FC, RATE, **opts)
     sp = _channelize(cfg, x)
     ok = np.isfinite(sp.power_db).all(axis=0)
     e = sp.power_db[:, ok] - np.median(sp.power_db[:, ok], axis=0)
@@ -52,8 +54,8 @@ def test_s_bursts_drift_at_the_storms_rate(tmp_path):
     lags = np.arange(1, 60)
     cc = [np.mean(e[: e.shape[0] - lag, k:] * e[lag:, :-k]) for lag in lags]
     measured = -1.0 / (lags[int(np.argmax(cc))] * sp.cadence_s)
-    rx = simulator.SimulatedReceiver(cfg, start_unix=T, realtime=False, hours=2.0 / 3600, **opts)
-    (row,) = [r for r in simulator.SpectralRun(cfg, T, 2.0 / 3600, noise=False, **opts).truth_rows()
+    rx = SimulatedReceiver(cfg, start_unix=T, realtime=False, hours=2.0 / 3600, **opts)
+    (row,) = [r for r in SpectralRun(cfg, T, 2.0 / 3600, noise=False, **opts).truth_rows()
               if r["class"] == "jovian_s"]
     assert rx.seed == 2 and -25 <= row["drift_mhz_s"] <= -10
     assert measured == pytest.approx(row["drift_mhz_s"], rel=0.2)
@@ -63,7 +65,7 @@ def test_carrier_lines_are_steady_tones(tmp_path):
     cfg = _cfg(tmp_path, 1.0)
     inject = [{"class": "rfi", "kind": "carrier", "t": T, "duration_s": 60, "peak_excess_db": 20.0,
                "fmin_mhz": 20.3}]
-    x = simulator.simulate_iq(cfg, T + 1, 4.0, FC, RATE, seed=4, include=(), inject=inject, rfi="quiet-rural")
+    x = simulate_iq(cfg, T + 1, 4.0, FC, RATE, seed=4, include=(), inject=inject, rfi="quiet-rural")
     sp = _channelize(cfg, x)
     covered = np.isfinite(sp.power_db).all(axis=0)
     c = int(np.argmax(np.where(covered, sp.power_db.mean(axis=0), -np.inf)))

@@ -9,8 +9,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from rxlog import channelizer, simulator
+from rxlog import channelizer
 from rxlog.config import config_from_text
+from rxlog.sim.cells import cell_layout
+from rxlog.sim.spectra import simulate_spectra
 from rxlog.timeutil import parse_iso
 
 START = parse_iso("2026-12-01T22:00:00Z")
@@ -31,10 +33,10 @@ channels = 256
 @pytest.fixture(scope="module")
 def cells(tmp_path_factory):
     cfg = station(tmp_path_factory.mktemp("gamma"))
-    noisy, _ = simulator.simulate_spectra(cfg, START, 0.2, seed=5, rfi="quiet-rural", include=())
-    clean, _ = simulator.simulate_spectra(cfg, START, 0.2, seed=5, rfi="quiet-rural", include=(), noise=False)
+    noisy, _ = simulate_spectra(cfg, START, 0.2, seed=5, rfi="quiet-rural", include=())
+    clean, _ = simulate_spectra(cfg, START, 0.2, seed=5, rfi="quiet-rural", include=(), noise=False)
     ratio = 10 ** ((noisy.power_db.astype(np.float64) - clean.power_db) / 10)
-    return cfg, ratio, simulator.cell_layout(cfg).samples
+    return cfg, ratio, cell_layout(cfg).samples
 
 
 def test_gamma_shape_is_the_channelizers_count_of_independent_samples(cells):

@@ -11,8 +11,10 @@ from astropy import units as u
 from astropy.time import Time
 from astropy.utils import iers
 
-from rxlog import sky
 from rxlog.config import config_from_text
+from rxlog.sim.galaxy import icrs_to_galactic_deg, local_sidereal_deg
+from rxlog.sim.model import SkyModel
+from rxlog.sim.render import Grid, render
 from rxlog.timeutil import parse_iso
 
 T0 = parse_iso("2026-09-01T20:00:00Z")     # a night when LST 19 h -> 2 h: the Galaxy sets
@@ -29,7 +31,7 @@ longitude_deg = {LON}
 [spectra]
 channels = 64
 """, tmp_path / "station.toml")
-    return sky.SkyModel(cfg, T0, T0 + 2 * 86400, seed=1, rfi="quiet-rural", include=())
+    return SkyModel(cfg, T0, T0 + 2 * 86400, seed=1, rfi="quiet-rural", include=())
 
 
 def astropy_lst_deg(t):
@@ -39,7 +41,7 @@ def astropy_lst_deg(t):
 
 def test_local_sidereal_time_matches_astropy():
     t = T0 + np.linspace(0, 30 * 86400, 50)
-    d = (sky.local_sidereal_deg(t, LON) - astropy_lst_deg(t) + 180) % 360 - 180
+    d = (local_sidereal_deg(t, LON) - astropy_lst_deg(t) + 180) % 360 - 180
     assert np.abs(d).max() < 0.01       # degrees (UT1-UTC ignored: < 0.004 deg)
 
 
@@ -51,8 +53,8 @@ def test_night_background_repeats_after_a_sidereal_day(model):
     t = T0 + np.arange(0, 5 * 3600, 30.0)
 
     def band_mean_db(times):
-        g = sky.Grid(times, model.freq_hz, np.zeros(model.freq_hz.size), 1.0, model.freq_hz[1] - model.freq_hz[0])
-        total, _ = sky.render(model, g)
+        g = Grid(times, model.freq_hz, np.zeros(model.freq_hz.size), 1.0, model.freq_hz[1] - model.freq_hz[0])
+        total, _ = render(model, g)
         return 10 * np.log10(total.mean(axis=1))
 
     day1 = band_mean_db(t)
@@ -70,6 +72,6 @@ def test_galactic_coordinates_match_astropy():
     rng = np.random.default_rng(2)
     ra, dec = rng.uniform(0, 360, 200), np.degrees(np.arcsin(rng.uniform(-1, 1, 200)))
     gal = SkyCoord(ra=ra * u.deg, dec=dec * u.deg, frame="icrs").galactic
-    l, b = sky.icrs_to_galactic_deg(ra, dec)
+    l, b = icrs_to_galactic_deg(ra, dec)
     assert np.abs((l - gal.l.deg + 180) % 360 - 180).max() < 1e-4
     assert np.abs(b - gal.b.deg).max() < 1e-4

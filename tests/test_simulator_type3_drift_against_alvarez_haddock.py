@@ -8,8 +8,8 @@ channel is sampled at the row time.
 
 import numpy as np
 
-from rxlog import simulator
 from rxlog.config import config_from_text
+from rxlog.sim.spectra import simulate_spectra
 from rxlog.timeutil import parse_iso
 
 T_BURST = parse_iso("2026-12-02T11:00:05Z")
@@ -31,8 +31,8 @@ mode = "single"
 center_hz = 20000000
 """, tmp_path / "station.toml")
     inject = [{"class": "solar_iii", "t": T_BURST, "peak_excess_db": 10.0, "fmin_mhz": 5.0, "fmax_mhz": 80.0}]
-    spec, truth = simulator.simulate_spectra(cfg, T_BURST - 5.0, 12 / 3600, include=(), inject=inject,
-                                             noise=False, rfi="quiet-rural")
+    spec, truth = simulate_spectra(cfg, T_BURST - 5.0, 12 / 3600, include=(), inject=inject,
+                                   noise=False, rfi="quiet-rural")
     f = spec.freq_hz / 1e6
     ok = np.isfinite(spec.power_db).all(axis=0)
     t_peak = spec.times[np.argmax(np.where(ok, spec.power_db, -np.inf), axis=0)] + spec.chan_offset_s

@@ -2,7 +2,7 @@
 ephemeris puts (CML, Io phase) in a source region.
 
 Reference for altitudes: skyfield with JPL DE421 (skyfield-data), test-only. Regions:
-rxlog.ephemeris (the module the simulator plans from; its own tests check it against
+rxlog.sky (the package the simulator plans from; its own tests check it against
 skyfield). A day at a raised event rate so the check is not vacuous.
 """
 
@@ -12,9 +12,9 @@ import warnings
 import numpy as np
 import pytest
 
-from rxlog import simulator
 from rxlog.config import config_from_text
-from rxlog.ephemeris import station_tags
+from rxlog.sim.spectra import iter_spectra
+from rxlog.sky.tags import station_tags
 from rxlog.timeutil import parse_iso
 
 with warnings.catch_warnings():
@@ -39,7 +39,7 @@ channels = 64
 cadence_s = 10.0
 """, tmp_path_factory.mktemp("vis") / "station.toml")
     classes = ("solar_iii", "solar_ii", "solar_iv", "fadeout", "jovian_l", "jovian_s")
-    run = simulator.iter_spectra(cfg, START, 48, seed=3, rfi="quiet-rural", include=classes, event_rate=30)
+    run = iter_spectra(cfg, START, 48, seed=3, rfi="quiet-rural", include=classes, event_rate=30)
     return cfg, run.truth_rows()
 
 

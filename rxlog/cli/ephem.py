@@ -66,7 +66,7 @@ def ephem(cfg, start, end, step, fmt, refraction):
       rxlog ephem --config station.toml --start 2026-12-01T20:00Z
       rxlog ephem --config station.toml --start 2026-12-01T18:00Z --end 2026-12-02T06:00Z --step 900 --format csv
     """
-    from rxlog.ephemeris import tag_table
+    from rxlog.sky.tags import tag_table
 
     t0 = parse_time_option(start, "--start", cfg)
     t1 = parse_time_option(end, "--end", cfg)

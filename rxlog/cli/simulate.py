@@ -34,7 +34,7 @@ def simulate_command(cfg, start, hours, out, iq, seed, rfi, center_mhz):
       rxlog simulate --config station.toml --start 2026-12-01T22:00:00Z --hours 0.005 --iq \\
           --center-mhz 20.1 --out iq/test
     """
-    from rxlog.simulator import write_simulation
+    from rxlog.sim.write import write_simulation
 
     t0 = parse_time_option(start, "--start", cfg)
     if center_mhz is not None and not iq:
