@@ -23,6 +23,7 @@ import zoneinfo
 from pathlib import Path
 from typing import Callable
 
+import icalendar
 import numpy as np
 
 from rxlog.sky.regions import regions_from_config
@@ -204,28 +205,9 @@ def format_forecast(windows: list[dict], timezone: str = "UTC") -> str:
 
 # --- iCalendar (RFC 5545) ------------------------------------------------------------
 
-def _ics_text(s: str) -> str:
-    """RFC 5545 3.3.11 TEXT escaping."""
-    return s.replace("\\", "\\\\").replace(";", "\\;").replace(",", "\\,").replace("\n", "\\n")
-
-
-def _fold(line: str) -> list[str]:
-    """RFC 5545 3.1: lines of at most 75 octets, continued with a leading space."""
-    out, cur, size = [], "", 0
-    limit = 75
-    for ch in line:
-        n = len(ch.encode("utf-8"))
-        if size + n > limit:
-            out.append(cur)
-            cur, size, limit = " ", 1, 75
-        cur += ch
-        size += n
-    out.append(cur)
-    return out
-
-
-def _ics_time(t: float) -> str:
-    return dt.datetime.fromtimestamp(round(t), tz=dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+def _utc(t: float) -> dt.datetime:
+    """A whole-second UTC datetime (iCalendar times carry whole seconds)."""
+    return dt.datetime.fromtimestamp(round(t), tz=dt.timezone.utc)
 
 
 def _hhmm(t: float, tz: zoneinfo.ZoneInfo) -> str:
@@ -261,24 +243,29 @@ def write_ics(windows: list[dict], path, station, stamp_unix: float | None = Non
     st = station if isinstance(station, dict) else {"name": str(station)}
     name = st.get("name", "station")
     tz = zoneinfo.ZoneInfo(st.get("timezone", "UTC"))
-    stamp = _ics_time(dt.datetime.now(dt.timezone.utc).timestamp() if stamp_unix is None else stamp_unix)
-    lines = ["BEGIN:VCALENDAR", "VERSION:2.0", "PRODID:-//rxlog//Jupiter decametric forecast//EN",
-             "CALSCALE:GREGORIAN", "METHOD:PUBLISH", "X-WR-CALNAME:" + _ics_text(f"rxlog forecast, {name}")]
+    stamp = _utc(dt.datetime.now(dt.timezone.utc).timestamp() if stamp_unix is None else stamp_unix)
+    cal = icalendar.Calendar()
+    cal.add("prodid", "-//rxlog//Jupiter decametric forecast//EN")
+    cal.add("version", "2.0")
+    cal.add("calscale", "GREGORIAN")
+    cal.add("method", "PUBLISH")
+    cal.add("x-wr-calname", f"rxlog forecast, {name}")
     for w in windows:
-        summary = f"Jupiter {w['region']} (max alt {w['max_jupiter_alt_deg']:.0f}°)"
-        regions = dict.fromkeys(p["region"] for p in w.get("parts") or [w])
-        ev = ["BEGIN:VEVENT",
-              f"UID:{_ics_time(w['start'])}-{_ics_text(name)}@rxlog",
-              f"DTSTAMP:{stamp}", f"DTSTART:{_ics_time(w['start'])}", f"DTEND:{_ics_time(w['end'])}",
-              f"SUMMARY:{_ics_text(summary)}",
-              f"DESCRIPTION:{_ics_text(_ics_description(w, name, tz))}", f"LOCATION:{_ics_text(name)}",
-              "CATEGORIES:" + ",".join(_ics_text(c) for c in ["Jupiter", *regions]), "TRANSP:TRANSPARENT"]
+        regions = list(dict.fromkeys(p["region"] for p in w.get("parts") or [w]))
+        ev = icalendar.Event()
+        ev.add("uid", f"{_utc(w['start']).strftime('%Y%m%dT%H%M%SZ')}-{name}@rxlog")
+        ev.add("dtstamp", stamp)
+        ev.add("dtstart", _utc(w["start"]))
+        ev.add("dtend", _utc(w["end"]))
+        ev.add("summary", f"Jupiter {w['region']} (max alt {w['max_jupiter_alt_deg']:.0f}°)")
+        ev.add("description", _ics_description(w, name, tz))
+        ev.add("location", name)
+        ev.add("categories", ["Jupiter", *regions])
+        ev.add("transp", "TRANSPARENT")
         if "latitude_deg" in st and "longitude_deg" in st:
-            ev.append(f"GEO:{float(st['latitude_deg']):.6f};{float(st['longitude_deg']):.6f}")
-        lines += ev + ["END:VEVENT"]
-    lines.append("END:VCALENDAR")
-    text = "".join(part + "\r\n" for line in lines for part in _fold(line))
-    return write_atomic(_check_output(path), text, what="calendar file")
+            ev.add("geo", (float(st["latitude_deg"]), float(st["longitude_deg"])))
+        cal.add_component(ev)
+    return write_atomic(_check_output(path), cal.to_ical(), what="calendar file")
 
 
 def _check_output(path) -> Path:
