@@ -509,7 +509,7 @@ class ReviewHandler(BaseHTTPRequestHandler):
             hist = store.label_history(event_id)
         finally:
             store.close()
-        self._json(HTTPStatus.OK, {"event_id": event_id, "history": _history_rows(hist)})
+        self._json(HTTPStatus.OK, {"event_id": event_id, "history": _history_rows(hist, self.server.night)})
 
     def _night_event(self, store: EventStore, event_id: str) -> dict | None:
         """The event if it belongs to this station and night; otherwise send 404 and return None."""
@@ -568,11 +568,14 @@ class ReviewHandler(BaseHTTPRequestHandler):
             hist = store.label_history(event_id)
         finally:
             store.close()
-        self._json(HTTPStatus.OK, {"event": {k: ev.get(k) for k in LABEL_FIELDS}, "history": _history_rows(hist)})
+        self._json(HTTPStatus.OK, {"event": {k: ev.get(k) for k in LABEL_FIELDS}, "history": _history_rows(hist, self.server.night)})
 
 
-def _history_rows(rows: list[dict]) -> list[dict]:
-    return [{k: r.get(k) for k in ("label", "note", "who", "created_utc")} for r in rows]
+def _history_rows(rows: list[dict], night: Night) -> list[dict]:
+    """A label history for the page; ``created_shown`` is the time in the page's own style
+    (local, with its zone), which the page's status line uses too."""
+    return [{**{k: r.get(k) for k in ("label", "note", "who", "created_utc")},
+             "created_shown": night.stamp(parse_iso(r["created_utc"]))} for r in rows]
 
 
 def serve_review(cfg, night: Night, host: str = "127.0.0.1", port: int = 8765, allow_remote: bool = False,
