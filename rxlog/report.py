@@ -880,6 +880,8 @@ class ZoomPlotter:
             marks.set_data(x, np.zeros_like(x))
         self.time_grid.set_data(np.repeat(x, 3), np.tile([0.0, 1.0, np.nan], len(x)))
         fmt = "%H:%M:%S" if step < 60 else "%H:%M"
+        # No label right at the left edge, where it would run into the row names.
+        ticks, x = ticks[ticks - a >= 0.06 * (b - a)], x[ticks - a >= 0.06 * (b - a)]
         local = self.night.zone(mid)
         zones = [(local, self.night.tz), ("UTC", dt.timezone.utc)] if local != "UTC" else [("UTC", dt.timezone.utc)]
         for k, labels in enumerate(self.time_labels):

@@ -61,7 +61,8 @@ REQUEST_TIMEOUT_S = 5.0   # first byte, then request line + headers + body, each
 MAX_HANDLERS = 16         # requests handled at once (one thread each)
 SLOT_WAIT_S = 2.0         # a request waits this long for a free handler, then gets 503
 MAX_WAITING = 256         # connections that have sent nothing yet; beyond, the oldest is closed
-WRITE_TIMEOUT_S = 10.0    # one send to a client that does not read its answer
+WRITE_TIMEOUT_S = 10.0    # to send one WRITE_CHUNK: a client must read at least ~6.5 kB/s
+WRITE_CHUNK = 64 * 1024
 
 
 def is_loopback(host: str) -> bool:
@@ -408,7 +409,10 @@ class ReviewHandler(BaseHTTPRequestHandler):
             self.send_header(k, v)
         self.end_headers()
         if self.command != "HEAD":
-            self.wfile.write(body)
+            # In pieces, each with its own write timeout: a large image to a slow but
+            # reading client is not cut off, one that stops reading is.
+            for k in range(0, len(body), WRITE_CHUNK):
+                self.wfile.write(body[k:k + WRITE_CHUNK])
 
     def _json(self, status: int, obj):
         self._send(status, json.dumps(obj).encode(), "application/json", {"Cache-Control": "no-store"})

@@ -428,3 +428,24 @@ def test_handler_threads_are_bounded_and_the_next_request_gets_503_then_200(quic
     finally:
         for s in stalled:
             s.close()
+
+
+def test_client_that_stops_reading_an_answer_is_cut_off(quick, night):
+    cfg, n, _ = night
+    big = report.report_dir(cfg, n) / "big.png"
+    big.write_bytes(b"\x89PNG" + bytes(32 * 1024 * 1024))     # more than any socket buffer holds
+    quick.write_timeout_s = 0.5
+    s = socket.socket()
+    s.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 4096)
+    try:
+        s.connect(("127.0.0.1", quick.port))
+        s.sendall(f"GET /big.png HTTP/1.1\r\nHost: 127.0.0.1:{quick.port}\r\n\r\n".encode())
+        time.sleep(0.3)
+        assert _handler_threads() == 1                     # sending, blocked on the full buffer
+        deadline = time.monotonic() + 5.0
+        while _handler_threads() and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert _handler_threads() == 0, "a client that does not read kept its handler"
+    finally:
+        s.close()
+        big.unlink()
