@@ -280,12 +280,18 @@ def test_clock_ticks_are_round_local_times_inside_every_zoom_window(offset_h):
 
 def test_zoom_time_axis_labels_local_and_utc_clock_times(all_classes, tmp_path):
     cfg, night, events, index = all_classes
-    _, plotter, ev, mid = _zoom_png(night, tmp_path, "solar_iii", 0.0)
-    names = [t.get_text() for t in plotter.row_names]
-    assert names == ["EST", "UTC"]
-    for tz, labels in ((ZoneInfo(TZ), plotter.time_labels[0]), (dt.timezone.utc, plotter.time_labels[1])):
-        shown = [(t.get_position()[0] + mid, t.get_text()) for t in labels if t.get_text()]
-        assert len(shown) >= 3
-        for t, text in shown:
+    rgb, plotter, ev, mid = _zoom_png(night, tmp_path, "solar_iii", 0.0)
+    assert [name for name, _ in plotter.clock_rows] == ["EST", "UTC"]
+    for (name, labels), tz in zip(plotter.clock_rows, (ZoneInfo(TZ), dt.timezone.utc)):
+        assert len(labels) >= 3
+        for x, text in labels:
+            t = x + mid
             assert dt.datetime.fromtimestamp(t, tz).strftime("%H:%M:%S") == text
             assert abs(t - round(t)) < 1e-6 and round(t) % 5 == 0       # round clock seconds
+    # The labels are on the image: ink in the two rows under the light curve, below each tick.
+    h = rgb.shape[0]
+    bottom = int(round(h - plotter.lc.bbox.y0))
+    for x, _ in plotter.clock_rows[0][1]:
+        col = int(round(plotter.lc.transData.transform((x, 0.0))[0]))
+        strip = rgb[bottom + 4:bottom + 24, col - 6:col + 7].min(axis=2)
+        assert strip.min() < 100, "no label under a tick"
