@@ -9,8 +9,9 @@ unknown origin; interference, which is "not the sky", gets the neutral grey that
 variants of the set put in place of black (#999999). Black itself is kept for outlines
 and text, so it never means a class.
 
-Nothing else in a plot or on the page uses these hues (bands, light curves and region
-boxes are grey or ink), so a colour always means a class.
+Nothing else in the night report's plots, its page or the comparison timeline uses these
+hues (bands, light curves and region boxes are grey or ink), so there a colour always
+means a class.
 
 The page's CSS is generated from the same table (``css_rules``), so the plots and the
 page cannot drift apart.

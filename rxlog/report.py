@@ -751,9 +751,9 @@ def cml_io_figure(cfg, night: Night, events: list[dict], track=None, dpi: int = 
 ZOOM_SPECTRUM_AXES = (0.10, 0.42, 0.76, 0.49)   # figure fraction: left, bottom, width, height
 ZOOM_CURVE_AXES = (0.10, 0.155, 0.76, 0.225)
 
-# Clock steps of a zoom's time axis (s): each divides the next larger unit, so ticks fall on
-# round clock times; every zone's offset from UTC is a whole number of 15 minutes, so steps
-# up to 15 min are round in UTC and local time at once.
+# Clock steps of a zoom's time axis (s): each divides a minute, an hour or a day, so ticks
+# fall on round clock times; every zone's offset from UTC is a whole number of 15 minutes
+# (tz database, current rules), so steps up to 15 min are round in UTC and local time at once.
 CLOCK_STEPS_S = (1, 2, 5, 10, 15, 20, 30, 60, 120, 300, 600, 900, 1200, 1800, 3600, 7200, 10800)
 MAX_CLOCK_TICKS = 7
 CLOCK_ROW_PT = (5.0, 14.0)   # label rows below the light curve, points from its bottom edge
