@@ -895,10 +895,10 @@ def write_outputs(result: CompareResult, E: _Events, grp, n_at, names, outdir: P
     return files
 
 
-# Okabe & Ito colour-blind-safe palette (Wong 2011, Nature Methods 8, 441).
-# Drawn in this order, so interference lies under the sky's events.
-CLASS_COLOUR = {"rfi": "#999999", "unknown": "#CC79A7", "fadeout": "#000000", "solar_iv": "#F0E442",
-                "solar_ii": "#E69F00", "jovian_s": "#56B4E9", "jovian_l": "#0072B2", "solar_iii": "#D55E00"}
+# Classes are drawn in this order, so interference lies under the sky's events; their
+# colours are rxlog.palette's, the same as in the night report.
+DRAW_ORDER = ("rfi", "unknown", "fadeout", "solar_iv", "solar_ii", "jovian_s", "jovian_l", "solar_iii")
+BAR_PT = 7.0   # class bar thickness, points
 
 
 def _segments(xa, xb, ya, yb):
@@ -933,6 +933,8 @@ def plot_timeline(E: _Events, grp, n_at, names, path: Path) -> Path:
     from matplotlib.figure import Figure
     from matplotlib.lines import Line2D
 
+    from rxlog.palette import CLASS_NAMES, colour, outline
+
     epoch = date2num(_dt.datetime(1970, 1, 1))
     day = 86400.0
     fig = Figure(figsize=(11, 1.6 + 0.6 * len(names)), layout="constrained")
@@ -963,16 +965,19 @@ def plot_timeline(E: _Events, grp, n_at, names, path: Path) -> Path:
             key = np.unique(np.c_[col, ymin[k], ymax[k]], axis=0)
             xs = lo + key[:, 0] * px
             ax.plot(*_segments(xs, xs, key[:, 1], key[:, 2]), color="#333333", linewidth=0.6, alpha=0.6)
-        for c, colour in CLASS_COLOUR.items():
+        for c in DRAW_ORDER:
             m = E.cls == CLS[c]
             if not m.any():
                 continue
+            # Over a light halo and a dark edge, like the report's boxes: yellow and sky blue
+            # show on white too.
             for row in np.unique(y[m]):
                 r = m & (y == row)
                 a, b = _runs(x0[r], x1[r], lo, px)
                 ax.plot(*_segments(a, b + px, np.full(len(a), row), np.full(len(a), row)),
-                        color=colour, linewidth=7, solid_capstyle="butt")
-            handles.append(Line2D([], [], color=colour, linewidth=7, label=c))
+                        color=colour(c), linewidth=BAR_PT, solid_capstyle="butt", path_effects=outline(BAR_PT))
+            handles.append(Line2D([], [], color=colour(c), linewidth=BAR_PT, path_effects=outline(BAR_PT),
+                                  label=f"{CLASS_NAMES[c]} ({c})"))
         if multi.any():
             mk = np.unique(np.c_[np.round((0.5 * (x0[multi] + x1[multi]) - lo) / px), y[multi]], axis=0)
             ax.plot(lo + mk[:, 0] * px, mk[:, 1] + 0.22, linestyle="", marker="v", markersize=4, color="#000000")

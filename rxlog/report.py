@@ -38,27 +38,21 @@ import numpy as np
 
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
+from rxlog.palette import CLASS_COLOURS, CLASS_NAMES, colour, css_rules, outline
 from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED
 from rxlog.store import CLASSES, LABELS, EventStore
 from rxlog.timeutil import iso, parse_iso
 
 # Human names of classes and labels, in the order the page shows them (keys 1..9, 0).
-LABEL_NAMES = {
-    "jovian_l": "Jupiter L-burst", "jovian_s": "Jupiter S-burst",
-    "solar_iii": "Solar type III", "solar_ii": "Solar type II", "solar_iv": "Solar type IV",
-    "fadeout": "Short-wave fadeout", "rfi": "Interference", "unknown": "Real, unclassified",
-    "noise": "Nothing there", "unsure": "Not sure",
-}
+# Class colours and names come from rxlog.palette, shared by every plot and the page.
+LABEL_NAMES = {**CLASS_NAMES, "noise": "Nothing there", "unsure": "Not sure"}
 LABEL_KEYS = {lab: str((i + 1) % 10) for i, lab in enumerate(LABELS)}
 JOVIAN = ("jovian_l", "jovian_s")
 
-# Class colours from the Okabe & Ito (2008) colour-universal-design palette, which stays
-# distinguishable under the common colour-vision deficiencies; 'rfi' and 'unknown' use
-# light grey and white so they show on the dark end of viridis.
-CLASS_COLOURS = {
-    "jovian_l": "#D55E00", "jovian_s": "#CC79A7", "solar_iii": "#F0E442", "solar_ii": "#E69F00",
-    "solar_iv": "#009E73", "fadeout": "#56B4E9", "rfi": "#BBBBBB", "unknown": "#FFFFFF",
-}
+# Colours of what is not a class (bands, light curves, region boxes, the selection):
+# greys and ink, so that a palette colour always means a class.
+INK = "#1d2327"
+BAND_GREY = "#6b757d"
 
 CHUNK_S = 3600.0             # archive read granularity
 OVERVIEW_TIME_BINS = 1440    # one minute per bin for a 24-h night
@@ -84,6 +78,28 @@ class Night:
 
     def local(self, t: float) -> dt.datetime:
         return dt.datetime.fromtimestamp(t, self.tz)
+
+    def zone(self, t: float) -> str:
+        """The station zone's name at ``t`` as clocks show it ('EST', 'CEST'; 'UTC+05:30' where it has none)."""
+        return zone_name(self.local(t))
+
+    def stamp(self, t: float, seconds: bool = True) -> str:
+        """Local date and time with the zone: '2027-02-03 21:04:05 EST'."""
+        return f"{self.local(t):%Y-%m-%d %H:%M{':%S' if seconds else ''}} {self.zone(t)}"
+
+
+def zone_name(d: dt.datetime) -> str:
+    """An aware datetime's zone abbreviation; 'UTC+hh:mm' where the zone has only a numeric one."""
+    name = d.tzname() or ""
+    if not name or name[0] in "+-" or name[0].isdigit():
+        off = d.strftime("%z") or "+0000"
+        return f"UTC{off[:3]}:{off[3:5]}"
+    return name
+
+
+def utc_stamp(t: float, seconds: bool = True) -> str:
+    """'2027-02-04 02:04:05 UTC'."""
+    return iso(t)[:19 if seconds else 16].replace("T", " ") + " UTC"
 
 
 def night_starting(cfg, date: dt.date) -> Night:
@@ -437,12 +453,16 @@ def _masked(night: Night, data: NightData, quality: list[dict]):
     return None, [], None
 
 
-def _fmt_local(night: Night, t: float, seconds=False) -> str:
+def _clock(night: Night, t: float, seconds=False) -> str:
     return night.local(t).strftime("%H:%M:%S" if seconds else "%H:%M")
 
 
 def _fmt_span(night: Night, a: float, b: float) -> str:
-    return f"{_fmt_local(night, a)}–{_fmt_local(night, b)}"
+    """'17:41–07:46 EST' (the zone named once, or at both ends when a clock change falls inside)."""
+    za, zb = night.zone(a), night.zone(b)
+    if za == zb:
+        return f"{_clock(night, a)}–{_clock(night, b)} {za}"
+    return f"{_clock(night, a)} {za}–{_clock(night, b)} {zb}"
 
 
 def _fmt_hours(s: float) -> str:
@@ -504,7 +524,7 @@ def _dnum(t):
 
 def _tz_label(night: Night) -> str:
     off = night.local(night.t0).strftime("%z")
-    return f"local time ({night.tz}, UTC{off[:3]}:{off[3:]} at the start)"
+    return f"local time, {night.zone(night.t0)} ({night.tz}, UTC{off[:3]}:{off[3:]} at the start)"
 
 
 def _excess_limits(excess: np.ndarray) -> tuple[float, float]:
@@ -532,7 +552,13 @@ def _zoom_limits(excess, t_edges, start, end, inside_f) -> tuple[float, float]:
 
 def plot_overview(path: Path, night: Night, data: NightData, events: list[dict], summary: dict,
                   dpi: int = 100) -> Path:
-    """The night at a glance: Sun/Jupiter/forecast bands, dynamic spectrum with boxes, hourly masking."""
+    """The night at a glance (``overview_figure``) as a PNG."""
+    overview_figure(night, data, events, summary, dpi).savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
+    return path
+
+
+def overview_figure(night: Night, data: NightData, events: list[dict], summary: dict, dpi: int = 100):
+    """Sun/Jupiter/forecast bands, the dynamic spectrum with event boxes, hourly masking (a matplotlib Figure)."""
     mpl = _mpl()
     import matplotlib.dates as mdates
     from matplotlib.collections import PatchCollection
@@ -548,14 +574,15 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
     cax = fig.add_axes((left + width + 0.012, 0.31, 0.015, 0.48))
     x0, x1 = _dnum([night.t0, night.t1])
 
-    # Bands: when the Sun and Jupiter were above the horizon, and the forecast windows.
-    rows = [("Sun up", summary["sun_up"], "#E69F00"), ("Jupiter up", summary["jupiter_up"], "#0072B2"),
-            ("forecast", [(w["start"], w["end"]) for w in summary["forecast"]], "#CC79A7")]
-    for k, (name, spans, colour) in enumerate(rows):
+    # Bands: when the Sun and Jupiter were above the horizon, and the forecast windows
+    # (grey, each row named: colours are kept for the classes).
+    rows = [("Sun up", summary["sun_up"]), ("Jupiter up", summary["jupiter_up"]),
+            ("forecast", [(w["start"], w["end"]) for w in summary["forecast"]])]
+    for k, (name, spans) in enumerate(rows):
         y = len(rows) - 1 - k
         xs = [(_dnum(a), _dnum(b) - _dnum(a)) for a, b in spans]
         if xs:
-            ax_band.broken_barh(xs, (y + 0.15, 0.7), facecolors=colour)
+            ax_band.broken_barh(xs, (y + 0.15, 0.7), facecolors=BAND_GREY)
     ax_band.set_yticks([len(rows) - 1 - k + 0.5 for k in range(len(rows))], [r[0] for r in rows])
     ax_band.set_ylim(0, len(rows))
     ax_band.tick_params(axis="x", labelbottom=False)
@@ -574,7 +601,8 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
                    vmin=vmin, vmax=vmax, extent=(x0, _dnum(data.t_edges[-1]), f0, f1))
     cb = fig.colorbar(im, cax=cax)
     cb.set_label("excess over background (dB)")
-    # Boxes sit one bin outside each event so the burst itself stays visible.
+    # Boxes sit one bin outside each event so the burst itself stays visible, each over a
+    # light halo and a dark edge so it shows on every colour of the map.
     # Interference boxes are drawn thin and faint underneath, so a day of ionosonde sweeps
     # and pulse storms does not hide the bursts.
     boxes, colours, faint = [], [], []
@@ -587,13 +615,13 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
             faint.append(Rectangle((a, lo), b - a, hi - lo))
             continue
         boxes.append(Rectangle((a, lo), b - a, hi - lo))
-        colours.append(CLASS_COLOURS.get(e["class"], "#FFFFFF"))
+        colours.append(colour(e["class"]))
     if faint:
         ax.add_collection(PatchCollection(faint, facecolors="none", edgecolors=CLASS_COLOURS["rfi"],
                                           linewidths=0.5, alpha=0.45))
     if boxes:
         pc = PatchCollection(boxes, facecolors="none", edgecolors=colours, linewidths=1.0)
-        pc.set_path_effects([pe.Stroke(linewidth=2.2, foreground="black"), pe.Normal()])
+        pc.set_path_effects(outline(1.0))
         ax.add_collection(pc)
     # Event numbers (as on the page) where they do not crowd each other; interference unnumbered.
     last = -np.inf
@@ -608,8 +636,8 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
             last = a
     present = sorted({e["class"] for e in events}, key=CLASSES.index)
     if present:
-        handles = [Rectangle((0, 0), 1, 1, facecolor="#444444", edgecolor=CLASS_COLOURS[c], linewidth=2)
-                   for c in present]
+        handles = [Rectangle((0, 0), 1, 1, facecolor="none", edgecolor=colour(c), linewidth=1.5,
+                             path_effects=outline(1.5)) for c in present]
         fig.legend(handles, [f"{LABEL_NAMES[c]} ({c})" for c in present], loc="lower center",
                    bbox_to_anchor=(left + width / 2, 0.0), fontsize=8, ncol=min(len(present), 4), frameon=False)
     ax.set_ylabel("frequency (MHz)")
@@ -635,8 +663,7 @@ def plot_overview(path: Path, night: Night, data: NightData, events: list[dict],
     ax_q.xaxis.set_minor_locator(mdates.HourLocator(tz=night.tz))
     ax_q.set_xlabel(_tz_label(night) + "; grey: no recording", labelpad=2)
     ax_band.set_xlim(x0, x1)
-    fig.savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
-    return path
+    return fig
 
 
 def _spans(lo: float, hi: float) -> list[tuple[float, float]]:
@@ -651,6 +678,12 @@ def _region_boxes(region) -> list[tuple[float, float, float, float]]:
 
 
 def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, dpi: int = 100) -> Path:
+    """``cml_io_figure`` as a PNG."""
+    cml_io_figure(cfg, night, events, track, dpi).savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
+    return path
+
+
+def cml_io_figure(cfg, night: Night, events: list[dict], track=None, dpi: int = 100):
     """The night's Jovian candidates (and Jupiter-up track) on the CML III–Io-phase plane over the source regions."""
     _mpl()
     from matplotlib.figure import Figure
@@ -659,15 +692,16 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
 
     fig = Figure(figsize=(7.0, 6.2), dpi=dpi)
     ax = fig.add_axes((0.11, 0.09, 0.62, 0.84))
-    fills = ["#56B4E9", "#009E73", "#E69F00", "#CC79A7", "#999999", "#F0E442", "#0072B2", "#D55E00"]
+    # Regions in grey, each named in its corner (overlaps show darker): colours are kept
+    # for the classes of the candidates drawn over them.
     handles = []
-    for k, reg in enumerate(regions_from_config(cfg)):
-        colour = fills[k % len(fills)]
+    for reg in regions_from_config(cfg):
         for c0, c1, i0, i1 in _region_boxes(reg):
-            ax.add_patch(Rectangle((c0, i0), c1 - c0, i1 - i0, facecolor=colour, alpha=0.22,
-                                   edgecolor=colour, linewidth=1.2))
+            ax.add_patch(Rectangle((c0, i0), c1 - c0, i1 - i0, facecolor=BAND_GREY, alpha=0.12,
+                                   edgecolor=BAND_GREY, linewidth=1.0))
             ax.text(c0 + 3, i1 - 3, reg.name, fontsize=7, va="top", color="#333333")
-        handles.append(Rectangle((0, 0), 1, 1, facecolor=colour, alpha=0.4, edgecolor=colour, label=reg.name))
+    handles.append(Rectangle((0, 0), 1, 1, facecolor=BAND_GREY, alpha=0.25, edgecolor=BAND_GREY,
+                             label="source regions"))
     if track is not None and len(track[0]):
         cml, io = np.asarray(track[0], float), np.asarray(track[1], float)
         # Break the line where either angle wraps through 360°.
@@ -685,13 +719,14 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
         ps, pe_ = e.get("io_phase_start_deg"), e.get("io_phase_end_deg")
         if None not in (cs, ce, ps, pe_) and abs(ce - cs) < 180 and abs(pe_ - ps) < 180:
             segs.append([(cs, ps), (ce, pe_)])
-            seg_colours.append(CLASS_COLOURS[e["class"]])
+            seg_colours.append(colour(e["class"]))
     if segs:
-        ax.add_collection(LineCollection(segs, colors=seg_colours, linewidths=2.5, capstyle="round"))
+        ax.add_collection(LineCollection(segs, colors=seg_colours, linewidths=2.5, capstyle="round",
+                                         path_effects=outline(2.5)))
     shown = sorted({e["class"] for _, e in pts}, key=CLASSES.index)
     for cls in shown:
         xy = np.array([(e["cml3_deg"], e["io_phase_deg"]) for _, e in pts if e["class"] == cls])
-        ax.scatter(xy[:, 0], xy[:, 1], s=36, color=CLASS_COLOURS[cls], edgecolors="black", linewidths=0.8,
+        ax.scatter(xy[:, 0], xy[:, 1], s=36, color=colour(cls), edgecolors="black", linewidths=0.8,
                    zorder=3)
     # Numbers as on the page, where they do not pile up on each other.
     labelled = []
@@ -701,7 +736,7 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
             ax.annotate(str(i + 1), (c, p), xytext=(4, 3), textcoords="offset points", fontsize=7)
             labelled.append((c, p))
     for cls in shown:
-        handles.append(ax.scatter([], [], s=36, color=CLASS_COLOURS[cls], edgecolors="black",
+        handles.append(ax.scatter([], [], s=36, color=colour(cls), edgecolors="black",
                                   linewidths=0.8, label=LABEL_NAMES[cls]))
     ax.set_xlim(0, 360); ax.set_ylim(0, 360)
     ax.set_xticks(range(0, 361, 60)); ax.set_yticks(range(0, 361, 60))
@@ -710,11 +745,29 @@ def plot_cml_io(path: Path, cfg, night: Night, events: list[dict], track=None, d
     ax.grid(True, color="#cccccc", linewidth=0.5)
     ax.set_title(f"Jovian candidates, night of {night.name}: {len(pts)}", loc="left", fontsize=11)
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), fontsize=8, frameon=False)
-    fig.savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
-    return path
+    return fig
 
 
 ZOOM_SPECTRUM_AXES = (0.10, 0.42, 0.76, 0.49)   # figure fraction: left, bottom, width, height
+ZOOM_CURVE_AXES = (0.10, 0.155, 0.76, 0.225)
+
+# Clock steps of a zoom's time axis (s): each divides a minute, an hour or a day, so ticks
+# fall on round clock times; every zone's offset from UTC is a whole number of 15 minutes
+# (tz database, current rules), so steps up to 15 min are round in UTC and local time at once.
+CLOCK_STEPS_S = (1, 2, 5, 10, 15, 20, 30, 60, 120, 300, 600, 900, 1200, 1800, 3600, 7200, 10800)
+MAX_CLOCK_TICKS = 7
+CLOCK_ROW_PT = (5.0, 14.0)   # label rows below the light curve, points from its bottom edge
+
+
+def clock_ticks(a: float, b: float, offset_s: float = 0.0) -> tuple[np.ndarray, int]:
+    """Round clock times inside [a, b] (POSIX s), at most MAX_CLOCK_TICKS of them: (ticks, step).
+
+    Rounded on the local clock, ``offset_s`` east of UTC (steps of an hour or more then
+    fall on local hours).
+    """
+    step = next((s for s in CLOCK_STEPS_S if (b - a) / s <= MAX_CLOCK_TICKS - 1), CLOCK_STEPS_S[-1])
+    first = math.ceil((a + offset_s) / step) * step - offset_s
+    return np.arange(first, b + 1e-6, step)[:MAX_CLOCK_TICKS], step
 
 
 class ZoomPlotter:
@@ -725,8 +778,11 @@ class ZoomPlotter:
     box, the light curves and a few texts. The light-curve and colour scales always
     have five evenly spaced ticks, with limits chosen so those ticks fall on round
     values; the tick marks are part of the frame and only their labels are drawn per
-    event. That is several times faster than a full redraw, which is what makes 500
-    zooms a minute's work.
+    event. The time axis is the event's own clock: round local and UTC times, their
+    tick marks drawn per event and their labels written onto the finished image with
+    Pillow in matplotlib's own font (a dozen short labels cost 1 ms there, 25 ms as
+    matplotlib texts). That is several times faster than a full redraw, which is what
+    makes 500 zooms a minute's work.
     """
 
     N_TICKS = 5
@@ -737,15 +793,17 @@ class ZoomPlotter:
         from matplotlib.cm import ScalarMappable
         from matplotlib.colors import Normalize
         from matplotlib.figure import Figure
+        from matplotlib.lines import TICKDOWN
         from matplotlib.patches import Rectangle
-        from matplotlib.ticker import LinearLocator, NullFormatter
-        import matplotlib.patheffects as pe
+        from matplotlib.font_manager import FontProperties, findfont
+        from matplotlib.ticker import LinearLocator, NullFormatter, NullLocator
+        from PIL import ImageFont
 
         self.night, self.dpi = night, dpi
         self.fig = Figure(figsize=(7.0, 4.4), dpi=dpi)
         self.canvas = FigureCanvasAgg(self.fig)
         self.ax = self.fig.add_axes(ZOOM_SPECTRUM_AXES)
-        self.lc = self.fig.add_axes((0.10, 0.12, 0.76, 0.25), sharex=self.ax)
+        self.lc = self.fig.add_axes(ZOOM_CURVE_AXES, sharex=self.ax)
         self.cax = self.fig.add_axes((0.875, 0.42, 0.02, 0.49))
         cmap = mpl.colormaps["viridis"].with_extremes(bad="#d0d0d0")
         f0, f1 = float(f_edges_mhz[0]), float(f_edges_mhz[-1])
@@ -756,19 +814,17 @@ class ZoomPlotter:
         cb.set_ticks(np.linspace(0, 1, self.N_TICKS))
         self.cax.yaxis.set_major_formatter(NullFormatter())
         self.cax.set_ylabel("excess (dB)", fontsize=8, labelpad=18)
-        self.box = Rectangle((0, 0), 1, 1, facecolor="none", linewidth=1.4,
-                             path_effects=[pe.Stroke(linewidth=2.8, foreground="black"), pe.Normal()])
+        self.box = Rectangle((0, 0), 1, 1, facecolor="none", linewidth=1.4, path_effects=outline(1.4))
         self.ax.add_patch(self.box)
         self.ax.set_ylim(f0, f1)
         self.ax.set_ylabel("frequency (MHz)", fontsize=8)
         self.ax.tick_params(labelbottom=False, labelsize=7)
         self.title = self.fig.text(0.10, 0.935, "", fontsize=9)
-        self.when = self.fig.text(0.48, 0.015, "", fontsize=8, ha="center")
-        self.span = Rectangle((0, 0), 1, 1, transform=self.lc.get_xaxis_transform(), facecolor="#E69F00",
-                              alpha=0.25, linewidth=0)
+        self.when = ""          # the window centre's date and time, written under the clock rows
+        self.span = Rectangle((0, 0), 1, 1, transform=self.lc.get_xaxis_transform(), alpha=0.25, linewidth=0)
         self.lc.add_patch(self.span)
-        (self.line_out,) = self.lc.plot([], [], color="#999999", linewidth=1.0, label="rest of band")
-        (self.line_in,) = self.lc.plot([], [], color="#0072B2", linewidth=1.3, label="event band")
+        (self.line_out,) = self.lc.plot([], [], color="#a3abb1", linewidth=1.0, label="rest of band")
+        (self.line_in,) = self.lc.plot([], [], color=INK, linewidth=1.3, label="event band")
         self.lc.set_ylabel("excess (dB)", fontsize=8, labelpad=16)
         self.lc.tick_params(labelsize=7)
         self.lc.yaxis.set_major_locator(LinearLocator(self.N_TICKS))
@@ -780,9 +836,21 @@ class ZoomPlotter:
                                        fontsize=7) for y in frac]
         self.cb_labels = [self.cax.text(1.6, y, "", transform=self.cax.transAxes, ha="left", va="center",
                                         fontsize=7) for y in frac]
-        # Drawn per event, in this order (the box over the image).
-        self.dynamic = [self.im, self.box, self.span, self.line_out, self.line_in, self.title, self.when,
-                        *self.lc_labels, *self.cb_labels]
+        # The time axis, per event: grid lines and tick marks at round clock times, one row
+        # of labels in local time and one in UTC (one row when the station keeps UTC).
+        self.lc.xaxis.set_major_locator(NullLocator())
+        self.lc.xaxis.set_minor_locator(NullLocator())
+        (self.time_grid,) = self.lc.plot([], [], color="#dddddd", linewidth=0.5,
+                                         transform=self.lc.get_xaxis_transform())
+        self.time_marks = [a.plot([], [], linestyle="", marker=TICKDOWN, markersize=3.5, color="black",
+                                  clip_on=False, transform=a.get_xaxis_transform())[0] for a in (self.ax, self.lc)]
+        self.clock_rows: list[tuple[str, list[tuple[float, str]]]] = []   # (zone, [(x, label)]) per row
+        self.fonts = [ImageFont.truetype(findfont(FontProperties(weight=w)), size=pt * dpi / 72.0,
+                                         layout_engine=ImageFont.Layout.BASIC)
+                      for w, pt in (("normal", 7.0), ("bold", 7.0), ("normal", 8.0))]
+        # Drawn per event, in this order (the box over the image, the curves over the grid).
+        self.dynamic = [self.im, self.box, self.span, self.time_grid, self.line_out, self.line_in,
+                        *self.time_marks, self.title, *self.lc_labels, *self.cb_labels]
         for a in self.dynamic:
             a.set_animated(True)
         self.frames: dict[float, object] = {}
@@ -791,7 +859,6 @@ class ZoomPlotter:
         """The drawn frame for a window of [-half, half] seconds (rendered on first use)."""
         self.ax.set_xlim(-half, half)
         if half not in self.frames:
-            self.lc.set_xlabel("seconds from the window centre", fontsize=8, labelpad=1)
             self.canvas.draw()
             self.frames[half] = self.canvas.copy_from_bbox(self.fig.bbox)
         return self.frames[half]
@@ -803,6 +870,39 @@ class ZoomPlotter:
         for k, t in enumerate(labels):
             t.set_text(f"{start + k * step:.{digits}f}")
         return start, start + (self.N_TICKS - 1) * step
+
+    def _clock_axis(self, a: float, b: float, mid: float):
+        """Tick marks, grid lines and labels at round clock times of the window [a, b]."""
+        offset = self.night.local(mid).utcoffset().total_seconds()
+        ticks, step = clock_ticks(a, b, offset)
+        x = ticks - mid
+        for marks in self.time_marks:
+            marks.set_data(x, np.zeros_like(x))
+        self.time_grid.set_data(np.repeat(x, 3), np.tile([0.0, 1.0, np.nan], len(x)))
+        fmt = "%H:%M:%S" if step < 60 else "%H:%M"
+        # No label right at the left edge, where it would run into the row names.
+        ticks, x = ticks[ticks - a >= 0.045 * (b - a)], x[ticks - a >= 0.045 * (b - a)]
+        local = self.night.zone(mid)
+        zones = [(local, self.night.tz), ("UTC", dt.timezone.utc)] if local != "UTC" else [("UTC", dt.timezone.utc)]
+        self.clock_rows = [(name, [(float(xj), dt.datetime.fromtimestamp(t, tz).strftime(fmt))
+                                   for xj, t in zip(x, ticks)]) for name, tz in zones]
+
+    def _write_clock_labels(self, img):
+        """Write the rows of clock labels (and their zone names) under the light curve, and
+        the window centre's date and time at the foot, onto ``img``."""
+        from PIL import ImageDraw
+
+        draw = ImageDraw.Draw(img)
+        h = img.height
+        bottom = h - self.lc.bbox.y0
+        name_x = self.lc.bbox.x0 - 0.012 * self.lc.bbox.width
+        for (name, labels), pt in zip(self.clock_rows, CLOCK_ROW_PT):
+            y = bottom + pt * self.dpi / 72.0
+            draw.text((name_x, y), name, font=self.fonts[1], fill="black", anchor="ra")
+            for xj, text in labels:
+                px = self.lc.transData.transform((xj, 0.0))[0]
+                draw.text((px, y), text, font=self.fonts[0], fill="black", anchor="ma")
+        draw.text((0.48 * img.width, h - 0.02 * h), self.when, font=self.fonts[2], fill="black", anchor="md")
 
     def draw(self, path: Path, number: int, ev: dict, t_edges: np.ndarray, excess: np.ndarray,
              source: str) -> Path:
@@ -824,7 +924,7 @@ class ZoomPlotter:
         self.im.set_clim(*self._scale(self.cb_labels, *_zoom_limits(excess, t_edges, start, end, inside)))
         self.box.set_bounds(start - mid, ev["fmin_mhz"], max(end - start, 1e-3),
                             max(ev["fmax_mhz"] - ev["fmin_mhz"], 0.02))
-        self.box.set_edgecolor(CLASS_COLOURS.get(ev["class"], "#FFFFFF"))
+        self.box.set_edgecolor(colour(ev["class"]))
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             lc_in = np.nanmean(excess[:, inside], axis=1)
@@ -833,12 +933,14 @@ class ZoomPlotter:
         self.line_in.set_data(xc, lc_in)
         self.line_out.set_data(xc, lc_out)
         self.span.set_bounds(start - mid, 0, max(end - start, 1e-3), 1)
+        self.span.set_facecolor(colour(ev["class"]))
         both = np.concatenate([lc_in, lc_out])
         both = both[np.isfinite(both)]
         lo, hi = (float(both.min()), float(both.max())) if both.size else (-1.0, 1.0)
         head = max(0.35 * (hi - lo), 0.3)            # room for the legend
         self.lc.set_ylim(*self._scale(self.lc_labels, lo, hi + head))
-        self.when.set_text(f"centre {self.night.local(mid):%H:%M:%S} local = {iso(mid)[11:19]} UTC")
+        self._clock_axis(float(t_edges[0]), float(t_edges[-1]), mid)
+        self.when = f"window centre {self.night.stamp(mid)} = {utc_stamp(mid)}"
         self.title.set_text(f"#{number}  {LABEL_NAMES.get(ev['class'], ev['class'])}  ({source})")
         self.canvas.restore_region(frame)
         for a in self.dynamic:
@@ -846,8 +948,9 @@ class ZoomPlotter:
         # A 256-colour palette (viridis itself has 256 entries) keeps a noisy zoom near 60 kB
         # instead of 250 kB in full colour, and is quicker to write.
         w, h = self.canvas.get_width_height()
-        Image.frombuffer("RGBA", (w, h), self.canvas.buffer_rgba(), "raw", "RGBA", 0, 1).convert("RGB") \
-            .quantize(colors=256, method=Image.Quantize.FASTOCTREE).save(path, format="PNG", compress_level=6)
+        img = Image.frombuffer("RGBA", (w, h), self.canvas.buffer_rgba(), "raw", "RGBA", 0, 1).convert("RGB")
+        self._write_clock_labels(img)
+        img.quantize(colors=256, method=Image.Quantize.FASTOCTREE).save(path, format="PNG", compress_level=6)
         return path
 
 
@@ -866,8 +969,9 @@ def _round_ticks(lo: float, hi: float, n: int) -> tuple[float, float]:
 
 # -- the page ---------------------------------------------------------------------------
 
-PAGE_CSS = """
-:root { --ink:#1d2327; --muted:#5b6770; --line:#d5dbe0; --panel:#f5f7f9; --sel:#0072B2; }
+# The class colours come first, generated from rxlog.palette (the plots' own table).
+PAGE_CSS = css_rules() + """
+:root { --ink:#1d2327; --muted:#5b6770; --line:#d5dbe0; --panel:#f5f7f9; --sel:#3a4750; }
 * { box-sizing: border-box; }
 body { font: 15px/1.45 system-ui, -apple-system, "Segoe UI", sans-serif; color: var(--ink);
        margin: 0; background: #fff; }
@@ -884,11 +988,12 @@ td, th { padding: 3px 10px 3px 0; text-align: left; vertical-align: top; }
 th { font-size: 12px; color: var(--muted); font-weight: 600; }
 table.forecast td:nth-child(-n+4), table.forecast th { white-space: nowrap; }
 img.plot { max-width: 100%; height: auto; border: 1px solid var(--line); }
-.chip { display: inline-block; padding: 0 7px; border-radius: 9px; font-size: 12px; color: #fff;
-        background: #2b2f33; border: 2px solid var(--c, #888); margin: 1px 3px 1px 0; white-space: nowrap; }
-.event { border: 1px solid var(--line); border-radius: 8px; margin: 10px 0; padding: 8px 12px;
-         scroll-margin-top: 60px; }
-.event.current { border-color: var(--sel); box-shadow: 0 0 0 2px var(--sel); }
+.chip { display: inline-block; padding: 0 7px; border-radius: 9px; font-size: 12px; color: var(--c-ink, #000);
+        background: var(--c, #ccc); border: 1px solid rgba(0, 0, 0, .55); margin: 1px 3px 1px 0;
+        white-space: nowrap; }
+.event { border: 1px solid var(--line); border-left: 7px solid var(--c, var(--line)); border-radius: 8px;
+         margin: 10px 0; padding: 8px 12px; scroll-margin-top: 60px; }
+.event.current { border-color: var(--sel); border-left-color: var(--c, var(--sel)); box-shadow: 0 0 0 2px var(--sel); }
 .event h3 { font-size: 15px; margin: 0 0 6px; font-weight: 600; }
 .event .num { display: inline-block; min-width: 2.2em; color: var(--muted); }
 .event .body { display: flex; flex-wrap: wrap; gap: 14px; }
@@ -899,6 +1004,7 @@ img.plot { max-width: 100%; height: auto; border: 1px solid var(--line); }
 .labeller button { font: inherit; font-size: 13px; padding: 2px 8px; border-radius: 5px;
                    border: 1px solid var(--line); background: #fff; cursor: pointer; }
 .labeller button kbd { font-size: 11px; color: var(--muted); margin-right: 4px; }
+.labeller button[class*="cls-"] { border-left: 5px solid var(--c); }
 .labeller button.on { background: var(--sel); color: #fff; border-color: var(--sel); }
 .labeller button.on kbd { color: #dde; }
 .labeller button:disabled { cursor: not-allowed; opacity: .55; }
@@ -956,7 +1062,7 @@ PAGE_JS = r"""
     ol.textContent = '';
     rows.forEach(function (h) {
       const li = document.createElement('li');
-      li.textContent = h.created_utc.replace('T', ' ').slice(0, 19) + ' UTC: ' + data.names[h.label] +
+      li.textContent = h.created_shown + ': ' + data.names[h.label] +
         (h.who ? ' by ' + h.who : '') + (h.note ? ' — ' + h.note : '');
       ol.appendChild(li);
     });
@@ -1002,7 +1108,9 @@ PAGE_JS = r"""
                       who: who.value.trim()})
       .then(function (j) {
         showLabel(c, j.event); showHistory(c, j.history);
-        status(c, 'saved ' + data.names[label] + ' at ' + new Date().toLocaleTimeString());
+        // The store's time of the label, in the style of the history beneath.
+        const last = j.history[j.history.length - 1];
+        status(c, 'saved ' + data.names[label] + (last ? ' at ' + last.created_shown : ''));
       })
       .catch(function (e) { status(c, 'not saved: ' + e.message, true); });
   }
@@ -1060,6 +1168,10 @@ def event_image_name(ev: dict) -> str:
     return f"events/{ev['event_id']}.png"
 
 
+def _button_class(lab: str, current: str | None) -> str:
+    return " ".join(([f"cls-{lab}"] if lab in CLASS_COLOURS else []) + (["on"] if lab == current else []))
+
+
 def _event_card(i: int, ev: dict, night: Night, zoom_source: str | None) -> str:
     peak = parse_iso(ev["peak_utc"])
     cls = ev["class"]
@@ -1068,7 +1180,7 @@ def _event_card(i: int, ev: dict, night: Night, zoom_source: str | None) -> str:
            f'alt="dynamic spectrum and light curve of event {i + 1}"></a>' if zoom_source
            else '<p class="muted">No spectra for this event in the archive.</p>')
     rows = [
-        ("peak", f"{night.local(peak):%Y-%m-%d %H:%M:%S} local · {ev['peak_utc'][:19].replace('T', ' ')} UTC"),
+        ("peak", f"{night.stamp(peak)} · {utc_stamp(peak)}"),
         ("band", f"{ev['fmin_mhz']:.3f}–{ev['fmax_mhz']:.3f} MHz"),
         ("duration", _num(ev.get("duration_s"), "{:.1f}", " s")),
         ("peak excess · S/N", f"{_num(ev.get('peak_excess_db'), '{:.1f}', ' dB')} · {_num(ev.get('snr'), '{:.1f}')}"),
@@ -1082,13 +1194,13 @@ def _event_card(i: int, ev: dict, night: Night, zoom_source: str | None) -> str:
         ("event id", ev["event_id"]),
     ]
     facts = "".join(f"<tr><td>{_e(k)}</td><td>{_e(v)}</td></tr>" for k, v in rows)
-    buttons = "".join(f'<button type="button" data-label="{lab}"{" class=on" if ev.get("label") == lab else ""}>'
+    buttons = "".join(f'<button type="button" data-label="{lab}" class="{_button_class(lab, ev.get("label"))}">'
                       f'<kbd>{LABEL_KEYS[lab]}</kbd>{_e(LABEL_NAMES[lab])}</button>' for lab in LABELS)
     label = (f"{LABEL_NAMES[ev['label']]}" + (f" ({ev['label_who']})" if ev.get("label_who") else "")
              if ev.get("label") else "not labelled")
     return f"""
-<section class="event" id="ev-{i + 1}" data-event-id="{_e(ev['event_id'])}" data-label="{_e(ev.get('label') or '')}">
-<h3><span class="num">#{i + 1}</span> {night.local(peak):%H:%M:%S} · <span class="chip" style="--c:{CLASS_COLOURS[cls]}">{_e(LABEL_NAMES[cls])} {ev.get('confidence') or 0:.2f}</span>
+<section class="event cls-{_e(cls)}" id="ev-{i + 1}" data-event-id="{_e(ev['event_id'])}" data-class="{_e(cls)}" data-label="{_e(ev.get('label') or '')}">
+<h3><span class="num">#{i + 1}</span> <span class="when">{_clock(night, peak, True)} {night.zone(peak)}</span> · <span class="chip cls-{_e(cls)}">{_e(LABEL_NAMES.get(cls, cls))} · confidence {_num(ev.get('confidence'), '{:.2f}')}</span>
 label: <span class="current-label">{_e(label)}</span></h3>
 <div class="body">{img}
 <table class="ev">{facts}</table>
@@ -1114,7 +1226,7 @@ def render_page(cfg, night: Night, summary: dict, events: list[dict], images: di
         ("Sun up", ", ".join(_fmt_span(night, a, b) for a, b in s["sun_up"]) or "not up"),
     ]
     facts_html = "".join(f"<div><b>{_e(k)}</b>{_e(v)}</div>" for k, v in facts)
-    chips = "".join(f'<span class="chip" style="--c:{CLASS_COLOURS[c]}">{_e(LABEL_NAMES[c])}: {n}</span>'
+    chips = "".join(f'<span class="chip cls-{_e(c)}">{_e(LABEL_NAMES.get(c, c))}: {n}</span>'
                     for c, n in s["per_class"].items() if n) or '<span class="muted">no events</span>'
     index = {e["event_id"]: i + 1 for i, e in enumerate(events)}
     if s["forecast"]:
@@ -1124,7 +1236,7 @@ def render_page(cfg, night: Night, summary: dict, events: list[dict], images: di
             f"<td>{100 * w['recorded_fraction']:.0f} %</td><td>"
             + (", ".join(f'<a href="#ev-{index[x]}">#{index[x]}</a>' for x in w["seen"]) or "nothing seen")
             + "</td></tr>" for w in s["forecast"])
-        forecast = ("<table class=\"forecast\"><tr><th>region</th><th>window (local)</th><th>Jupiter max alt</th>"
+        forecast = ("<table class=\"forecast\"><tr><th>region</th><th>window</th><th>Jupiter max alt</th>"
                     f"<th>recorded</th><th>Jovian events seen</th></tr>{frows}</table>")
     else:
         forecast = '<p class="muted">No forecast windows fell in this night.</p>'
@@ -1152,9 +1264,9 @@ def render_page(cfg, night: Night, summary: dict, events: list[dict], images: di
 <style>{PAGE_CSS}</style></head>
 <body>
 <header><h1>{_e(st['name'])} — night of {night.name}</h1>
-<div class="sub">{_fmt_local(night, night.t0)} {night.local(night.t0):%d %b} to {_fmt_local(night, night.t1)}
-{night.local(night.t1):%d %b} local time ({_e(night.tz)}) · {st['latitude_deg']:.3f}°, {st['longitude_deg']:.3f}° ·
-report made {s['generated_utc'][:16].replace('T', ' ')} UTC</div></header>
+<div class="sub">{_clock(night, night.t0)} {night.zone(night.t0)} {night.local(night.t0):%d %b} to
+{_clock(night, night.t1)} {night.zone(night.t1)} {night.local(night.t1):%d %b} ({_e(night.tz)}) ·
+{st['latitude_deg']:.3f}°, {st['longitude_deg']:.3f}° · report made {utc_stamp(parse_iso(s['generated_utc']), seconds=False)}</div></header>
 <div id="toolbar"><label>your name <input id="who" type="text" maxlength="100" placeholder="optional"></label>
 <span><kbd>j</kbd>/<kbd>k</kbd> next/previous · <kbd>u</kbd> next unlabelled · <kbd>1</kbd>…<kbd>0</kbd> label · <kbd>n</kbd> note · <kbd>?</kbd> keys</span>
 <span id="mode"></span></div>
@@ -1339,16 +1451,17 @@ def list_events(cfg, night: str | Night | None = None, cls: str | None = None,
 
 
 def event_table(cfg, night: str | Night | None = None, cls: str | None = None, unlabelled: bool = False) -> str:
-    """``list_events`` as a plain-text table with local peak times."""
+    """``list_events`` as a plain-text table with local peak times, each with its zone."""
     rows = list_events(cfg, night, cls, unlabelled)
     if not rows:
         return "no events match"
     tz = ZoneInfo(cfg["station"]["timezone"])
-    head = ("event_id", "peak (local)", "class", "conf", "MHz", "dur s", "S/N", "region", "label")
+    head = ("event_id", "peak", "class", "confidence", "MHz", "dur s", "S/N", "region", "label")
     body = []
     for r in rows:
         peak = dt.datetime.fromtimestamp(parse_iso(r["peak_utc"]), tz)
-        body.append((r["event_id"], f"{peak:%Y-%m-%d %H:%M:%S}", r["class"], f"{r.get('confidence') or 0:.2f}",
+        body.append((r["event_id"], f"{peak:%Y-%m-%d %H:%M:%S} {zone_name(peak)}", r["class"],
+                     _num(r.get("confidence"), "{:.2f}"),
                      f"{r['fmin_mhz']:.2f}-{r['fmax_mhz']:.2f}", _num(r.get("duration_s"), "{:.1f}"),
                      _num(r.get("snr"), "{:.1f}"), r.get("source_region") or "-",
                      (r["label"] + (f" ({r['label_who']})" if r.get("label_who") else "")) if r.get("label") else "-"))

@@ -14,16 +14,28 @@ dependency and no safety. Safety rules:
 - A label POST must carry this server session's token (put into the served page) in
   the ``X-Rxlog-Token`` header, be JSON, and come from the page's own origin when the
   browser says where it comes from. A cross-site form or script cannot set that header
-  without a CORS preflight, which this server never grants.
+  without a CORS preflight, which this server never grants. Any body that does not parse
+  (malformed, too deeply nested, numbers too long) gets the same 400 answer.
+- Slow or idle clients cannot hold the server: a connection waits in a lobby, holding no
+  thread, until its first bytes arrive (or is closed after ``request_timeout_s``); the
+  request line, headers and body must then all arrive within ``request_timeout_s``
+  (408 otherwise); at most ``max_handlers`` requests are handled at once, and one that
+  finds them all busy for ``slot_wait_s`` gets 503. Each connection carries one request
+  (``Connection: close``), so no kept-alive connection sits on a thread either.
 """
 
 from __future__ import annotations
 
+import collections
 import hmac
+import io
 import ipaddress
 import json
 import secrets
+import selectors
+import socket
 import threading
+import time
 import urllib.parse
 from http import HTTPStatus
 from http.cookies import SimpleCookie
@@ -32,6 +44,7 @@ from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from rxlog.errors import RxlogError
 from rxlog.report import Night, report_dir
 from rxlog.store import LABELS, EventStore
+from rxlog.timeutil import parse_iso
 
 STATIC_TYPES = {".png": "image/png", ".html": "text/html; charset=utf-8", ".txt": "text/plain; charset=utf-8",
                 ".json": "application/json", ".svg": "image/svg+xml"}
@@ -40,6 +53,16 @@ MAX_NOTE = 2000
 MAX_WHO = 100
 MIN_ACCESS_TOKEN = 16
 COOKIE = "rxlog_key"
+
+# Connection limits. A person's browser sends a request within milliseconds of opening a
+# connection and a few requests a second at most; these bounds only ever bite on clients
+# that stall, trickle or flood.
+REQUEST_TIMEOUT_S = 5.0   # first byte, then request line + headers + body, each within this
+MAX_HANDLERS = 16         # requests handled at once (one thread each)
+SLOT_WAIT_S = 2.0         # a request waits this long for a free handler, then gets 503
+MAX_WAITING = 256         # connections that have sent nothing yet; beyond, the oldest is closed
+WRITE_TIMEOUT_S = 10.0    # to send one WRITE_CHUNK: a client must read at least ~6.5 kB/s
+WRITE_CHUNK = 64 * 1024
 
 
 def is_loopback(host: str) -> bool:
@@ -120,6 +143,11 @@ class ReviewServer(ThreadingHTTPServer):
     """Serves ``report_dir(cfg, night)``; ``url`` is where to point a browser."""
 
     daemon_threads = True
+    request_timeout_s = REQUEST_TIMEOUT_S
+    max_handlers = MAX_HANDLERS
+    slot_wait_s = SLOT_WAIT_S
+    max_waiting = MAX_WAITING
+    write_timeout_s = WRITE_TIMEOUT_S
 
     def __init__(self, cfg, night: Night, host: str = "127.0.0.1", port: int = 0,
                  allow_remote: bool = False, access_token: str | None = None):
@@ -147,6 +175,17 @@ class ReviewServer(ThreadingHTTPServer):
         shown = f"[{host}]" if family_v6 else ("127.0.0.1" if host == "localhost" else host)
         self.url = f"http://{shown}:{self.port}/"
         self.allowed_hosts = {f"{h}:{self.port}" for h in ("127.0.0.1", "localhost", "[::1]", shown)}
+        self.lobby = _Lobby(self)
+
+    def process_request(self, request, client_address):
+        # Not a thread per connection: the lobby hands it one once its request arrives.
+        self.lobby.admit(request, client_address)
+
+    def server_close(self):
+        super().server_close()
+        lobby = getattr(self, "lobby", None)
+        if lobby is not None:
+            lobby.close()
 
     def start_background(self) -> threading.Thread:
         """Serve on a daemon thread (tests, embedding); stop with ``shutdown()``."""
@@ -156,6 +195,150 @@ class ReviewServer(ThreadingHTTPServer):
 
     def open_store(self) -> EventStore:
         return EventStore(self.cfg.store_path)
+
+
+BUSY_BODY = json.dumps({"error": "the review server is busy; try again in a moment"}).encode()
+BUSY_RESPONSE = (b"HTTP/1.1 503 Service Unavailable\r\nContent-Type: application/json\r\n"
+                 b"Content-Length: " + str(len(BUSY_BODY)).encode() + b"\r\nRetry-After: 1\r\n"
+                 b"Connection: close\r\n\r\n" + BUSY_BODY)
+
+
+class _Lobby:
+    """Where accepted connections wait, holding no thread, for their first bytes and then
+    for one of the server's ``max_handlers`` handler threads.
+
+    One thread watches every waiting socket with a selector. A connection that sends
+    nothing within ``request_timeout_s`` is closed, and so is the oldest silent one when
+    more than ``max_waiting`` are silent; one whose request has begun to arrive but finds
+    every handler busy for ``slot_wait_s`` is answered 503. Connections are served in
+    the order their first bytes arrived.
+    """
+
+    def __init__(self, server: ReviewServer):
+        self.server = server
+        self.slots = threading.BoundedSemaphore(server.max_handlers)
+        self.sel = selectors.DefaultSelector()
+        self.inbox: collections.deque = collections.deque()   # (sock, addr) from the accept loop
+        self.silent: dict = {}                                # sock -> (addr, deadline), insertion order
+        self.ready: collections.deque = collections.deque()   # (sock, addr, since): waiting for a handler
+        self.wake_r, self.wake_w = socket.socketpair()
+        self.wake_r.setblocking(False)
+        self.wake_w.setblocking(False)
+        self.sel.register(self.wake_r, selectors.EVENT_READ)
+        self.closed = False
+        self.thread = threading.Thread(target=self._run, name="rxlog-review-lobby", daemon=True)
+        self.thread.start()
+
+    def admit(self, sock, addr):
+        self.inbox.append((sock, addr))
+        self._wake()
+
+    def close(self):
+        self.closed = True
+        self._wake()
+        self.thread.join(timeout=5.0)
+
+    def _wake(self):
+        try:
+            self.wake_w.send(b"\0")
+        except OSError:        # buffer full (already woken) or closed
+            pass
+
+    def _run(self):
+        try:
+            while not self.closed:
+                self._step()
+        finally:
+            for sock in list(self.silent) + [r[0] for r in self.ready] + [i[0] for i in self.inbox]:
+                self.server.shutdown_request(sock)
+            self.sel.close()
+            self.wake_r.close()
+            self.wake_w.close()
+
+    def _step(self):
+        now = time.monotonic()
+        due = [now + 1.0]
+        if self.silent:
+            due.append(next(iter(self.silent.values()))[1])
+        if self.ready:
+            due.append(self.ready[0][2] + self.server.slot_wait_s)
+        for key, _ in self.sel.select(max(0.0, min(due) - now)):
+            if key.fileobj is self.wake_r:
+                try:
+                    while self.wake_r.recv(4096):
+                        pass
+                except OSError:
+                    pass
+                continue
+            sock = key.fileobj
+            self.sel.unregister(sock)
+            addr, _ = self.silent.pop(sock)
+            self.ready.append((sock, addr, time.monotonic()))
+        now = time.monotonic()
+        while self.inbox:
+            sock, addr = self.inbox.popleft()
+            self.silent[sock] = (addr, now + self.server.request_timeout_s)
+            self.sel.register(sock, selectors.EVENT_READ)
+            if len(self.silent) > self.server.max_waiting:
+                self._drop(next(iter(self.silent)))
+        while self.silent:
+            sock, (_, deadline) = next(iter(self.silent.items()))
+            if deadline > now:
+                break
+            self._drop(sock)
+        while self.ready and self.slots.acquire(blocking=False):
+            sock, addr, _ = self.ready.popleft()
+            threading.Thread(target=self._handle, args=(sock, addr), name="rxlog-review-handler",
+                             daemon=True).start()
+        while self.ready and self.ready[0][2] + self.server.slot_wait_s <= now:
+            self._busy(self.ready.popleft()[0])
+
+    def _handle(self, sock, addr):
+        try:
+            self.server.process_request_thread(sock, addr)
+        finally:
+            self.slots.release()
+            self._wake()
+
+    def _drop(self, sock):
+        self.sel.unregister(sock)
+        del self.silent[sock]
+        self.server.shutdown_request(sock)
+
+    def _busy(self, sock):
+        """Answer 503 without a thread: a short answer fits an empty send buffer at once."""
+        try:
+            sock.setblocking(False)
+            sock.send(BUSY_RESPONSE)
+            for _ in range(16):     # read what was sent, so closing sends FIN rather than RST
+                if not sock.recv(65536):
+                    break
+        except OSError:
+            pass
+        self.server.shutdown_request(sock)
+
+
+class _DeadlineReader(io.RawIOBase):
+    """A socket's reads, each allowed only what is left of one deadline: a client that
+    trickles a byte at a time cannot stretch its request past it."""
+
+    def __init__(self, sock, deadline: float):
+        self.sock, self.deadline, self.expired = sock, deadline, False
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buf) -> int:
+        left = self.deadline - time.monotonic()
+        if left <= 0:
+            self.expired = True
+            raise TimeoutError("request not received in time")
+        self.sock.settimeout(left)
+        try:
+            return self.sock.recv_into(buf)
+        except TimeoutError:
+            self.expired = True
+            raise
 
 
 class ReviewHandler(BaseHTTPRequestHandler):
@@ -168,8 +351,34 @@ class ReviewHandler(BaseHTTPRequestHandler):
     def log_message(self, fmt, *args):   # quiet: the CLI prints the URL, not every request
         pass
 
+    def setup(self):
+        super().setup()
+        self.rfile.close()
+        self.reader = _DeadlineReader(self.connection, time.monotonic() + self.server.request_timeout_s)
+        self.rfile = io.BufferedReader(self.reader)
+        # What a response needs even when the request line never arrived.
+        self.command, self.requestline, self.request_version = "", "", "HTTP/1.1"
+        self.responded = False
+
+    def handle(self):
+        """One request per connection; 408 when it did not arrive in time."""
+        self.close_connection = True
+        try:
+            self.handle_one_request()
+            if self.reader.expired and not self.responded:
+                self._error(HTTPStatus.REQUEST_TIMEOUT, f"request not received within "
+                                                        f"{self.server.request_timeout_s:g} s")
+        except (ConnectionError, TimeoutError):
+            pass               # the client went away or does not read: nothing to tell it
+
+    def send_response(self, code, message=None):
+        self.responded = True
+        self.connection.settimeout(self.server.write_timeout_s)
+        super().send_response(code, message)
+
     def _send(self, status: int, body: bytes, ctype: str, extra: dict | None = None):
         self.send_response(status)
+        self.send_header("Connection", "close")
         self.send_header("Content-Type", ctype)
         self.send_header("Content-Length", str(len(body)))
         self.send_header("X-Content-Type-Options", "nosniff")
@@ -180,7 +389,10 @@ class ReviewHandler(BaseHTTPRequestHandler):
             self.send_header(k, v)
         self.end_headers()
         if self.command != "HEAD":
-            self.wfile.write(body)
+            # In pieces, each with its own write timeout: a large image to a slow but
+            # reading client is not cut off, one that stops reading is.
+            for k in range(0, len(body), WRITE_CHUNK):
+                self.wfile.write(body[k:k + WRITE_CHUNK])
 
     def _json(self, status: int, obj):
         self._send(status, json.dumps(obj).encode(), "application/json", {"Cache-Control": "no-store"})
@@ -281,7 +493,7 @@ class ReviewHandler(BaseHTTPRequestHandler):
             hist = store.label_history(event_id)
         finally:
             store.close()
-        self._json(HTTPStatus.OK, {"event_id": event_id, "history": _history_rows(hist)})
+        self._json(HTTPStatus.OK, {"event_id": event_id, "history": _history_rows(hist, self.server.night)})
 
     def _night_event(self, store: EventStore, event_id: str) -> dict | None:
         """The event if it belongs to this station and night; otherwise send 404 and return None."""
@@ -317,9 +529,10 @@ class ReviewHandler(BaseHTTPRequestHandler):
             length = -1
         if not 0 < length <= MAX_BODY:
             return self._error(HTTPStatus.BAD_REQUEST, f"expected a JSON body of at most {MAX_BODY} bytes")
+        raw = self.rfile.read(length)      # TimeoutError past the deadline: 408 from handle()
         try:
-            body = json.loads(self.rfile.read(length))
-        except (ValueError, UnicodeDecodeError):
+            body = json.loads(raw)
+        except (ValueError, RecursionError):   # malformed, undecodable, nested too deep, digits too many
             return self._error(HTTPStatus.BAD_REQUEST, "body is not valid JSON")
         if not isinstance(body, dict):
             return self._error(HTTPStatus.BAD_REQUEST, "expected a JSON object")
@@ -339,11 +552,14 @@ class ReviewHandler(BaseHTTPRequestHandler):
             hist = store.label_history(event_id)
         finally:
             store.close()
-        self._json(HTTPStatus.OK, {"event": {k: ev.get(k) for k in LABEL_FIELDS}, "history": _history_rows(hist)})
+        self._json(HTTPStatus.OK, {"event": {k: ev.get(k) for k in LABEL_FIELDS}, "history": _history_rows(hist, self.server.night)})
 
 
-def _history_rows(rows: list[dict]) -> list[dict]:
-    return [{k: r.get(k) for k in ("label", "note", "who", "created_utc")} for r in rows]
+def _history_rows(rows: list[dict], night: Night) -> list[dict]:
+    """A label history for the page; ``created_shown`` is the time in the page's own style
+    (local, with its zone), which the page's status line uses too."""
+    return [{**{k: r.get(k) for k in ("label", "note", "who", "created_utc")},
+             "created_shown": night.stamp(parse_iso(r["created_utc"]))} for r in rows]
 
 
 def serve_review(cfg, night: Night, host: str = "127.0.0.1", port: int = 8765, allow_remote: bool = False,

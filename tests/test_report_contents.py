@@ -204,7 +204,7 @@ def test_kept_cutout_is_drawn_instead_of_the_archive(tmp_path):
     store.close()
     index = report.build_report(cfg, night)
     html = index.read_text()
-    cards = html.split('<section class="event"')[1:]
+    cards = html.split('<section class="event ')[1:]
     assert "full-resolution cutout" in cards[0] and "full-resolution cutout" not in cards[1]
     _nontrivial(index.parent / report.event_image_name(ev))
 

@@ -1,13 +1,14 @@
 """The review page in a real headless browser (Debian's chromium driven by Playwright):
 step through events with the keyboard, label one, reload, and the label is still there
-and in the event store."""
+and in the event store; the page shows the class palette and names the zone of its times."""
 
 import os
+import re
 import shutil
 
 import pytest
 
-from rxlog import report
+from rxlog import palette, report
 from rxlog.review_server import ReviewServer
 from rxlog.store import EventStore
 from test_report_night import make_night
@@ -120,3 +121,46 @@ def test_page_opened_from_disk_is_read_only_but_complete(served, browser):
     page.wait_for_function("Array.from(document.images).every(i => i.complete)", timeout=10000)
     sizes = page.evaluate("Array.from(document.images).map(i => i.naturalWidth)")
     assert len(sizes) == len(events) + 2 and all(w > 0 for w in sizes)
+
+
+def _css_rgb(hex_colour: str) -> str:
+    return "rgb({}, {}, {})".format(*(int(hex_colour[k:k + 2], 16) for k in (1, 3, 5)))
+
+
+def test_cards_and_chips_show_the_palette_and_every_time_names_its_zone(served, browser):
+    cfg, night, events, srv = served
+    page = browser.new_page()
+    errors = []
+    page.on("pageerror", lambda e: errors.append(str(e)))
+    page.goto(srv.url)
+    # Colours as the browser computes them from the page's styles.
+    cards = page.evaluate("""() => Array.from(document.querySelectorAll('section.event')).map(c => ({
+        cls: c.dataset.class, edge: getComputedStyle(c).borderLeftColor,
+        chip: getComputedStyle(c.querySelector('h3 .chip')).backgroundColor,
+        chipText: c.querySelector('h3 .chip').textContent, when: c.querySelector('h3 .when').textContent}))""")
+    assert [c["cls"] for c in cards] == [e["class"] for e in events]
+    for c, e in zip(cards, events):
+        assert c["edge"] == c["chip"] == _css_rgb(palette.colour(c["cls"])), c
+        assert c["chipText"].endswith(f"confidence {e['confidence']:.2f}")
+        assert re.fullmatch(r"\d\d:\d\d:\d\d EST", c["when"]), c["when"]
+    summary_chips = page.evaluate("""() => Array.from(document.querySelectorAll('main > p .chip')).map(s =>
+        [s.className, getComputedStyle(s).backgroundColor])""")
+    assert {cls.split("cls-")[1]: rgb for cls, rgb in summary_chips} == \
+        {e["class"]: _css_rgb(palette.colour(e["class"])) for e in events}
+    assert re.search(r"\d\d:\d\d EST \d\d \w+ to\s+\d\d:\d\d EST", page.locator("header .sub").inner_text())
+    facts = dict(page.evaluate("""() => Array.from(document.querySelectorAll('.facts-grid div')).map(d =>
+        [d.querySelector('b').textContent, d.textContent.slice(d.querySelector('b').textContent.length)])"""))
+    assert re.fullmatch(r"(\d\d:\d\d–\d\d:\d\d EST(, )?)+|not up", facts["Jupiter up"]), facts["Jupiter up"]
+    # The status line after a label and the label history use one style: local time and zone.
+    target = events[-1]["event_id"]
+    card = page.locator(f'section.event[data-event-id="{target}"]')
+    card.locator('button[data-label="unsure"]').click()
+    card.locator(".status").filter(has_text="saved").wait_for(timeout=5000)
+    card.locator("ol.history li").first.wait_for(timeout=5000)
+    stamp = r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d (EST|EDT)"
+    status = card.locator(".status").inner_text()
+    history = card.locator("ol.history li").last.inner_text()
+    m_status, m_history = re.search(stamp, status), re.match(stamp, history)
+    assert m_status and m_history, (status, history)
+    assert m_status.group(0) == m_history.group(0)
+    assert errors == []

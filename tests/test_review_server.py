@@ -4,6 +4,10 @@ writes only with the page's token from the page's own origin, labels saved at on
 import http.client
 import json
 import re
+import select
+import socket
+import threading
+import time
 
 import pytest
 
@@ -281,3 +285,167 @@ def test_served_page_has_a_strict_content_security_policy(server):
     nonce = re.search(r"'nonce-([^']+)'", csp).group(1)
     assert f'nonce="{nonce}"'.encode() in body
     assert "default-src 'none'" in csp and "connect-src 'self'" in csp
+
+
+# -- bodies that do not parse ------------------------------------------------------------
+
+def _post_raw(srv, token, data: bytes):
+    return request(srv, "POST", "/api/label", data, headers={
+        "Content-Type": "application/json", "X-Rxlog-Token": token, "Origin": f"http://127.0.0.1:{srv.port}"})
+
+
+@pytest.mark.parametrize("data", [
+    b"[" * 16000,                               # nested deeper than the decoder's recursion limit
+    b'{"a":' * 2500 + b"1" + b"}" * 2500,      # the same with objects, and well formed
+    b'{"event_id": ' + b"9" * 5000 + b"}",    # an integer longer than Python converts
+    b'{"event_id": "\xff\xfe"}',                 # not UTF-8
+])
+def test_every_unparsable_body_gets_the_same_400_as_malformed_json(server, night, data):
+    cfg, n, events = night
+    before = labels_in_store(cfg)
+    token = page_token(server)
+    expected = _post_raw(server, token, b"{not json")
+    assert expected[0] == 400
+    status, headers, body = _post_raw(server, token, data)
+    assert (status, headers["Content-Type"], body) == (400, "application/json", expected[2])
+    assert labels_in_store(cfg) == before
+    assert request(server, "GET", "/api/events")[0] == 200       # and the server still answers
+
+
+# -- slow, idle and too many clients -----------------------------------------------------
+
+class QuickServer(ReviewServer):
+    """The review server with limits small enough for a test to reach them quickly."""
+    request_timeout_s = 1.0
+    max_handlers = 3
+    slot_wait_s = 0.3
+
+
+@pytest.fixture
+def quick(night):
+    cfg, n, _ = night
+    srv = QuickServer(cfg, n, port=0)
+    srv.start_background()
+    yield srv
+    srv.shutdown()
+    srv.server_close()
+
+
+def _open(srv, first: bytes = b""):
+    s = socket.create_connection(("127.0.0.1", srv.port), timeout=10)
+    if first:
+        s.sendall(first)
+    return s
+
+
+def _until_closed(s, limit_s: float) -> tuple[bytes, float]:
+    """Everything the server sends until it closes the connection, and how long that took."""
+    t0, got = time.monotonic(), b""
+    s.settimeout(limit_s)
+    try:
+        while chunk := s.recv(65536):
+            got += chunk
+    except (TimeoutError, ConnectionResetError):
+        pass
+    return got, time.monotonic() - t0
+
+
+def _handler_threads() -> int:
+    return sum(1 for t in threading.enumerate() if t.name == "rxlog-review-handler" and t.is_alive())
+
+
+def test_stalled_request_is_dropped_after_the_timeout_while_others_are_answered(quick):
+    partial = f"GET / HTTP/1.1\r\nHost: 127.0.0.1:{quick.port}\r\n".encode()   # headers never end
+    stalled = _open(quick, partial)
+    try:
+        t = time.monotonic()
+        assert request(quick, "GET", "/api/events")[0] == 200
+        assert time.monotonic() - t < 0.8 * quick.request_timeout_s
+        got, waited = _until_closed(stalled, 5.0 + quick.request_timeout_s)
+    finally:
+        stalled.close()
+    assert got.startswith(b"HTTP/1.1 408"), got[:60]
+    assert waited < quick.request_timeout_s + 2.0
+
+
+def test_trickling_client_is_dropped_at_the_deadline_not_at_each_read(quick):
+    # One byte every 0.2 s never lets a single read wait a second, yet the whole
+    # request must arrive within request_timeout_s.
+    s = _open(quick)
+    text = f"GET /api/events HTTP/1.1\r\nHost: 127.0.0.1:{quick.port}\r\nX-Slow: ".encode() + b"a" * 100
+    t0, closed_after = time.monotonic(), None
+    try:
+        for k in range(len(text)):
+            if time.monotonic() - t0 > 4 * quick.request_timeout_s:
+                break
+            try:
+                s.sendall(text[k:k + 1])
+            except OSError:
+                closed_after = time.monotonic() - t0
+                break
+            ready, _, _ = select.select([s], [], [], 0.2)
+            if ready:
+                closed_after = time.monotonic() - t0
+                break
+    finally:
+        s.close()
+    assert closed_after is not None, "a trickling client kept its connection"
+    assert closed_after < quick.request_timeout_s + 1.0
+
+
+def test_idle_connections_hold_no_thread_and_do_not_stop_a_request(quick):
+    idle = [_open(quick) for _ in range(40)]     # far more than max_handlers, and silent
+    try:
+        time.sleep(0.2)
+        assert _handler_threads() <= quick.max_handlers
+        t = time.monotonic()
+        status, _, body = request(quick, "GET", "/api/events")
+        assert status == 200 and json.loads(body)["events"]
+        assert time.monotonic() - t < 0.8 * quick.request_timeout_s
+        # The silent ones are closed once their time is up.
+        got, waited = _until_closed(idle[0], 5.0 + quick.request_timeout_s)
+        assert got == b"" and waited < quick.request_timeout_s + 2.0
+    finally:
+        for s in idle:
+            s.close()
+
+
+def test_handler_threads_are_bounded_and_the_next_request_gets_503_then_200(quick):
+    partial = f"GET / HTTP/1.1\r\nHost: 127.0.0.1:{quick.port}\r\n".encode()
+    stalled = [_open(quick, partial) for _ in range(quick.max_handlers)]
+    try:
+        time.sleep(0.2)
+        assert _handler_threads() == quick.max_handlers
+        t = time.monotonic()
+        status, headers, body = request(quick, "GET", "/api/events")
+        waited = time.monotonic() - t
+        assert status == 503 and "busy" in json.loads(body)["error"] and headers["Retry-After"] == "1"
+        assert quick.slot_wait_s - 0.05 <= waited < quick.slot_wait_s + 0.5
+        assert _handler_threads() <= quick.max_handlers
+        for s in stalled:            # the stalled ones are dropped at their deadline ...
+            _until_closed(s, 5.0 + quick.request_timeout_s)
+        assert request(quick, "GET", "/api/events")[0] == 200    # ... and requests are served again
+    finally:
+        for s in stalled:
+            s.close()
+
+
+def test_client_that_stops_reading_an_answer_is_cut_off(quick, night):
+    cfg, n, _ = night
+    big = report.report_dir(cfg, n) / "big.png"
+    big.write_bytes(b"\x89PNG" + bytes(32 * 1024 * 1024))     # more than any socket buffer holds
+    quick.write_timeout_s = 0.5
+    s = socket.socket()
+    s.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, 4096)
+    try:
+        s.connect(("127.0.0.1", quick.port))
+        s.sendall(f"GET /big.png HTTP/1.1\r\nHost: 127.0.0.1:{quick.port}\r\n\r\n".encode())
+        time.sleep(0.3)
+        assert _handler_threads() == 1                     # sending, blocked on the full buffer
+        deadline = time.monotonic() + 5.0
+        while _handler_threads() and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert _handler_threads() == 0, "a client that does not read kept its handler"
+    finally:
+        s.close()
+        big.unlink()
