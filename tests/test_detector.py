@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 
 from detector_helpers import CFG, Sky, cfg_with, jupiter_up, sun_down, sun_up
-from rxlog.detector import OnlineDetector, ah_drift, detect_spectrum, fit_drift, latest
+from rxlog.detect.drift import ah_drift, fit_drift
+from rxlog.detector import OnlineDetector, detect_spectrum, latest
 from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 
@@ -160,7 +161,7 @@ def test_light_curve_fit_places_a_peak_that_fell_into_a_masked_step():
     # the first group the step nearest the peak is masked. Fitted with one shape for the
     # whole event, that group's peak must still be placed within a quarter step; picking
     # the highest step left would be off by more than half a step.
-    from rxlog.detector import profile_arrivals
+    from rxlog.detect.drift import profile_arrivals
     t_peak, n_ch, n_grp = 10.4, 4, 5
     steps = np.arange(20)
     rows, cols, lin, t_cell, observed = [], [], [], [], []

@@ -4,10 +4,7 @@ Four sources of flags, each cheap and local so a block of rows is masked the sam
 however the rows arrive:
 
 * **Static ranges** from ``[rfi] static_ranges``: frequency ranges, optionally only
-  between two UTC hours. The defaults are the ITU Radio Regulations allocations of
-  the broadcasting, amateur, maritime mobile and standard-frequency services in and
-  near 16-24 MHz (values from memory; check them against the current Article 5 table
-  for your region and edit the list).
+  between two UTC hours (the defaults and their source are in rxlog.detect.settings).
 * **Carriers** found per block: a channel whose block median stands above the running
   median of its neighbours (``carrier_width_mhz`` either side) by more than
   ``carrier_sigma`` noise units. A channel that has been a carrier in more than
@@ -34,52 +31,12 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import ndimage
 
-# ITU Radio Regulations Article 5 allocations in and near 16-24 MHz (values from memory).
-DEFAULT_STATIC_RANGES = [
-    {"fmin_mhz": 15.10, "fmax_mhz": 15.80, "note": "broadcasting (15 MHz band)"},
-    {"fmin_mhz": 16.36, "fmax_mhz": 17.41, "note": "maritime mobile"},
-    {"fmin_mhz": 17.48, "fmax_mhz": 17.90, "note": "broadcasting (16 m band)"},
-    {"fmin_mhz": 18.068, "fmax_mhz": 18.168, "note": "amateur (17 m band)"},
-    {"fmin_mhz": 18.90, "fmax_mhz": 19.02, "note": "broadcasting (15 m band)"},
-    {"fmin_mhz": 19.99, "fmax_mhz": 20.01, "note": "standard frequency and time signals"},
-    {"fmin_mhz": 21.00, "fmax_mhz": 21.45, "note": "amateur (15 m band)"},
-    {"fmin_mhz": 21.45, "fmax_mhz": 21.85, "note": "broadcasting (13 m band)"},
-    {"fmin_mhz": 22.00, "fmax_mhz": 22.855, "note": "maritime mobile"},
-    {"fmin_mhz": 24.89, "fmax_mhz": 24.99, "note": "amateur (12 m band)"},
-]
+from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED
 
 # SumThreshold falls its threshold by rho per doubling of the run (Offringa et al. 2010 use 1.5).
 SUMTHRESHOLD_RHO = 1.5
-
-
-def check_static_ranges(value) -> list[str]:
-    """Config check of ``[rfi] static_ranges``: a list of tables, one problem string each."""
-    problems = []
-    for i, r in enumerate(value):
-        where = f"entry {i + 1}"
-        if not isinstance(r, dict):
-            problems.append(f"{where}: expected a table like {{fmin_mhz = 17.48, fmax_mhz = 17.9}}")
-            continue
-        unknown = set(r) - {"fmin_mhz", "fmax_mhz", "hours_utc", "note"}
-        if unknown:
-            problems.append(f"{where}: unknown key(s) {', '.join(sorted(unknown))} "
-                            "(expected fmin_mhz, fmax_mhz, hours_utc, note)")
-        lo, hi = r.get("fmin_mhz"), r.get("fmax_mhz")
-        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (lo, hi)):
-            problems.append(f"{where}: fmin_mhz and fmax_mhz must both be numbers (MHz)")
-        elif not lo < hi:
-            problems.append(f"{where}: expected fmin_mhz < fmax_mhz, got {lo} >= {hi}")
-        hours = r.get("hours_utc")
-        if hours is not None:
-            if (not isinstance(hours, list) or len(hours) != 2
-                    or not all(isinstance(h, (int, float)) and not isinstance(h, bool) and 0 <= h <= 24
-                               for h in hours)):
-                problems.append(f"{where}: hours_utc must be [start, end] in UTC hours 0-24, "
-                                f"e.g. [18, 23] (or [22, 6] across midnight), got {hours!r}")
-        if "note" in r and not isinstance(r["note"], str):
-            problems.append(f"{where}: note must be a string")
-    return problems
 
 
 def static_mask(ranges: list[dict], freq_hz: np.ndarray, times: np.ndarray) -> np.ndarray:
@@ -116,8 +73,6 @@ def carrier_channels(level: np.ndarray, level_sigma: np.ndarray, width_ch: int,
     The reference is the running median over 2 x width_ch + 1 channels, so slopes and
     bandpass ripple wider than that pass through.
     """
-    from scipy import ndimage
-
     x = np.asarray(level, dtype=np.float32)
     ok = np.isfinite(x)
     if not ok.any():
@@ -213,8 +168,6 @@ def neighbour_mean(z: np.ndarray, w: np.ndarray, width_ch: int, skip_ch: int = 1
     """Mean of z where w over the channels within ``width_ch`` of each channel but more
     than ``skip_ch`` away from it (the cell and its nearest neighbours, where a narrow
     signal sits, are left out), and the count of cells used."""
-    from scipy import ndimage
-
     size = 2 * width_ch + 1
     inner = min(2 * skip_ch + 1, size - 2)
     zw = np.where(w, z, 0.0).astype(np.float32)
@@ -235,8 +188,6 @@ def hour_quality(times: np.ndarray, flags: np.ndarray, cadence_s: float) -> dict
     Covered cells are cells with data in channels the receiver covered; a gap row is a
     row where no channel has data.
     """
-    from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED
-
     hours = np.floor(np.asarray(times) / 3600.0) * 3600.0
     covered = (flags & (FLAG_GAP | FLAG_UNCOVERED)) == 0
     masked = covered & ((flags & FLAG_RFI) != 0)
