@@ -202,13 +202,13 @@ def test_tracker_hands_out_the_cells_one_step_before_and_after_an_event():
     # The light-curve fit needs the quiet step before a burst that rises within one step;
     # the tracker keeps one row of margin in its buffer and hands those cells out with the
     # event, even when the event began in an earlier push.
-    from rxlog.detector import _Tracker
+    from rxlog.detect.components import Tracker
     n_rows, n_cols = 20, 16
     grow = np.zeros((n_rows, n_cols), dtype=bool)
     grow[5:8, 10:13] = True
     grow[6, 9] = True
     val = (np.arange(n_rows)[:, None] * 100 + np.arange(n_cols)[None, :]).astype(np.float32)
-    tr = _Tracker(n_cols, gap_rows=2, merge_cols=1, max_rows=100, fields=("ex",), around_rows=10)
+    tr = Tracker(n_cols, gap_rows=2, merge_cols=1, max_rows=100, fields=("ex",), around_rows=10)
     out = []
     for a, b in ((0, 6), (6, 9), (9, 20)):
         out += tr.push(grow[a:b], grow[a:b], {"ex": val[a:b]})
