@@ -18,7 +18,7 @@ import time
 import numpy as np
 
 from rxlog.detect.drift import ah_drift
-from rxlog.detector import OnlineDetector
+from rxlog.detect.online import OnlineDetector
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 
 N_CHAN = 1024

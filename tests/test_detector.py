@@ -10,7 +10,7 @@ import pytest
 
 from detector_helpers import CFG, Sky, cfg_with, jupiter_up, sun_down, sun_up
 from rxlog.detect.drift import ah_drift, fit_drift
-from rxlog.detector import OnlineDetector, detect_spectrum, latest
+from rxlog.detect.online import OnlineDetector, detect_spectrum, latest
 from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 

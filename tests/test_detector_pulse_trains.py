@@ -13,7 +13,7 @@ import pytest
 
 from detector_helpers import Sky, cfg_with, jupiter_up, sun_up
 from rxlog.detect.drift import ah_drift
-from rxlog.detector import detect_spectrum
+from rxlog.detect.online import detect_spectrum
 from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 
