@@ -39,7 +39,7 @@ from collections import defaultdict
 import numpy as np
 
 from rxlog.config import load_config
-from rxlog.detector import OnlineDetector, latest
+from rxlog.detect.online import OnlineDetector, latest
 from rxlog.errors import RxlogError
 from rxlog.sim.spectra import iter_spectra
 from rxlog.timeutil import parse_iso

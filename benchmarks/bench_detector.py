@@ -17,7 +17,8 @@ import time
 
 import numpy as np
 
-from rxlog.detector import OnlineDetector, ah_drift
+from rxlog.detect.drift import ah_drift
+from rxlog.detect.online import OnlineDetector
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 
 N_CHAN = 1024

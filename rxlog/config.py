@@ -21,8 +21,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
-from rxlog import rfi as _rfi
 from rxlog import validate
+from rxlog.detect.settings import DEFAULT_STATIC_RANGES, check_static_ranges
 from rxlog.sky import regions as _regions
 
 REQUIRED = object()
@@ -144,8 +144,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "ring_resolution_s": Key(NUMBER, 0.002, min=1e-5, max=60, help="single: time step of the full-resolution spectra, seconds"),
     },
     "rfi": {
-        # Defaults: ITU Radio Regulations allocations in and near 16-24 MHz (from memory), see rxlog/rfi.py
-        "static_ranges": Key(list, _rfi.DEFAULT_STATIC_RANGES, check=_rfi.check_static_ranges,
+        # Defaults: ITU Radio Regulations allocations in and near 16-24 MHz (from memory), see rxlog/detect/settings.py
+        "static_ranges": Key(list, DEFAULT_STATIC_RANGES, check=check_static_ranges,
                              help="Always-masked ranges: tables {fmin_mhz, fmax_mhz, hours_utc = [from, to] "
                                   "(optional, UTC, may wrap midnight), note}"),
         "carrier_width_mhz": Key(NUMBER, 0.1, min=0.001, max=5,

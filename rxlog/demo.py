@@ -155,7 +155,7 @@ def score_against_truth(truth: list[dict], events: list[dict]) -> tuple[int, int
 
 
 def detect_quietly(cfg, label: str) -> dict:
-    from rxlog.detector import detect_range
+    from rxlog.detect.rerun import detect_range
 
     with click.progressbar(length=100, label=f"  {label}", file=sys.stderr) as bar:
         done = [0]

@@ -1058,7 +1058,7 @@ def open_archive(cfg):
 
 
 def open_detector(cfg):
-    from rxlog.detector import OnlineDetector
+    from rxlog.detect.online import OnlineDetector
 
     return OnlineDetector(cfg)
 
@@ -1076,7 +1076,7 @@ CUTOUT_MARGIN_S = 2.0       # kept either side of an event in its cutout
 
 def cutout_ring_needed_s(cfg) -> float:
     """Seconds of ring a cutout needs: a burst comes out of the detector half a fast
-    window plus three blocks after it ends (rxlog.detector), and a minute-long burst must
+    window plus three blocks after it ends (rxlog.detect), and a minute-long burst must
     still be in the ring then."""
     d = cfg.get("detector", {})
     return float(d.get("fast_window_s", 240.0)) / 2 + 3 * float(d.get("block_s", 30.0)) + 60.0 + 2 * CUTOUT_MARGIN_S
@@ -1090,10 +1090,10 @@ def cutout_relpath(ev: dict) -> Path:
 
 def save_cutout(cfg, ev: dict, ring) -> dict:
     """Write the ring's rows around ``ev`` as a FITS file in the archive's layout and return
-    the event as ``rxlog.detector.refine_with_cutout`` sees it then (with ``cutout_path``,
+    the event as ``rxlog.detect.cutout.refine_with_cutout`` sees it then (with ``cutout_path``,
     relative to the storage root). Without rows in the ring the event comes back as it was."""
     from rxlog.archive import write_spectrum_fits
-    from rxlog.detector import refine_with_cutout
+    from rxlog.detect.cutout import refine_with_cutout
 
     t0 = parse_iso(ev["start_utc"]) - CUTOUT_MARGIN_S
     t1 = parse_iso(ev["end_utc"]) + CUTOUT_MARGIN_S

@@ -12,7 +12,7 @@ import warnings
 import numpy as np
 from scipy.special import polygamma
 
-from rxlog import background as bg
+from rxlog.detect import background as bg
 
 
 def test_nanmedian_matches_numpy():

@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 
 from detector_helpers import CFG, Sky, cfg_with, jupiter_up, sun_down, sun_up
-from rxlog.detector import OnlineDetector, ah_drift, detect_spectrum, fit_drift, latest
+from rxlog.detect.drift import ah_drift, fit_drift
+from rxlog.detect.online import OnlineDetector, detect_spectrum, latest
 from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 
@@ -160,7 +161,7 @@ def test_light_curve_fit_places_a_peak_that_fell_into_a_masked_step():
     # the first group the step nearest the peak is masked. Fitted with one shape for the
     # whole event, that group's peak must still be placed within a quarter step; picking
     # the highest step left would be off by more than half a step.
-    from rxlog.detector import profile_arrivals
+    from rxlog.detect.drift import profile_arrivals
     t_peak, n_ch, n_grp = 10.4, 4, 5
     steps = np.arange(20)
     rows, cols, lin, t_cell, observed = [], [], [], [], []
@@ -201,13 +202,13 @@ def test_tracker_hands_out_the_cells_one_step_before_and_after_an_event():
     # The light-curve fit needs the quiet step before a burst that rises within one step;
     # the tracker keeps one row of margin in its buffer and hands those cells out with the
     # event, even when the event began in an earlier push.
-    from rxlog.detector import _Tracker
+    from rxlog.detect.components import Tracker
     n_rows, n_cols = 20, 16
     grow = np.zeros((n_rows, n_cols), dtype=bool)
     grow[5:8, 10:13] = True
     grow[6, 9] = True
     val = (np.arange(n_rows)[:, None] * 100 + np.arange(n_cols)[None, :]).astype(np.float32)
-    tr = _Tracker(n_cols, gap_rows=2, merge_cols=1, max_rows=100, fields=("ex",), around_rows=10)
+    tr = Tracker(n_cols, gap_rows=2, merge_cols=1, max_rows=100, fields=("ex",), around_rows=10)
     out = []
     for a, b in ((0, 6), (6, 9), (9, 20)):
         out += tr.push(grow[a:b], grow[a:b], {"ex": val[a:b]})

@@ -4,7 +4,7 @@ one-shot run, and both give the same mask and hourly quality rows."""
 import numpy as np
 
 from detector_helpers import Sky, cfg_with, sun_up
-from rxlog.detector import OnlineDetector, detect_spectrum, latest
+from rxlog.detect.online import OnlineDetector, detect_spectrum, latest
 
 # A short slow window so long events also finish inside the test spectrum.
 CFG = cfg_with(slow_window_s=1800.0, fast_window_s=180.0)

@@ -45,7 +45,7 @@ def _rows(store):
 
 
 def test_rerun_gives_the_same_store_and_keeps_labels(tmp_path):
-    from rxlog.detector import detect_range
+    from rxlog.detect.rerun import detect_range
 
     cfg = _station(tmp_path)
     first = detect_range(cfg)

@@ -5,7 +5,7 @@ window of coarse block levels)."""
 import numpy as np
 
 from detector_helpers import Sky, cfg_with, sun_up
-from rxlog.detector import OnlineDetector
+from rxlog.detect.online import OnlineDetector
 
 
 def test_state_is_bounded_over_hours_of_feeding():
@@ -20,14 +20,14 @@ def test_state_is_bounded_over_hours_of_feeding():
     for i in range(0, spec.n_time, 30):
         n_events += len(det.feed(spec.slice_rows(i, i + 30)))
         seg = det.seg
-        peak_rows = max(peak_rows, seg.fine.grow.shape[0] + sum(p.n_time for p in seg.pending))
-        peak_blocks = max(peak_blocks, len(seg.blocks) + len(seg.stage_m))
-        peak_coarse = max(peak_coarse, len(seg.coarse))
+        peak_rows = max(peak_rows, seg.fine.tracker.grow.shape[0] + sum(p.n_time for p in seg.pending))
+        peak_blocks = max(peak_blocks, len(seg.blocks) + len(seg.fine.blocks))
+        peak_coarse = max(peak_coarse, len(seg.background.coarse))
         det.pop_episodes()
         det.pop_quality()
-        assert len(det._episodes) <= 10           # open episodes only (32 events in all)
+        assert len(det.episodes.by_id) <= 10     # open episodes only (32 events in all)
     n_events += len(det.flush())
     assert n_events >= 16                            # the bursts were found along the way
-    assert peak_rows <= 120 / 2.0 + 2 * seg.R        # the longest burst plus a block
-    assert peak_blocks <= 2 * (seg.W + 4)            # the fast window and its look-ahead
-    assert peak_coarse <= 2 * seg.half_slow + 3      # the slow window
+    assert peak_rows <= 120 / 2.0 + 2 * seg.grid.rows_per_block     # the longest burst plus a block
+    assert peak_blocks <= 2 * (seg.background.W + 4)               # the fast window and its look-ahead
+    assert peak_coarse <= 2 * seg.background.half_slow + 3         # the slow window

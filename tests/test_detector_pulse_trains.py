@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 
 from detector_helpers import Sky, cfg_with, jupiter_up, sun_up
-from rxlog.detector import ah_drift, detect_spectrum
+from rxlog.detect.drift import ah_drift
+from rxlog.detect.online import detect_spectrum
 from rxlog.spectrum import FLAG_RFI
 from rxlog.timeutil import parse_iso
 

@@ -4,7 +4,7 @@ reviews of Jovian decametric emission (from memory); the synthetic bursts drift 
 
 import numpy as np
 
-from rxlog.detector import refine_with_cutout
+from rxlog.detect.cutout import refine_with_cutout
 from rxlog.spectrum import DynamicSpectrum
 
 from detector_helpers import CFG

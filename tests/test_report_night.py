@@ -56,7 +56,7 @@ def _event(peak, dur, fmin, fmax, cls, **kw):
 def simulated_night(root, minutes=45, channels=128):
     """A simulated afternoon with solar bursts and a night stretch with a Jovian storm (Io-B),
     archived and run through the detector. Returns (cfg, night, stored events, truth rows)."""
-    from rxlog.detector import detect_range
+    from rxlog.detect.rerun import detect_range
     from rxlog.sim.spectra import simulate_spectra
 
     cfg = station_config(root, channels=channels)

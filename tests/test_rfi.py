@@ -4,7 +4,8 @@ import math
 
 import numpy as np
 
-from rxlog import rfi
+from rxlog.detect import mask
+from rxlog.detect.settings import DEFAULT_STATIC_RANGES, check_static_ranges
 from rxlog.config import validate
 
 
@@ -32,11 +33,11 @@ def test_sumthreshold_matches_a_direct_reading_of_the_paper():
     x[1, 10] += 9          # a single strong sample
     x[2, 30:34] += 5.0     # a weak run of four
     x[4, 50:58] += 3.5     # a weaker run of eight
-    ours = rfi.sum_threshold(x, np.zeros(x.shape, bool), 1, 6.0, 8)
+    ours = mask.sum_threshold(x, np.zeros(x.shape, bool), 1, 6.0, 8)
     assert np.array_equal(ours, _sumthreshold_reference(x, 6.0, 8))
     assert ours[1, 10] and ours[2, 30:34].all() and ours[4, 50:58].all()
     # along time (axis 0) is the same operation on the transpose
-    along_t = rfi.sum_threshold(x.T.copy(), np.zeros(x.T.shape, bool), 0, 6.0, 8)
+    along_t = mask.sum_threshold(x.T.copy(), np.zeros(x.T.shape, bool), 0, 6.0, 8)
     assert np.array_equal(along_t, ours.T)
 
 
@@ -47,7 +48,7 @@ def test_static_mask_ranges_and_hours_across_midnight():
     hours = np.array([21.5, 23.5, 0.5, 6.5, 12.0]) * 3600 + 1796083200.0
     ranges = [{"fmin_mhz": 17.48, "fmax_mhz": 17.9},
               {"fmin_mhz": 21.92, "fmax_mhz": 22.08, "hours_utc": [22, 6]}]
-    m = rfi.static_mask(ranges, f, hours)
+    m = mask.static_mask(ranges, f, hours)
     always = m.all(axis=0)
     # channels touching 17.48-17.9: centres 17.45 (edge 17.5) ... 17.85 (edge 17.9)
     assert np.array_equal(np.flatnonzero(always), np.flatnonzero((fm + 0.05 > 17.48) & (fm - 0.05 < 17.9)))
@@ -57,7 +58,7 @@ def test_static_mask_ranges_and_hours_across_midnight():
 
 
 def test_default_static_ranges_pass_the_config_check_and_bad_ones_do_not():
-    assert rfi.check_static_ranges(rfi.DEFAULT_STATIC_RANGES) == []
+    assert check_static_ranges(DEFAULT_STATIC_RANGES) == []
     _, problems = validate({"station": {"name": "x", "latitude_deg": 1, "longitude_deg": 2},
                             "rfi": {"static_ranges": [{"fmin_mhz": 18, "fmax_mhz": 17},
                                                       {"fmin_mhz": 19, "fmax_mhz": 20, "hours_utc": [25, 3]},
@@ -71,12 +72,12 @@ def test_carrier_found_against_neighbours_and_remembered_while_it_fades():
     rng = np.random.default_rng(1)
     n = 200
     slope = np.linspace(0, 3, n)                       # a band-pass slope is not a carrier
-    mem = rfi.CarrierMemory(n, 30.0, 600.0, 0.5)       # memory: 20 blocks
+    mem = mask.CarrierMemory(n, 30.0, 600.0, 0.5)       # memory: 20 blocks
     seen, kept = [], []
     for k in range(90):
         level = slope + rng.normal(0, 0.01, n)
         level[77] += 0.5 if k < 30 else 0.02           # the carrier fades away after 30 blocks
-        car = rfi.carrier_channels(level, np.full(n, 0.01), 10, 6.0)
+        car = mask.carrier_channels(level, np.full(n, 0.01), 10, 6.0)
         masked = mem.update(car)
         seen.append(car[77]); kept.append(masked[77])
         assert masked.sum() <= 2                       # nothing else is called a carrier
@@ -89,7 +90,7 @@ def test_kurtosis_flags_non_gaussian_cells_only():
     rng = np.random.default_rng(2)
     sk = 1 + rng.normal(0, 0.05, (30, 50))
     sk[:, 7] = 3.0
-    f = rfi.kurtosis_flags(sk, np.ones(sk.shape, bool), 5.0)
+    f = mask.kurtosis_flags(sk, np.ones(sk.shape, bool), 5.0)
     assert f[:, 7].all() and f.sum() < 30 + 3
 
 
@@ -99,7 +100,7 @@ def test_hour_quality_counts_masked_cells_and_gap_rows():
     flags = np.zeros((7200, 4), np.uint8)
     flags[:100] = FLAG_GAP
     flags[200:300, 1] = FLAG_RFI
-    q = rfi.hour_quality(t, flags, 1.0)
+    q = mask.hour_quality(t, flags, 1.0)
     first = q[36000.0]
     assert first[0] == 100 and first[1] == (3600 - 100) * 4 and first[2] == 100 and first[3] == 3500
     assert q[39600.0] == [0.0, 3600 * 4, 0.0, 3600.0]

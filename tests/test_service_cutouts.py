@@ -86,10 +86,10 @@ def test_retention_removes_only_old_cutout_days(tmp_path):
 
 def test_default_ring_outlasts_the_detector_latency():
     # A burst leaves the detector half a fast window plus three blocks after it ends
-    # (rxlog.detector); with the shipped defaults a minute-long burst is still in the ring.
+    # (rxlog.detect); with the shipped defaults a minute-long burst is still in the ring.
     from pathlib import Path
 
-    from rxlog.detector import OnlineDetector
+    from rxlog.detect.online import OnlineDetector
     from rxlog.service import cutout_ring_needed_s
     from detector_helpers import Sky, sun_up
 

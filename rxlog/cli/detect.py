@@ -29,7 +29,7 @@ def detect_command(cfg, start, end):
       rxlog detect --config station.toml --start 2026-12-01T18:00Z --end 2026-12-02T06:00Z
       rxlog detect --config station.toml --start 2026-12-01 --end 2026-12-08
     """
-    from rxlog.detector import detect_range
+    from rxlog.detect.rerun import detect_range
     from rxlog.timeutil import iso
 
     t0 = parse_time_option(start, "--start", cfg)

@@ -4,10 +4,7 @@ Four sources of flags, each cheap and local so a block of rows is masked the sam
 however the rows arrive:
 
 * **Static ranges** from ``[rfi] static_ranges``: frequency ranges, optionally only
-  between two UTC hours. The defaults are the ITU Radio Regulations allocations of
-  the broadcasting, amateur, maritime mobile and standard-frequency services in and
-  near 16-24 MHz (values from memory; check them against the current Article 5 table
-  for your region and edit the list).
+  between two UTC hours (the defaults and their source are in rxlog.detect.settings).
 * **Carriers** found per block: a channel whose block median stands above the running
   median of its neighbours (``carrier_width_mhz`` either side) by more than
   ``carrier_sigma`` noise units. A channel that has been a carrier in more than
@@ -24,9 +21,11 @@ however the rows arrive:
   non-Gaussian signals are man-made). Short SK excursions are *not* masked -- bright
   Type III onsets and S-bursts raise SK too -- they are reported on the event instead.
 
-Impulsive broadband noise and swept ionosonde chirps are not masked here: they are
-found as events and classified ``rfi`` by the detector, so a reviewer sees what was
-thrown away.
+``SegmentMask`` applies them to one segment block by block and counts the masked cells
+per UTC hour (``hour_quality``). Impulses and pulse trains are masked by
+rxlog.detect.impulses. What is thrown away is also shown: impulse storms, and
+SumThreshold cells that line up across the band (an ionosonde sweep, the line path in
+rxlog.detect.components) become ``rfi`` events a reviewer sees.
 """
 
 from __future__ import annotations
@@ -34,54 +33,15 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import ndimage
 
 from rxlog.constants import MAD_TO_SIGMA
-
-# ITU Radio Regulations Article 5 allocations in and near 16-24 MHz (values from memory).
-DEFAULT_STATIC_RANGES = [
-    {"fmin_mhz": 15.10, "fmax_mhz": 15.80, "note": "broadcasting (15 MHz band)"},
-    {"fmin_mhz": 16.36, "fmax_mhz": 17.41, "note": "maritime mobile"},
-    {"fmin_mhz": 17.48, "fmax_mhz": 17.90, "note": "broadcasting (16 m band)"},
-    {"fmin_mhz": 18.068, "fmax_mhz": 18.168, "note": "amateur (17 m band)"},
-    {"fmin_mhz": 18.90, "fmax_mhz": 19.02, "note": "broadcasting (15 m band)"},
-    {"fmin_mhz": 19.99, "fmax_mhz": 20.01, "note": "standard frequency and time signals"},
-    {"fmin_mhz": 21.00, "fmax_mhz": 21.45, "note": "amateur (15 m band)"},
-    {"fmin_mhz": 21.45, "fmax_mhz": 21.85, "note": "broadcasting (13 m band)"},
-    {"fmin_mhz": 22.00, "fmax_mhz": 22.855, "note": "maritime mobile"},
-    {"fmin_mhz": 24.89, "fmax_mhz": 24.99, "note": "amateur (12 m band)"},
-]
+from rxlog.detect.grid import Grid
+from rxlog.detect.settings import Settings
+from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED
 
 # SumThreshold falls its threshold by rho per doubling of the run (Offringa et al. 2010 use 1.5).
 SUMTHRESHOLD_RHO = 1.5
-
-
-def check_static_ranges(value) -> list[str]:
-    """Config check of ``[rfi] static_ranges``: a list of tables, one problem string each."""
-    problems = []
-    for i, r in enumerate(value):
-        where = f"entry {i + 1}"
-        if not isinstance(r, dict):
-            problems.append(f"{where}: expected a table like {{fmin_mhz = 17.48, fmax_mhz = 17.9}}")
-            continue
-        unknown = set(r) - {"fmin_mhz", "fmax_mhz", "hours_utc", "note"}
-        if unknown:
-            problems.append(f"{where}: unknown key(s) {', '.join(sorted(unknown))} "
-                            "(expected fmin_mhz, fmax_mhz, hours_utc, note)")
-        lo, hi = r.get("fmin_mhz"), r.get("fmax_mhz")
-        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (lo, hi)):
-            problems.append(f"{where}: fmin_mhz and fmax_mhz must both be numbers (MHz)")
-        elif not lo < hi:
-            problems.append(f"{where}: expected fmin_mhz < fmax_mhz, got {lo} >= {hi}")
-        hours = r.get("hours_utc")
-        if hours is not None:
-            if (not isinstance(hours, list) or len(hours) != 2
-                    or not all(isinstance(h, (int, float)) and not isinstance(h, bool) and 0 <= h <= 24
-                               for h in hours)):
-                problems.append(f"{where}: hours_utc must be [start, end] in UTC hours 0-24, "
-                                f"e.g. [18, 23] (or [22, 6] across midnight), got {hours!r}")
-        if "note" in r and not isinstance(r["note"], str):
-            problems.append(f"{where}: note must be a string")
-    return problems
 
 
 def static_mask(ranges: list[dict], freq_hz: np.ndarray, times: np.ndarray) -> np.ndarray:
@@ -110,6 +70,15 @@ def static_mask(ranges: list[dict], freq_hz: np.ndarray, times: np.ndarray) -> n
     return out
 
 
+def always_masked(ranges: list[dict], freq_hz: np.ndarray) -> np.ndarray:
+    """(C,) bool: channels a static range covers at every hour (a range without hours)."""
+    always = np.zeros(len(freq_hz), dtype=bool)
+    for r in ranges:
+        if r.get("hours_utc") is None:
+            always |= static_mask([r], freq_hz, np.zeros(1))[0]
+    return always
+
+
 def carrier_channels(level: np.ndarray, level_sigma: np.ndarray, width_ch: int,
                      threshold_sigma: float) -> np.ndarray:
     """(C,) bool: channels whose block level stands above the median of their neighbours.
@@ -118,8 +87,6 @@ def carrier_channels(level: np.ndarray, level_sigma: np.ndarray, width_ch: int,
     The reference is the running median over 2 x width_ch + 1 channels, so slopes and
     bandpass ripple wider than that pass through.
     """
-    from scipy import ndimage
-
     x = np.asarray(level, dtype=np.float32)
     ok = np.isfinite(x)
     if not ok.any():
@@ -215,8 +182,6 @@ def neighbour_mean(z: np.ndarray, w: np.ndarray, width_ch: int, skip_ch: int = 1
     """Mean of z where w over the channels within ``width_ch`` of each channel but more
     than ``skip_ch`` away from it (the cell and its nearest neighbours, where a narrow
     signal sits, are left out), and the count of cells used."""
-    from scipy import ndimage
-
     size = 2 * width_ch + 1
     inner = min(2 * skip_ch + 1, size - 2)
     zw = np.where(w, z, 0.0).astype(np.float32)
@@ -237,8 +202,6 @@ def hour_quality(times: np.ndarray, flags: np.ndarray, cadence_s: float) -> dict
     Covered cells are cells with data in channels the receiver covered; a gap row is a
     row where no channel has data.
     """
-    from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED
-
     hours = np.floor(np.asarray(times) / 3600.0) * 3600.0
     covered = (flags & (FLAG_GAP | FLAG_UNCOVERED)) == 0
     masked = covered & ((flags & FLAG_RFI) != 0)
@@ -251,3 +214,82 @@ def hour_quality(times: np.ndarray, flags: np.ndarray, cadence_s: float) -> dict
         out[float(h)] = [float(row_mask[sel].sum()), float(row_cov[sel].sum()),
                          float(gap_row[sel].sum() * cadence_s), float((~gap_row[sel]).sum() * cadence_s)]
     return out
+
+
+def add_hours(into: dict[float, list[float]], hours) -> None:
+    """Add ``hour_quality`` rows (hour, [masked, covered, gap s, covered s]) into running sums."""
+    for h, v in hours:
+        acc = into.setdefault(h, [0.0, 0.0, 0.0, 0.0])
+        for i in range(4):
+            acc[i] += v[i]
+
+
+class SegmentMask:
+    """The RFI mask of one segment, block by block: static ranges, the channels masked
+    for a whole block (carriers, persistent kurtosis), SumThreshold on the narrowband
+    residual, and the hourly count of masked cells."""
+
+    def __init__(self, grid: Grid, s: Settings):
+        self.s = s
+        self.freq, self.always, self.cadence = grid.freq, grid.always, grid.cadence
+        self.timed = [r for r in s.static_ranges if r.get("hours_utc") is not None]
+        self.cw = max(1, int(round(s.carrier_width_mhz / grid.chan_mhz)))
+        self.st_f = max(1, int(s.sumthreshold_max_mhz / grid.chan_mhz))
+        self.st_t = max(1, int(s.sumthreshold_max_s / grid.cadence))
+        self.carriers = CarrierMemory(grid.n_chan, grid.block_s, s.carrier_memory_s, s.carrier_fraction)
+        self.chan_mask: dict[int, np.ndarray] = {}
+        self.quality: dict[float, list[float]] = {}
+
+    def static(self, t0: float, n: int) -> np.ndarray:
+        """The static mask over ``n`` rows from ``t0`` (read-only when it does not change with
+        the hour: then it is the always-masked channels on every row)."""
+        if not self.timed:
+            return np.broadcast_to(self.always, (n, len(self.always)))
+        times = t0 + self.cadence * np.arange(n)
+        return self.always[None, :] | static_mask(self.timed, self.freq, times)
+
+    def block_channels(self, j: int, level: np.ndarray, sigma: np.ndarray, valid: np.ndarray,
+                       sk: np.ndarray | None) -> np.ndarray:
+        """(C,) channels masked for all of block j: carriers (from the block's ``level`` and
+        ``sigma`` over its ``valid`` cells) and channels whose spectral kurtosis departs
+        from 1 in most of the block."""
+        # Carriers: block level against its neighbours, in units of the level's own noise
+        # (the median of n cells has sigma ~ 1.2533 sigma_cell / sqrt(n) for Gaussian noise).
+        nvalid = np.maximum(valid.sum(axis=0), 1)
+        lvl_sigma = 1.2533 * sigma / np.sqrt(nvalid)
+        car = carrier_channels(level, lvl_sigma, self.cw, self.s.carrier_sigma)
+        cmask = self.carriers.update(car)
+        if sk is not None:
+            skf = kurtosis_flags(sk, valid, self.s.kurtosis_sigma)
+            persistent = skf.sum(axis=0) > 0.5 * np.maximum(valid.sum(axis=0), 1)
+            cmask = cmask | persistent
+        self.chan_mask[j] = cmask
+        return cmask
+
+    def narrowband(self, z: np.ndarray, w: np.ndarray) -> np.ndarray:
+        """Cells SumThreshold flags in the narrowband residual (z, in noise units, minus
+        its mean over neighbouring channels), among the cells ``w`` whose neighbourhood is
+        quiet."""
+        s = self.s
+        mean, count = neighbour_mean(z, w, self.cw)
+        quiet = mean * np.sqrt(np.maximum(count, 1.0)) < s.grow_sigma
+        hp = np.where(w & quiet, z - mean, 0.0)
+        st = sum_threshold(hp, np.zeros_like(w), 1, s.sumthreshold_chi1, self.st_f)
+        st = sum_threshold(hp, st, 0, s.sumthreshold_chi1, self.st_t)
+        return st & w
+
+    def count_hours(self, t0: float, flags: np.ndarray):
+        """Add a block's flags (rows from ``t0``) to the hourly counts."""
+        times = t0 + self.cadence * np.arange(flags.shape[0])
+        add_hours(self.quality, hour_quality(times, flags, self.cadence).items())
+
+    def hours_before(self, t: float) -> list[tuple[float, list[float]]]:
+        """Hand out (and forget) the hours that end by ``t``."""
+        done = [(h, v) for h, v in self.quality.items() if h + 3600.0 <= t]
+        for h, _ in done:
+            del self.quality[h]
+        return done
+
+    def forget(self, keep_from: int):
+        for k in [k for k in self.chan_mask if k < keep_from]:
+            del self.chan_mask[k]

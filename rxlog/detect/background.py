@@ -20,8 +20,9 @@ Two scales follow from those block values:
   rejected rather than absorbed, and negative excess (fadeouts) is kept as such.
 
 Everything here is a pure function of whole blocks, so feeding rows in chunks of any
-size gives the same numbers as one pass over the segment. Robust noise from the median
-absolute deviation: sigma = 1.4826 MAD for Gaussian noise (e.g. Rousseeuw & Croux 1993).
+size gives the same numbers as one pass over the segment; ``Background`` keeps one
+segment's block values and windows. Robust noise from the median absolute deviation:
+sigma = 1.4826 MAD for Gaussian noise (e.g. Rousseeuw & Croux 1993).
 """
 
 from __future__ import annotations
@@ -29,6 +30,8 @@ from __future__ import annotations
 import numpy as np
 
 from rxlog.constants import MAD_TO_SIGMA
+from rxlog.detect.grid import Grid
+from rxlog.detect.settings import Settings
 
 
 def nanmedian(x: np.ndarray, axis: int = 0) -> np.ndarray:
@@ -163,3 +166,90 @@ def coarse_levels(levels: np.ndarray, groups: np.ndarray, n_groups: int) -> np.n
     out = np.full(lv.shape[:-1] + (n_groups, width), np.nan, dtype=np.float32)
     out[..., groups[order], pos] = lv[..., order]
     return nanmedian(out, axis=-1)
+
+
+class Background:
+    """One segment's background, block by block: the block levels and noise per channel
+    (with the channels the mask took out of the block left out), the fast background of
+    each block, and the slow baseline and texture on coarse channels.
+
+    The fast background of block j needs the blocks up to j + W (``fast_window_s`` / 2
+    after it); the slow baseline of block k those up to k + ``half_slow``.
+    """
+
+    def __init__(self, grid: Grid, s: Settings):
+        self.R = grid.rows_per_block
+        self.groups, self.n_groups = grid.groups, grid.n_groups
+        self.W = max(1, int(round(s.fast_window_s / grid.block_s / 2)))
+        self.half_slow = max(2, int(round(s.slow_window_s / grid.block_s / 2)))
+        self.reject_db, self.reject_sigma = s.slow_grow_db, s.slow_grow_sigma
+        self.level: dict[int, np.ndarray] = {}
+        self.sigma: dict[int, np.ndarray] = {}
+        self.fast: dict[int, tuple] = {}
+        self.coarse: dict[int, np.ndarray] = {}
+        self.coarse_sig: dict[int, np.ndarray] = {}    # coarse second-to-second noise of each block
+        self.next_fast = 0
+
+    def add_block(self, j: int, level: np.ndarray, sigma: np.ndarray, chan_mask: np.ndarray):
+        """Block j's level and noise per channel (``block_stats``), ``chan_mask`` the
+        channels masked for the whole block (carriers, persistent kurtosis)."""
+        self.level[j] = np.where(chan_mask, np.nan, level).astype(np.float32)
+        self.sigma[j] = sigma
+        self.coarse[j] = coarse_levels(self.level[j], self.groups, self.n_groups)
+        self.coarse_sig[j] = coarse_levels(np.where(chan_mask, np.nan, sigma), self.groups, self.n_groups)
+
+    def advance_fast(self, n_blocks: int, final: bool):
+        """Fast levels of every block whose window is complete (all of them at the end)."""
+        nb = n_blocks
+        while self.next_fast < nb and (final or self.next_fast + self.W < nb):
+            j = self.next_fast
+            lo, hi = max(0, j - self.W), min(nb, j + self.W + 1)
+            self.fast[j] = (fast_level(np.stack([self.level[k] for k in range(lo, hi)])),
+                            nanmedian(np.stack([self.sigma[k] for k in range(lo, hi)]), axis=0))
+            self.next_fast += 1
+
+    def fast_rows(self, j: int, n_rows: int) -> tuple[np.ndarray, np.ndarray]:
+        """Fast background of the first ``n_rows`` rows of block j (interpolated between
+        block centres), and the channels' noise there (C,)."""
+        here, sig_c = self.fast[j]
+        prev = self.fast[j - 1][0] if j - 1 in self.fast else here
+        nxt = self.fast[j + 1][0] if (j + 1) in self.fast else here
+        prev = np.where(np.isfinite(prev), prev, here)
+        nxt = np.where(np.isfinite(nxt), nxt, here)
+        return interpolate_blocks(prev, here, nxt, n_rows, self.R), sig_c
+
+    def slow_excess(self, k: int, n_blocks: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Block k on coarse channels against the slow baseline, each (1, G): excess in dB,
+        in noise units of the block levels, and texture.
+
+        Texture: this block's second-to-second noise against the quiet quarter of the
+        window's. Multiplicative noise keeps its width in dB under a steady rise (a
+        continuum, arcing); the seconds-long L-bursts of a Jovian storm widen it.
+        """
+        lo, hi = max(0, k - self.half_slow), min(n_blocks, k + self.half_slow + 1)
+        ks = np.arange(lo, hi)
+        y = np.stack([self.coarse[i] for i in ks])
+        base, scatter = robust_quadratic(ks.astype(np.float64), y, float(k), self.reject_db, self.reject_sigma)
+        e = self.coarse[k] - base
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sg = np.where(scatter > 0, e / scatter, 0.0)
+        e = np.nan_to_num(e).astype(np.float32)[None, :]
+        sg = np.nan_to_num(sg).astype(np.float32)[None, :]
+        sw = np.stack([self.coarse_sig[i] for i in ks])
+        srt = np.sort(sw, axis=0)                                    # NaN sort last
+        n_ok = np.count_nonzero(~np.isnan(sw), axis=0)
+        ref = np.take_along_axis(srt, np.clip((n_ok - 1) // 4, 0, None)[None, :], axis=0)[0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            tx = np.nan_to_num(self.coarse_sig[k] / ref, nan=1.0, posinf=1.0).astype(np.float32)[None, :]
+        return e, sg, tx
+
+    def forget(self, next_m: int, next_slow: int):
+        """Drop what no later block needs: fast levels before the block the mask stage
+        works on next (less one), levels before the oldest fast window still open, coarse
+        levels before the oldest slow window."""
+        for d, keep_from in ((self.fast, next_m - 1),
+                             (self.sigma, self.next_fast - self.W), (self.level, self.next_fast - self.W),
+                             (self.coarse, next_slow - self.half_slow),
+                             (self.coarse_sig, next_slow - self.half_slow)):
+            for k in [k for k in d if k < keep_from]:
+                del d[k]

@@ -1,0 +1,141 @@
+"""The detector's settings: the ``[detector]`` and ``[rfi]`` keys of the station config
+(``Settings``, in physical units so they hold for any channel grid and cadence), the
+default static interference ranges, and the fixed thresholds of the detection and
+classification rules, each with its source.
+
+Nothing here imports numpy or scipy: the config reads the defaults and the check of
+``[rfi] static_ranges`` from this module when it loads.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+# -- static interference ranges ([rfi] static_ranges) -----------------------------------
+# Frequency ranges masked always, or only between two UTC hours (``hours_utc = [a, b]``).
+# The defaults are the ITU Radio Regulations Article 5 allocations of the broadcasting,
+# amateur, maritime mobile and standard-frequency services in and near 16-24 MHz (values
+# from memory; check them against the current Article 5 table for your region and edit
+# the list).
+DEFAULT_STATIC_RANGES = [
+    {"fmin_mhz": 15.10, "fmax_mhz": 15.80, "note": "broadcasting (15 MHz band)"},
+    {"fmin_mhz": 16.36, "fmax_mhz": 17.41, "note": "maritime mobile"},
+    {"fmin_mhz": 17.48, "fmax_mhz": 17.90, "note": "broadcasting (16 m band)"},
+    {"fmin_mhz": 18.068, "fmax_mhz": 18.168, "note": "amateur (17 m band)"},
+    {"fmin_mhz": 18.90, "fmax_mhz": 19.02, "note": "broadcasting (15 m band)"},
+    {"fmin_mhz": 19.99, "fmax_mhz": 20.01, "note": "standard frequency and time signals"},
+    {"fmin_mhz": 21.00, "fmax_mhz": 21.45, "note": "amateur (15 m band)"},
+    {"fmin_mhz": 21.45, "fmax_mhz": 21.85, "note": "broadcasting (13 m band)"},
+    {"fmin_mhz": 22.00, "fmax_mhz": 22.855, "note": "maritime mobile"},
+    {"fmin_mhz": 24.89, "fmax_mhz": 24.99, "note": "amateur (12 m band)"},
+]
+
+
+def check_static_ranges(value) -> list[str]:
+    """Config check of ``[rfi] static_ranges``: a list of tables, one problem string each."""
+    problems = []
+    for i, r in enumerate(value):
+        where = f"entry {i + 1}"
+        if not isinstance(r, dict):
+            problems.append(f"{where}: expected a table like {{fmin_mhz = 17.48, fmax_mhz = 17.9}}")
+            continue
+        unknown = set(r) - {"fmin_mhz", "fmax_mhz", "hours_utc", "note"}
+        if unknown:
+            problems.append(f"{where}: unknown key(s) {', '.join(sorted(unknown))} "
+                            "(expected fmin_mhz, fmax_mhz, hours_utc, note)")
+        lo, hi = r.get("fmin_mhz"), r.get("fmax_mhz")
+        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (lo, hi)):
+            problems.append(f"{where}: fmin_mhz and fmax_mhz must both be numbers (MHz)")
+        elif not lo < hi:
+            problems.append(f"{where}: expected fmin_mhz < fmax_mhz, got {lo} >= {hi}")
+        hours = r.get("hours_utc")
+        if hours is not None:
+            if (not isinstance(hours, list) or len(hours) != 2
+                    or not all(isinstance(h, (int, float)) and not isinstance(h, bool) and 0 <= h <= 24
+                               for h in hours)):
+                problems.append(f"{where}: hours_utc must be [start, end] in UTC hours 0-24, "
+                                f"e.g. [18, 23] (or [22, 6] across midnight), got {hours!r}")
+        if "note" in r and not isinstance(r["note"], str):
+            problems.append(f"{where}: note must be a string")
+    return problems
+
+
+# -- fixed thresholds of the rules --------------------------------------------------------
+# A measured Type III drift within this factor of the law counts as a match. The
+# observed scatter of decametric Type III drifts about the fitted law is roughly a factor
+# of two (common practice).
+TYPE3_FACTOR = 2.0
+# Type II drift at decametric wavelengths: -0.02 to -0.5 MHz/s (common practice).
+TYPE2_DRIFT = (-0.5, -0.02)
+# Jovian S-bursts drift at about -5 to -30 MHz/s (Zarka's reviews; from memory) and need
+# millisecond resolution: never inferred from spectra coarser than this.
+SBURST_DRIFT = (-40.0, -3.0)
+SBURST_MAX_CADENCE_S = 0.01
+# A Jovian storm is made of seconds-long L-bursts of scintillating intensity
+# (../shared/domain.md), which widen the second-to-second scatter of a long event's
+# blocks; a steady broadband rise (power-line arcing, a switching supply) keeps it, since
+# the noise of a power in dB does not depend on its level. The slow path's "texture" is
+# that scatter against the quiet quarter of the slow window. Threshold from rxlog's own
+# simulated storms (1.5-2.6) and steady rises (1.0-1.1): a first setting, to check on
+# real nights.
+STORM_TEXTURE = 1.25
+# Narrowband cells masked by SumThreshold are reported as an event once they line up over
+# this much of the band (a swept transmitter); less is a signal staying put, only masked.
+LINE_MIN_MHZ = 0.5
+# An impulse storm whose last pulses (this many, or half of them at least) fit a constant
+# period, nine in ten within their own dwell, is a pulse train (an electric fence: about one pulse
+# a second, from memory); its next pulses are masked where they fall, whatever surrounds them.
+TRAIN_PULSES = 40
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Detector and RFI settings in physical units (seconds, MHz, dB, noise sigma)."""
+
+    station: str = "station"
+    block_s: float = 30.0
+    fast_window_s: float = 240.0
+    slow_window_s: float = 7200.0
+    slow_freq_mhz: float = 0.25
+    smooth_time_s: float = 2.0
+    smooth_freq_mhz: float = 0.2
+    seed_sigma: float = 6.0
+    grow_sigma: float = 3.0
+    min_peak_db: float = 0.2
+    slow_seed_db: float = 0.3
+    slow_grow_db: float = 0.15
+    slow_seed_sigma: float = 6.0
+    slow_grow_sigma: float = 3.0
+    slow_min_s: float = 120.0
+    merge_gap_s: float = 2.0
+    merge_freq_mhz: float = 0.3
+    max_event_s: float = 600.0
+    episode_gap_s: float = 600.0
+    sun_up_deg: float = 0.0
+    jupiter_up_deg: float = 0.0
+    # RFI
+    static_ranges: tuple = ()
+    carrier_width_mhz: float = 0.1
+    carrier_sigma: float = 6.0
+    carrier_memory_s: float = 3600.0
+    carrier_fraction: float = 0.5
+    sumthreshold_chi1: float = 7.0
+    sumthreshold_max_mhz: float = 0.05
+    sumthreshold_max_s: float = 8.0
+    kurtosis_sigma: float = 5.0
+    impulse_sigma: float = 8.0
+    impulse_gap_s: float = 60.0
+
+    @classmethod
+    def from_config(cls, cfg) -> "Settings":
+        d = dict(cfg.get("detector", {}))
+        r = dict(cfg.get("rfi", {}))
+        kw = {k: v for k, v in d.items() if k in cls.__dataclass_fields__}
+        kw.update({k: v for k, v in r.items() if k in cls.__dataclass_fields__})
+        if "static_ranges" in kw:
+            kw["static_ranges"] = tuple(dict(x) for x in kw["static_ranges"])
+        kw["station"] = cfg.get("station", {}).get("name", "station")
+        return cls(**kw)
+
+    def replace(self, **kw) -> "Settings":
+        return Settings(**{**self.__dict__, **kw})
