@@ -57,6 +57,7 @@ from rxlog import health as hl
 from rxlog.errors import RxlogError
 from rxlog.notify import Notifier
 from rxlog.receiver import EndOfStream
+from rxlog.retry import DoublingWait
 from rxlog.spectrum import DynamicSpectrum
 from rxlog.timeutil import iso, parse_iso
 
@@ -253,7 +254,7 @@ class Logger:
         self.raw_paused = False
         self._paused_at = 0.0
         self._resume_above_mb = 0.0
-        self._disk_retry_s = DISK_RETRY_S
+        self._disk_retry = DoublingWait(DISK_RETRY_S, DISK_RETRY_MAX_S)
         # Rows on disk: written by writers already dropped, plus the current writer's; rows
         # handed to the current writer (those neither on disk nor buffered were lost with it).
         self._rows_written_before = 0
@@ -278,7 +279,7 @@ class Logger:
 
     # -- feed thread --------------------------------------------------------------------------
     def _feed_loop(self):
-        wait = RETRY_FIRST_S
+        wait = DoublingWait(RETRY_FIRST_S, self.retry_max_s)
         lost: ReceiverLost | None = None
         is_open = False
         while not self.stop_event.is_set():
@@ -292,7 +293,7 @@ class Logger:
                     if lost is not None:
                         self._put(ReceiverBack(lost.t_utc, self.clock.realtime(), lost.reason), block=True)
                         lost = None
-                    wait = RETRY_FIRST_S
+                    wait.reset()
                 try:
                     rows = self.feed.read()
                 except EndOfStream:
@@ -304,9 +305,9 @@ class Logger:
             except Exception as e:  # any receiver failure: close, note, retry; never give up
                 reason = f"{type(e).__name__}: {e}" if not isinstance(e, RxlogError) else str(e)
                 if isinstance(e, (RxlogError, OSError)):
-                    log.warning("receiver: %s; retrying in %.0f s", reason, wait)
+                    log.warning("receiver: %s; retrying in %.0f s", reason, wait.s)
                 else:
-                    log.error("receiver: unexpected failure; retrying in %.0f s", wait, exc_info=True)
+                    log.error("receiver: unexpected failure; retrying in %.0f s", wait.s, exc_info=True)
                 if is_open:
                     self._salvage()
                 try:
@@ -318,11 +319,11 @@ class Logger:
                     lost = ReceiverLost(self.clock.realtime(), reason)
                     self._put(lost, block=True)
                 self.receiver_state = "retrying"
-                deadline = self.clock.monotonic() + wait
+                deadline = self.clock.monotonic() + wait.s
                 while not self.stop_event.is_set() and self.clock.monotonic() < deadline:
                     self.feed_heartbeat = self.clock.monotonic()
                     self.stop_event.wait(min(0.2, max(0.0, deadline - self.clock.monotonic())))
-                wait = min(wait * 2, self.retry_max_s)
+                wait.double()
         if is_open:
             self._salvage()
             try:
@@ -415,7 +416,7 @@ class Logger:
         if not self.raw_paused and free < self.disk_min_mb:
             self._pause_raw(f"disk free {free:.1f} MB below disk_min_free_mb {self.disk_min_mb:g} MB")
         probing = self.raw_paused and free >= self._resume_above_mb and \
-            self.clock.monotonic() - self._paused_at >= self._disk_retry_s
+            self.clock.monotonic() - self._paused_at >= self._disk_retry.s
         if self.raw_paused and not probing:
             self.counts.spectra_not_archived += spec.n_time
             return
@@ -437,7 +438,7 @@ class Logger:
             return
         if probing:
             self.raw_paused = False
-            self._disk_retry_s = DISK_RETRY_S
+            self._disk_retry.reset()
             self._notable(f"raw spectra resumed: disk free {free:.1f} MB", level=logging.WARNING)
 
     def _on_disk(self) -> int:
@@ -466,13 +467,13 @@ class Logger:
             return
         log.debug("raw spectra still paused: %s", e)
         self._paused_at = self.clock.monotonic()
-        self._disk_retry_s = min(2 * self._disk_retry_s, DISK_RETRY_MAX_S)
+        self._disk_retry.double()
         self._resume_above_mb = max(self._resume_above_mb, self._disk_free() + 1.0)
 
     def _pause_raw(self, why: str, failed: bool = False):
         self.raw_paused = True
         self._paused_at = self.clock.monotonic()
-        self._disk_retry_s = DISK_RETRY_S
+        self._disk_retry.reset()
         # After a failed write the threshold alone may already be met (e.g. threshold 0):
         # then wait for a megabyte more than there was when the write failed.
         self._resume_above_mb = max(DISK_RESUME_FACTOR * self.disk_min_mb,
@@ -736,7 +737,7 @@ class Logger:
         # Flush FIRST_FLUSH_S after the first spectra, then at doubling waits up to chunk_s:
         # a logger that crashes and restarts faster than chunk_s still archives (about the
         # first half of each run), and a health row shows it.
-        flush_wait = min(FIRST_FLUSH_S, self.chunk_s)
+        flush_wait = DoublingWait(min(FIRST_FLUSH_S, self.chunk_s), self.chunk_s)
         next_flush = None
         next_health = start + self.health_s
         next_prune = start
@@ -757,15 +758,14 @@ class Logger:
                 self._on_marker(item)
             now = clock.monotonic()
             if next_flush is None and self._last_segment:
-                next_flush = now + flush_wait
+                next_flush = now + flush_wait.s
             if next_flush is not None and now >= next_flush:
                 first = self._on_disk() == 0
                 self._flush()
                 if first and self._on_disk():
                     self._health(note=f"first spectra archived, up to {iso(self.last_end)}")
                     next_health = now + self.health_s
-                flush_wait = min(2 * flush_wait, self.chunk_s)
-                next_flush = now + flush_wait
+                next_flush = now + flush_wait.double()
             if now >= next_health:
                 self._health()
                 next_health = now + self.health_s
