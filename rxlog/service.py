@@ -53,12 +53,12 @@ from pathlib import Path
 
 import numpy as np
 
-from rxlog import health as hl
 from rxlog.errors import RxlogError
-from rxlog.notify import Notifier
 from rxlog.receiver import EndOfStream
 from rxlog.retry import DoublingWait
 from rxlog.spectrum import DynamicSpectrum
+from rxlog.station import health as hl
+from rxlog.station.notify import Notifier
 from rxlog.timeutil import iso, parse_iso
 
 log = logging.getLogger("rxlog")

@@ -1,0 +1,1 @@
+"""The station: what the config asks of the logger, and the sources and services it runs."""
