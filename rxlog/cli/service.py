@@ -21,10 +21,10 @@ def run_command(cfg, duration):
     Example (a simulated receiver, for two minutes):
       rxlog run --config station.toml --duration 120
     """
-    from rxlog import service
+    from rxlog.station import journal, supervise
 
-    service.setup_logging(cfg["service"]["log_level"])
-    summary = service.run(cfg, duration_s=duration)
+    journal.setup_logging(cfg["service"]["log_level"])
+    summary = supervise.run(cfg, duration_s=duration)
     click.echo(f"stopped ({summary['stop_reason']}): {summary['spectra_archived']} spectra archived, "
                f"{summary['events']} events, {summary['receiver_gaps']} receiver gaps, "
                f"{summary['clock_steps']} clock steps")
