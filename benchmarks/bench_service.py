@@ -57,9 +57,9 @@ log_level = "warning"
 SPECTRA_RUN = textwrap.dedent("""
     import sys
     from rxlog.config import load_config
-    from rxlog import service
-    service.setup_logging("warning")
-    summary = service.run(load_config(sys.argv[1]), sim_hours=float(sys.argv[2]))
+    from rxlog.station import journal, supervise
+    journal.setup_logging("warning")
+    summary = supervise.run(load_config(sys.argv[1]), sim_hours=float(sys.argv[2]))
     print(summary["spectra_archived"], summary["events"])
 """)
 

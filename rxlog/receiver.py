@@ -40,6 +40,7 @@ import numpy as np
 
 from rxlog import validate
 from rxlog.errors import RxlogError
+from rxlog.retry import DoublingWait
 from rxlog.timeutil import parse_iso
 
 log = logging.getLogger("rxlog.receiver")
@@ -664,17 +665,17 @@ class RtlTcpSource(_LiveSource):
         """
         self._disconnect()
         lost_at = self.monotonic()
-        wait = 0.5
+        wait = DoublingWait(0.5)
         while True:
-            self.sleep(wait)
+            self.sleep(wait.s)
             try:
                 self._connect()
             except RxlogError as e:
-                if self.monotonic() - lost_at + 2 * wait > self.reconnect_max_s:
+                after = wait.double()
+                if self.monotonic() - lost_at + after > self.reconnect_max_s:
                     raise ReceiverLost(f"{e} (gave up reconnecting after "
                                        f"{self.monotonic() - lost_at:.0f} s)") from None
-                log.warning("rtl_tcp: %s; next try in %.1f s", e, 2 * wait)
-                wait *= 2
+                log.warning("rtl_tcp: %s; next try in %.1f s", e, after)
                 continue
             self.reconnects += 1
             log.warning("rtl_tcp %s:%d: reconnected after %.1f s; the samples in between are a gap",

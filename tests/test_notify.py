@@ -9,7 +9,7 @@ import socket
 
 import pytest
 
-from rxlog.notify import Notifier
+from rxlog.station.notify import Notifier
 
 
 def _listener(address):

@@ -9,8 +9,9 @@ from rxlog import report
 from rxlog.archive import read_spectrum_fits
 from rxlog.channelizer import Ring
 from rxlog.config import load_config
-from rxlog.service import Logger, cutout_relpath, prune_cutouts, save_cutout
 from rxlog.spectrum import channel_grid
+from rxlog.station.cutouts import cutout_relpath, prune_cutouts, save_cutout
+from rxlog.station.supervise import Logger
 from rxlog.store import EventStore
 from rxlog.timeutil import iso
 from service_helpers import write_config
@@ -62,10 +63,10 @@ def test_logger_skips_interference_and_a_paused_disk(tmp_path):
     try:
         lg = Logger(cfg, feed=SimpleNamespace(ring=_ring(), paced=True), archive_factory=None,
                     detector_factory=None, store=store)
-        rfi, burst = lg._with_cutouts([_event("rfi"), _event("solar_iii", T0 + 1, T0 + 2)])
+        rfi, burst = lg.pipeline.with_cutouts([_event("rfi"), _event("solar_iii", T0 + 1, T0 + 2)])
         assert rfi.get("cutout_path") is None and burst["cutout_path"]
-        lg.raw_paused = True
-        (late,) = lg._with_cutouts([_event("solar_iii", T0 + 3, T0 + 4)])
+        lg.disk.paused = True
+        (late,) = lg.pipeline.with_cutouts([_event("solar_iii", T0 + 3, T0 + 4)])
         assert late.get("cutout_path") is None
     finally:
         store.close()
@@ -90,7 +91,7 @@ def test_default_ring_outlasts_the_detector_latency():
     from pathlib import Path
 
     from rxlog.detect.online import OnlineDetector
-    from rxlog.service import cutout_ring_needed_s
+    from rxlog.station.cutouts import cutout_ring_needed_s
     from detector_helpers import Sky, sun_up
 
     cfg = load_config(Path(__file__).resolve().parents[1] / "config" / "station.example.toml")

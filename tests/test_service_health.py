@@ -11,7 +11,7 @@ import time
 import psutil
 import pytest
 
-from rxlog import health as hl
+from rxlog.station import health as hl
 
 # `timedatectl show` prints KEY=VALUE properties (systemd's timedatectl(1); property names
 # as printed by systemd 252 on Debian 12).
@@ -96,7 +96,7 @@ def test_rss_agrees_with_psutil():
 
 HOLDER = textwrap.dedent("""
     import sys, time
-    from rxlog.health import RunLock
+    from rxlog.station.health import RunLock
     lock = RunLock(sys.argv[1])
     print("held" if lock.acquire() else "busy", flush=True)
     time.sleep(60)

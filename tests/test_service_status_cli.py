@@ -12,8 +12,8 @@ import pytest
 from click.testing import CliRunner
 from service_helpers import Run, archive_rows, write_config
 
-from rxlog import service
 from rxlog.cli import main
+from rxlog.station.journal import setup_logging
 from rxlog.timeutil import parse_iso
 
 
@@ -92,7 +92,7 @@ def _log_lines(monkeypatch, journal: bool):
     else:
         monkeypatch.delenv("JOURNAL_STREAM", raising=False)
     buf = io.StringIO()
-    service.setup_logging("info", stream=buf)
+    setup_logging("info", stream=buf)
     log = logging.getLogger("rxlog")
     log.debug("not shown at info")
     log.warning("disk nearly full:\n3.2 MB left")

@@ -11,7 +11,8 @@ from service_helpers import write_config
 
 from rxlog.archive import ArchiveWriter
 from rxlog.config import load_config
-from rxlog.health import RunLock, disk_outlook, station_status
+from rxlog.station.health import RunLock
+from rxlog.station.status import disk_outlook, station_status
 from rxlog.store import EventStore
 from rxlog.timeutil import iso
 

@@ -17,7 +17,7 @@ import pytest
 
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
-from rxlog.units import default_units, units_for_config, write_units
+from rxlog.station.units import default_units, units_for_config, write_units
 
 REPO = Path(__file__).resolve().parents[1]
 ANALYZE = shutil.which("systemd-analyze")

@@ -21,10 +21,10 @@ def run_command(cfg, duration):
     Example (a simulated receiver, for two minutes):
       rxlog run --config station.toml --duration 120
     """
-    from rxlog import service
+    from rxlog.station import journal, supervise
 
-    service.setup_logging(cfg["service"]["log_level"])
-    summary = service.run(cfg, duration_s=duration)
+    journal.setup_logging(cfg["service"]["log_level"])
+    summary = supervise.run(cfg, duration_s=duration)
     click.echo(f"stopped ({summary['stop_reason']}): {summary['spectra_archived']} spectra archived, "
                f"{summary['events']} events, {summary['receiver_gaps']} receiver gaps, "
                f"{summary['clock_steps']} clock steps")
@@ -45,7 +45,7 @@ def status_command(cfg):
     Example:
       rxlog status --config station.toml
     """
-    from rxlog.health import describe_disk, format_duration, station_status
+    from rxlog.station.status import describe_disk, format_duration, station_status
 
     st = station_status(cfg)
     starts = f"{st['starts_24h']} start{'s' if st['starts_24h'] != 1 else ''} in the last 24 h"
@@ -97,7 +97,7 @@ def service_command(cfg, out_dir):
       sudo cp /tmp/units/rxlog* /etc/systemd/system/
       sudo cp /tmp/units/60-rxlog-rtlsdr.rules /etc/udev/rules.d/
     """
-    from rxlog.units import units_for_config, write_units
+    from rxlog.station.units import units_for_config, write_units
 
     units = units_for_config(cfg)
     if out_dir:

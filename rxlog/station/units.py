@@ -20,6 +20,9 @@ import re
 import sys
 from pathlib import Path
 
+from rxlog.config import SCHEMA
+from rxlog.errors import RxlogError
+
 # Install layout assumed by the units shipped in systemd/ (README "Running a station").
 DEFAULT_PYTHON = "/opt/rxlog/venv/bin/python"
 DEFAULT_CONFIG = "/etc/rxlog/station.toml"
@@ -113,7 +116,6 @@ def _unit_path(what: str, p: str) -> str:
     """A path for the unit files, its '%' escaped as systemd's specifier syntax wants (systemd.unit(5))."""
     p = str(p)
     if not _SAFE_PATH.fullmatch(p):
-        from rxlog.errors import RxlogError
         raise RxlogError(f"{what} {p!r}: systemd unit files cannot carry this path safely (white space, "
                          "quotes, '$' or backslashes); use a path of letters, digits and ./_+,:=@%~-")
     return p.replace("%", "%%")
@@ -161,8 +163,6 @@ def write_units(units: dict[str, str], out_dir: str | Path) -> list[Path]:
 
 def default_units() -> dict[str, str]:
     """The units shipped in systemd/: the README's install layout, the system's local time zone."""
-    from rxlog.config import SCHEMA
-
     svc = SCHEMA["service"]
     return render(station="", user=svc["user"].default, python=DEFAULT_PYTHON, config=DEFAULT_CONFIG,
                   storage=DEFAULT_STORAGE, watchdog_s=svc["watchdog_s"].default,
