@@ -26,13 +26,15 @@ from zoneinfo import ZoneInfo
 
 import numpy as np
 
-from rxlog import report
 from rxlog.archive import ArchiveWriter
 from rxlog.config import config_from_text
-from rxlog.review_server import ReviewServer
+from rxlog.review.night import night_starting
+from rxlog.review.page import event_image_name
+from rxlog.review.report import build_report
+from rxlog.review.server import ReviewServer
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 from rxlog.store import EventStore, make_event_id
-from rxlog.timeutil import iso
+from rxlog.timeutil import iso, parse_iso
 
 N_EVENTS = 500
 N_LABELLED = 100
@@ -89,8 +91,8 @@ def _write_archive(cfg, t0: float, events: list[dict], rng):
             a = t0 + 3600 * h
             power = sky[None, :] + rng.normal(0.0, 0.11, (3600, N_CHAN)).astype(np.float32)
             for e in events:      # draw each event as a 2-dB box so zooms show something
-                s = int(max(0, report.parse_iso(e["start_utc"]) - a))
-                t = int(min(3600, report.parse_iso(e["end_utc"]) - a))
+                s = int(max(0, parse_iso(e["start_utc"]) - a))
+                t = int(min(3600, parse_iso(e["end_utc"]) - a))
                 if t > s:
                     band = (fmhz >= e["fmin_mhz"]) & (fmhz <= e["fmax_mhz"])
                     power[s:t, band] += 2.0
@@ -114,7 +116,7 @@ def run():
     rng = np.random.default_rng(5)
     with tempfile.TemporaryDirectory() as tmp:
         cfg = _config(Path(tmp))
-        night = report.night_starting(cfg, NIGHT)
+        night = night_starting(cfg, NIGHT)
         t0 = dt.datetime.combine(NIGHT, dt.time(18), tzinfo=ZoneInfo(TZ)).timestamp()
         events = _events(t0, t0 + 3600 * HOURS, rng)
         _write_archive(cfg, t0, events, rng)
@@ -125,7 +127,7 @@ def run():
         store.close()
 
         t, cpu = time.perf_counter(), time.process_time()
-        index = report.build_report(cfg, night)
+        index = build_report(cfg, night)
         build_s, build_cpu_s = time.perf_counter() - t, time.process_time() - cpu
         n_zooms = len(list((index.parent / "events").glob("*.png")))
 
@@ -143,7 +145,7 @@ def run():
                           .encode() for e in events[1::N_EVENTS // REPEAT][:REPEAT]])
             kinds = {
                 "page (500 cards)": ("GET", "/", None, None),
-                "event image": ("GET", "/" + report.event_image_name(events[7]), None, None),
+                "event image": ("GET", "/" + event_image_name(events[7]), None, None),
                 "event list with labels": ("GET", "/api/events", None, None),
                 "label history": ("GET", f"/api/history?event={eid}", None, None),
                 "label POST": ("POST", "/api/label", posts, {"Content-Type": "application/json",

@@ -896,7 +896,7 @@ def write_outputs(result: CompareResult, E: _Events, grp, n_at, names, outdir: P
 
 
 # Classes are drawn in this order, so interference lies under the sky's events; their
-# colours are rxlog.palette's, the same as in the night report.
+# colours are rxlog.review.palette's, the same as in the night report.
 DRAW_ORDER = ("rfi", "unknown", "fadeout", "solar_iv", "solar_ii", "jovian_s", "jovian_l", "solar_iii")
 BAR_PT = 7.0   # class bar thickness, points
 
@@ -933,7 +933,7 @@ def plot_timeline(E: _Events, grp, n_at, names, path: Path) -> Path:
     from matplotlib.figure import Figure
     from matplotlib.lines import Line2D
 
-    from rxlog.palette import CLASS_NAMES, colour, outline
+    from rxlog.review.palette import CLASS_NAMES, colour, outline
 
     epoch = date2num(_dt.datetime(1970, 1, 1))
     day = 86400.0

@@ -173,7 +173,7 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     from rxlog.compare import compare_stations
     from rxlog.exchange import export_events, write_voevents
     from rxlog.forecast import make_forecast
-    from rxlog.report import build_report
+    from rxlog.review.report import build_report
     from rxlog.sim.truth import write_truth_csv
     from rxlog.store import EventStore
 

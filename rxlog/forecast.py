@@ -26,7 +26,7 @@ from typing import Callable
 import icalendar
 import numpy as np
 
-from rxlog.sky.regions import regions_from_config
+from rxlog.sky.regions import regions_from_config, wrapped_spans
 from rxlog.sky.tags import station_tags
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
@@ -286,13 +286,6 @@ PLOT_STEP_S = 300.0
 REGION_COLOURS = ["#56B4E9", "#009E73", "#E69F00", "#CC79A7", "#999999", "#F0E442", "#0072B2", "#D55E00"]
 
 
-def _spans(lo: float, hi: float) -> list[tuple[float, float]]:
-    """A degree range as one or two non-wrapping spans."""
-    if hi - lo >= 360.0:
-        return [(0.0, 360.0)]
-    return [(lo, hi)] if lo <= hi else [(lo, 360.0), (0.0, hi)]
-
-
 def _break_wraps(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Insert NaN where a track jumps across 0/360 so lines do not streak across the plot."""
     jump = np.flatnonzero((np.abs(np.diff(x)) > 180.0) | (np.abs(np.diff(y)) > 180.0)) + 1
@@ -367,8 +360,8 @@ def _plane(cfg, t, tags, ok, windows, dpi):
     handles = []
     for k, reg in enumerate(regions_from_config(cfg)):
         colour = REGION_COLOURS[k % len(REGION_COLOURS)]
-        io = [(0.0, 360.0)] if reg.io_from is None else _spans(reg.io_from, reg.io_to)
-        for c0, c1 in _spans(reg.cml_from, reg.cml_to):
+        io = [(0.0, 360.0)] if reg.io_from is None else wrapped_spans(reg.io_from, reg.io_to)
+        for c0, c1 in wrapped_spans(reg.cml_from, reg.cml_to):
             for i0, i1 in io:
                 ax.add_patch(Rectangle((c0, i0), c1 - c0, i1 - i0, facecolor=colour, alpha=0.18,
                                        edgecolor=colour, linewidth=1.0))

@@ -9,7 +9,7 @@ import pytest
 from click.testing import CliRunner
 
 from rxlog.cli import main
-from rxlog.report import LABEL_KEYS, PAGE_JS
+from rxlog.review.page import LABEL_KEYS, PAGE_JS
 from rxlog.store import make_event_id
 from rxlog.timeutil import parse_iso
 

@@ -3,7 +3,8 @@ order, and leave out flagged cells, NaN and channels outside the band."""
 
 import numpy as np
 
-from rxlog.report import _round_ticks, add_rows, display_channels
+from rxlog.review.data import add_rows, display_channels
+from rxlog.review.zoom import _round_ticks
 
 
 def naive(row_bin, chan_bin, power, valid, shape):

@@ -11,9 +11,13 @@ import pytest
 from click.testing import CliRunner
 from PIL import Image
 
-from rxlog import report
 from rxlog.archive import write_spectrum_fits
 from rxlog.cli import main
+from rxlog.review.data import zoom_window
+from rxlog.review.night import report_dir
+from rxlog.review.page import event_image_name
+from rxlog.review.report import build_report
+from rxlog.review.zoom import ZOOM_SPECTRUM_AXES
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 from rxlog.store import EventStore
 from rxlog.timeutil import parse_iso
@@ -52,7 +56,7 @@ def parse(index: Path) -> PageParser:
 def built(tmp_path_factory):
     root = tmp_path_factory.mktemp("night")
     cfg, night, events, truth = simulated_night(root)
-    index = report.build_report(cfg, night)
+    index = build_report(cfg, night)
     return cfg, night, events, index
 
 
@@ -75,7 +79,7 @@ def test_every_event_has_a_card_and_its_zoom(built):
     assert page.cards == [e["event_id"] for e in events]
     for e in events:
         src = page.card_images[e["event_id"]]
-        assert src == report.event_image_name(e) and (index.parent / src).is_file()
+        assert src == event_image_name(e) and (index.parent / src).is_file()
 
 
 def test_page_links_only_to_files_in_its_folder_even_when_copied(built, tmp_path):
@@ -105,7 +109,7 @@ def test_plots_exist_and_are_nontrivial_images(built):
     folder = index.parent
     _nontrivial(folder / "overview.png", (1000, 500))
     _nontrivial(folder / "cml_io.png")
-    zooms = [folder / report.event_image_name(e) for e in events]
+    zooms = [folder / event_image_name(e) for e in events]
     for z in zooms:
         _nontrivial(z)
     # Each zoom shows its own event, not a copy of another.
@@ -116,7 +120,7 @@ def _grey_inside_and_outside_box(png: Path, ev: dict, t_edges_centre: float, hal
     """90th percentiles of the luminance of the zoom's spectrum pixels inside and outside the event box."""
     a = np.asarray(Image.open(png).convert("L")).astype(float)
     h, w = a.shape
-    left, bottom, width, height = report.ZOOM_SPECTRUM_AXES
+    left, bottom, width, height = ZOOM_SPECTRUM_AXES
     x0, x1 = int(left * w) + 2, int((left + width) * w) - 2
     y0, y1 = int((1 - bottom - height) * h) + 2, int((1 - bottom) * h) - 2
     panel = a[y0:y1, x0:x1]
@@ -134,8 +138,8 @@ def test_zoom_shows_the_burst_inside_its_box(built):
     # cells must be lighter than the quiet sky beside it.
     cfg, night, events, index = built
     ev = max((e for e in events if e["class"] == "solar_iii"), key=lambda e: e["peak_excess_db"])
-    a, b = report.zoom_window(ev, cfg["spectra"]["cadence_s"])
-    inside, outside = _grey_inside_and_outside_box(index.parent / report.event_image_name(ev), ev,
+    a, b = zoom_window(ev, cfg["spectra"]["cadence_s"])
+    inside, outside = _grey_inside_and_outside_box(index.parent / event_image_name(ev), ev,
                                                    0.5 * (a + b), 0.5 * (b - a))
     assert inside > outside + 25, (inside, outside)
 
@@ -174,14 +178,14 @@ def test_masked_fraction_is_the_detectors_record_weighted_by_recorded_time(built
 
 def test_masked_fraction_unknown_before_detection(tmp_path):
     cfg, night, events = make_night(tmp_path, hours=0.3, n_bursts=1)
-    index = report.build_report(cfg, night)
+    index = build_report(cfg, night)
     assert "masked as interference: not measured yet" in (index.parent / "summary.txt").read_text()
 
 
 def test_report_with_events_but_no_spectra_still_lists_them(tmp_path):
     cfg, night, events = make_night(tmp_path, hours=0.5, n_bursts=3)
     shutil.rmtree(cfg.archive_dir)
-    index = report.build_report(cfg, night)
+    index = build_report(cfg, night)
     page = parse(index)
     assert page.cards == [e["event_id"] for e in events]
     assert "No spectra for this event in the archive." in index.read_text()
@@ -202,23 +206,23 @@ def test_kept_cutout_is_drawn_instead_of_the_archive(tmp_path):
     store = EventStore(cfg.store_path)
     store.upsert_events([{**{k: ev[k] for k in ev if not k.startswith("label")}, "cutout_path": str(rel)}])
     store.close()
-    index = report.build_report(cfg, night)
+    index = build_report(cfg, night)
     html = index.read_text()
     cards = html.split('<section class="event ')[1:]
     assert "full-resolution cutout" in cards[0] and "full-resolution cutout" not in cards[1]
-    _nontrivial(index.parent / report.event_image_name(ev))
+    _nontrivial(index.parent / event_image_name(ev))
 
 
 def test_rebuild_drops_zooms_of_events_no_longer_stored(tmp_path):
     cfg, night, events = make_night(tmp_path, hours=0.5, n_bursts=3)
-    index = report.build_report(cfg, night)
-    gone = index.parent / report.event_image_name(events[0])
+    index = build_report(cfg, night)
+    gone = index.parent / event_image_name(events[0])
     assert gone.is_file()
     store = EventStore(cfg.store_path)
     store.replace_events("testsite", night.t0, night.t1, [{k: e[k] for k in e if not k.startswith("label")}
                                                           for e in events[1:]])
     store.close()
-    report.build_report(cfg, night)
+    build_report(cfg, night)
     assert not gone.exists()
     check_links(index, parse(index))
 
@@ -236,7 +240,7 @@ def test_label_survives_redetection_into_the_rebuilt_page(tmp_path):
         again.append(shifted)
     store.replace_events("testsite", night.t0, night.t1, again)
     store.close()
-    index = report.build_report(cfg, night)
+    index = build_report(cfg, night)
     card = index.read_text().split(f'data-event-id="{again[1]["event_id"]}"')[1].split("</section>")[0]
     assert "label: <span class=\"current-label\">Solar type II (ana)</span>" in card
     assert 'value="slow drift"' in card
@@ -247,7 +251,7 @@ def test_review_command_prints_the_summary_and_the_path(tmp_path):
     r = CliRunner().invoke(main, ["review", "--config", str(cfg.path), "--night", night.name])
     assert r.exit_code == 0, r.output
     assert f"events: {len(events)}" in r.output
-    assert f"report: {report.report_dir(cfg, night) / 'index.html'}" in r.output
+    assert f"report: {report_dir(cfg, night) / 'index.html'}" in r.output
 
 
 def test_review_command_rejects_a_bad_night(built):

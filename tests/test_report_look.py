@@ -12,9 +12,16 @@ import pytest
 from matplotlib.colors import to_hex
 from PIL import Image
 
-from rxlog import palette, report
 from rxlog.compare import compare_stations
 from rxlog.exchange import export_events
+from rxlog.review import palette
+from rxlog.review.data import ZOOM_LENGTHS_S, read_night, zoom_window
+from rxlog.review.listing import event_table
+from rxlog.review.night import night_events, night_starting, zone_name
+from rxlog.review.plots import cml_io_figure, overview_figure
+from rxlog.review.report import build_report
+from rxlog.review.summary import JOVIAN, fmt_span, night_summary
+from rxlog.review.zoom import MAX_CLOCK_TICKS, ZoomPlotter, clock_ticks
 from rxlog.store import CLASSES, EventStore
 from rxlog.timeutil import parse_iso
 from test_report_night import NIGHT, TZ, _event, make_night, station_config
@@ -44,8 +51,8 @@ def all_classes(tmp_path_factory):
     store = EventStore(cfg.store_path)
     store.upsert_events(events)
     store.close()
-    index = report.build_report(cfg, night)
-    return cfg, night, report.night_events(cfg, night), index
+    index = build_report(cfg, night)
+    return cfg, night, night_events(cfg, night), index
 
 
 # -- the palette -------------------------------------------------------------------------
@@ -104,10 +111,10 @@ def test_a_class_box_stands_out_on_any_background():
 def _zoom_png(night, tmp_path, cls: str, level: float):
     """A zoom of one event over a flat map at ``level`` dB; (png array, plotter, event, mid)."""
     f_edges = np.linspace(16.0, 24.0, 129)
-    plotter = report.ZoomPlotter(night, f_edges)
+    plotter = ZoomPlotter(night, f_edges)
     peak = night.t0 + 9 * 3600.0
     ev = {**_event(peak, 20.0, 18.0, 21.0, cls), "event_id": "x"}
-    a, b = report.zoom_window(ev, 1.0)
+    a, b = zoom_window(ev, 1.0)
     t_edges = np.linspace(a, b, 121)
     path = plotter.draw(tmp_path / f"{cls}-{level}.png", 1, ev, t_edges, np.full((120, 128), level), "archive")
     return np.asarray(Image.open(path).convert("RGB")), plotter, ev, 0.5 * (a + b)
@@ -117,7 +124,7 @@ def _zoom_png(night, tmp_path, cls: str, level: float):
                                         ("rfi", 10.0)])
 def test_zoom_box_stands_out_on_the_darkest_and_the_lightest_map(tmp_path, cls, level):
     cfg = station_config(tmp_path)
-    night = report.night_starting(cfg, NIGHT)
+    night = night_starting(cfg, NIGHT)
     rgb, plotter, ev, mid = _zoom_png(night, tmp_path, cls, level)
     h = rgb.shape[0]
     x, y = plotter.ax.transData.transform((parse_iso(ev["start_utc"]) - mid, 19.5))
@@ -131,17 +138,17 @@ def test_zoom_box_stands_out_on_the_darkest_and_the_lightest_map(tmp_path, cls, 
 def test_every_report_plot_draws_each_class_in_its_palette_colour(all_classes, tmp_path):
     cfg, night, events, index = all_classes
     assert sorted(e["class"] for e in events) == sorted(CLASSES)
-    data = report.read_night(cfg, night, [])
-    summary = report.night_summary(cfg, night, events, data, [], [], [], [])
-    fig = report.overview_figure(night, data, events, summary)
+    data = read_night(cfg, night, [])
+    summary = night_summary(cfg, night, events, data, [], [], [], [])
+    fig = overview_figure(night, data, events, summary)
     drawn = {_hex(c) for ax in fig.axes for coll in ax.collections for c in coll.get_edgecolor()}
     assert {palette.colour(c).upper() for c in CLASSES} <= drawn
     legend = {t.get_text(): _hex(h.get_edgecolor()) for t, h in zip(fig.legends[0].get_texts(),
                                                                      fig.legends[0].legend_handles)}
     assert legend == {f"{palette.CLASS_NAMES[c]} ({c})": palette.colour(c).upper() for c in CLASSES}
 
-    jovian = [(i, e) for i, e in enumerate(events) if e["class"] in report.JOVIAN]
-    fig = report.cml_io_figure(cfg, night, jovian)
+    jovian = [(i, e) for i, e in enumerate(events) if e["class"] in JOVIAN]
+    fig = cml_io_figure(cfg, night, jovian)
     faces = {_hex(c) for coll in fig.axes[0].collections for c in coll.get_facecolor()}
     assert {palette.colour("jovian_l").upper(), palette.colour("jovian_s").upper()} <= faces
 
@@ -243,25 +250,25 @@ def test_summary_page_and_listing_name_the_zone_of_every_time(all_classes):
     page = _Page()
     page.feed(index.read_text(encoding="utf-8"))
     assert_every_time_names_its_zone(" ".join(page.text))
-    table = report.event_table(cfg, night=night.name)
+    table = event_table(cfg, night=night.name)
     assert table.splitlines()[0].split()[:4] == ["event_id", "peak", "class", "confidence"]
     assert_every_time_names_its_zone(table)
 
 
 def test_a_span_across_a_clock_change_names_both_zones(tmp_path):
     cfg = station_config(tmp_path)
-    night = report.night_starting(cfg, dt.date(2027, 3, 13))      # US clocks go forward 2027-03-14 02:00
+    night = night_starting(cfg, dt.date(2027, 3, 13))      # US clocks go forward 2027-03-14 02:00
     tz = ZoneInfo(TZ)
     a = dt.datetime(2027, 3, 14, 1, 0, tzinfo=tz).timestamp()
     b = dt.datetime(2027, 3, 14, 3, 30, tzinfo=tz).timestamp()
-    assert report._fmt_span(night, a, b) == "01:00 EST–03:30 EDT"
-    assert report._fmt_span(night, b, b + 3600) == "03:30–04:30 EDT"
+    assert fmt_span(night, a, b) == "01:00 EST–03:30 EDT"
+    assert fmt_span(night, b, b + 3600) == "03:30–04:30 EDT"
 
 
 def test_a_zone_without_an_abbreviation_is_named_by_its_offset():
     # tzdata names Asia/Kolkata's time 'IST' but Asia/Dubai's only '+04'.
-    assert report.zone_name(dt.datetime(2027, 2, 3, 12, tzinfo=ZoneInfo("Asia/Dubai"))) == "UTC+04:00"
-    assert report.zone_name(dt.datetime(2027, 2, 3, 12, tzinfo=ZoneInfo("Europe/Paris"))) == "CET"
+    assert zone_name(dt.datetime(2027, 2, 3, 12, tzinfo=ZoneInfo("Asia/Dubai"))) == "UTC+04:00"
+    assert zone_name(dt.datetime(2027, 2, 3, 12, tzinfo=ZoneInfo("Europe/Paris"))) == "CET"
 
 
 # -- event zooms on an absolute clock ----------------------------------------------------
@@ -269,10 +276,10 @@ def test_a_zone_without_an_abbreviation_is_named_by_its_offset():
 @pytest.mark.parametrize("offset_h", [0.0, -5.0, 5.5, 5.75, -3.5])
 def test_clock_ticks_are_round_local_times_inside_every_zoom_window(offset_h):
     off = offset_h * 3600.0
-    for length in report.ZOOM_LENGTHS_S:
+    for length in ZOOM_LENGTHS_S:
         a = 1_800_000_123.0
-        ticks, step = report.clock_ticks(a, a + length, off)
-        assert 3 <= len(ticks) <= report.MAX_CLOCK_TICKS, (length, ticks)
+        ticks, step = clock_ticks(a, a + length, off)
+        assert 3 <= len(ticks) <= MAX_CLOCK_TICKS, (length, ticks)
         assert ticks[0] >= a and ticks[-1] <= a + length
         assert np.all(np.mod(ticks + off, step) == 0)
         assert np.all(np.diff(ticks) == step)

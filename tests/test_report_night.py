@@ -12,10 +12,11 @@ from zoneinfo import ZoneInfo
 import numpy as np
 import pytest
 
-from rxlog import report
 from rxlog.archive import ArchiveWriter
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
+from rxlog.review.data import default_night
+from rxlog.review.night import night_events, night_of, night_starting, parse_night
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 from rxlog.store import EventStore, make_event_id
 from rxlog.timeutil import iso
@@ -60,7 +61,7 @@ def simulated_night(root, minutes=45, channels=128):
     from rxlog.sim.spectra import simulate_spectra
 
     cfg = station_config(root, channels=channels)
-    night = report.night_starting(cfg, NIGHT)
+    night = night_starting(cfg, NIGHT)
     tz = ZoneInfo(TZ)
     day = dt.datetime.combine(NIGHT, dt.time(15, 30), tzinfo=tz).timestamp()          # Sun up
     late = dt.datetime.combine(NIGHT + dt.timedelta(days=1), dt.time(2, 0), tzinfo=tz).timestamp()  # Jupiter up
@@ -76,7 +77,7 @@ def simulated_night(root, minutes=45, channels=128):
             w.write(spec)
             truth += rows
     detect_range(cfg)
-    return cfg, night, report.night_events(cfg, night), truth
+    return cfg, night, night_events(cfg, night), truth
 
 
 def make_night(root, hours=2.0, start_local_hour=21, n_bursts=6, seed=7, channels=128):
@@ -86,7 +87,7 @@ def make_night(root, hours=2.0, start_local_hour=21, n_bursts=6, seed=7, channel
     matching events are put in the store, as detection would.
     """
     cfg = station_config(root, channels=channels)
-    night = report.night_starting(cfg, NIGHT)
+    night = night_starting(cfg, NIGHT)
     rng = np.random.default_rng(seed)
     t0 = dt.datetime.combine(NIGHT, dt.time(start_local_hour), tzinfo=ZoneInfo(TZ)).timestamp()
     n = int(hours * 3600)
@@ -127,27 +128,27 @@ def make_night(root, hours=2.0, start_local_hour=21, n_bursts=6, seed=7, channel
     store = EventStore(cfg.store_path)
     store.upsert_events(events)
     store.close()
-    return cfg, night, report.night_events(cfg, night)
+    return cfg, night, night_events(cfg, night)
 
 
 def test_night_runs_local_noon_to_noon(tmp_path):
     cfg = station_config(tmp_path)
-    night = report.night_starting(cfg, NIGHT)
+    night = night_starting(cfg, NIGHT)
     tz = ZoneInfo(TZ)
     assert dt.datetime.fromtimestamp(night.t0, tz) == dt.datetime(2027, 2, 3, 12, tzinfo=tz)
     assert dt.datetime.fromtimestamp(night.t1, tz) == dt.datetime(2027, 2, 4, 12, tzinfo=tz)
     assert night.name == "2027-02-03"
     # An instant just before noon belongs to the previous night, at noon to the new one.
-    assert report.night_of(cfg, night.t0 - 1).date == dt.date(2027, 2, 2)
-    assert report.night_of(cfg, night.t0).date == NIGHT
-    assert report.night_of(cfg, night.t1 - 1).date == NIGHT
+    assert night_of(cfg, night.t0 - 1).date == dt.date(2027, 2, 2)
+    assert night_of(cfg, night.t0).date == NIGHT
+    assert night_of(cfg, night.t1 - 1).date == NIGHT
 
 
 def test_night_across_clock_changes_is_23_or_25_hours(tmp_path):
     cfg = station_config(tmp_path)
     # US clocks go forward on 2027-03-14 and back on 2027-11-07 at 02:00 local.
-    spring = report.night_starting(cfg, dt.date(2027, 3, 13))
-    autumn = report.night_starting(cfg, dt.date(2027, 11, 6))
+    spring = night_starting(cfg, dt.date(2027, 3, 13))
+    autumn = night_starting(cfg, dt.date(2027, 11, 6))
     assert spring.t1 - spring.t0 == 23 * 3600
     assert autumn.t1 - autumn.t0 == 25 * 3600
 
@@ -155,13 +156,13 @@ def test_night_across_clock_changes_is_23_or_25_hours(tmp_path):
 def test_bad_night_text_names_the_expected_form(tmp_path):
     cfg = station_config(tmp_path)
     with pytest.raises(RxlogError, match="YYYY-MM-DD"):
-        report.parse_night(cfg, "03/02/2027")
+        parse_night(cfg, "03/02/2027")
 
 
 def test_default_night_without_data_says_so(tmp_path):
     cfg = station_config(tmp_path)
     with pytest.raises(RxlogError, match="no data yet"):
-        report.default_night(cfg)
+        default_night(cfg)
 
 
 def _store_event_at(cfg, t):
@@ -172,25 +173,25 @@ def _store_event_at(cfg, t):
 
 def test_default_night_is_the_latest_complete_one(tmp_path):
     cfg = station_config(tmp_path)
-    n1 = report.night_starting(cfg, NIGHT)
-    n2 = report.night_starting(cfg, NIGHT + dt.timedelta(days=1))
+    n1 = night_starting(cfg, NIGHT)
+    n2 = night_starting(cfg, NIGHT + dt.timedelta(days=1))
     _store_event_at(cfg, n1.t0 + 10 * 3600)
     _store_event_at(cfg, n2.t0 + 10 * 3600)   # data still coming in on the second night
     # Wall clock inside the second night: the first one is the latest complete night.
-    assert report.default_night(cfg, now=n2.t0 + 20 * 3600).date == n1.date
+    assert default_night(cfg, now=n2.t0 + 20 * 3600).date == n1.date
     # Once the second night's closing noon has passed, it is the one.
-    assert report.default_night(cfg, now=n2.t1 + 60).date == n2.date
+    assert default_night(cfg, now=n2.t1 + 60).date == n2.date
 
 
 def test_default_night_with_future_data_takes_the_latest_data(tmp_path):
     # Demo nights may lie in the future: then the night holding the latest data is used.
     cfg = station_config(tmp_path)
-    n = report.night_starting(cfg, NIGHT)
+    n = night_starting(cfg, NIGHT)
     _store_event_at(cfg, n.t0 + 10 * 3600)
-    assert report.default_night(cfg, now=n.t0 - 400 * 86400).date == n.date
+    assert default_night(cfg, now=n.t0 - 400 * 86400).date == n.date
 
 
 def test_default_night_sees_archived_spectra(tmp_path):
     cfg, night, events = make_night(tmp_path, hours=0.2, n_bursts=0)
     assert events == []
-    assert report.default_night(cfg, now=night.t1 + 3600).date == night.date
+    assert default_night(cfg, now=night.t1 + 3600).date == night.date

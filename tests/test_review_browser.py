@@ -8,8 +8,10 @@ import shutil
 
 import pytest
 
-from rxlog import palette, report
-from rxlog.review_server import ReviewServer
+from rxlog.review import palette
+from rxlog.review.night import report_dir
+from rxlog.review.report import build_report
+from rxlog.review.server import ReviewServer
 from rxlog.store import EventStore
 from test_report_night import make_night
 
@@ -37,7 +39,7 @@ def served(tmp_path_factory):
     _browser_or_skip()
     root = tmp_path_factory.mktemp("browser")
     cfg, night, events = make_night(root, hours=0.5, n_bursts=4)
-    report.build_report(cfg, night)
+    build_report(cfg, night)
     srv = ReviewServer(cfg, night, port=0)
     srv.start_background()
     yield cfg, night, events, srv
@@ -109,7 +111,7 @@ def test_step_label_reload_and_the_label_stays(served, browser):
 def test_page_opened_from_disk_is_read_only_but_complete(served, browser):
     cfg, night, events, srv = served
     page = browser.new_page()
-    page.goto((report.report_dir(cfg, night) / "index.html").as_uri())
+    page.goto((report_dir(cfg, night) / "index.html").as_uri())
     assert page.locator("section.event").count() == len(events)
     assert "Read-only" in page.locator("#mode").inner_text()
     page.locator("body").click(position={"x": 5, "y": 5})

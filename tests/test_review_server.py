@@ -11,9 +11,10 @@ import time
 
 import pytest
 
-from rxlog import report
 from rxlog.errors import RxlogError
-from rxlog.review_server import ReviewServer
+from rxlog.review.night import report_dir
+from rxlog.review.report import build_report
+from rxlog.review.server import ReviewServer
 from rxlog.store import EventStore
 from test_report_night import make_night
 
@@ -22,7 +23,7 @@ from test_report_night import make_night
 def night(tmp_path_factory):
     root = tmp_path_factory.mktemp("served")
     cfg, night, events = make_night(root, hours=0.5, n_bursts=3)
-    report.build_report(cfg, night)
+    build_report(cfg, night)
     return cfg, night, events
 
 
@@ -106,7 +107,7 @@ def test_review_command_refuses_a_remote_bind_before_building(night):
     from rxlog.cli import main
 
     cfg, n, _ = night
-    index = report.report_dir(cfg, n) / "index.html"
+    index = report_dir(cfg, n) / "index.html"
     before = index.stat().st_mtime_ns
     r = CliRunner().invoke(main, ["review", "--config", str(cfg.path), "--night", n.name, "--serve",
                                   "--host", "0.0.0.0"])
@@ -142,7 +143,7 @@ def test_paths_outside_the_report_folder_are_refused(server, path):
 
 def test_symlink_out_of_the_folder_is_refused(server, night):
     cfg, n, _ = night
-    link = report.report_dir(cfg, n) / "store.png"
+    link = report_dir(cfg, n) / "store.png"
     link.symlink_to(cfg.store_path)
     try:
         assert request(server, "GET", "/store.png")[0] == 403
@@ -432,7 +433,7 @@ def test_handler_threads_are_bounded_and_the_next_request_gets_503_then_200(quic
 
 def test_client_that_stops_reading_an_answer_is_cut_off(quick, night):
     cfg, n, _ = night
-    big = report.report_dir(cfg, n) / "big.png"
+    big = report_dir(cfg, n) / "big.png"
     big.write_bytes(b"\x89PNG" + bytes(32 * 1024 * 1024))     # more than any socket buffer holds
     quick.write_timeout_s = 0.5
     s = socket.socket()

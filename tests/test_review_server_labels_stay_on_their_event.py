@@ -4,8 +4,8 @@ the store."""
 
 import json
 
-from rxlog import report
-from rxlog.review_server import ReviewServer
+from rxlog.review.report import build_report
+from rxlog.review.server import ReviewServer
 from rxlog.store import EventStore
 from rxlog.timeutil import parse_iso
 from test_report_night import _event, make_night
@@ -20,7 +20,7 @@ def test_page_label_on_a_nested_event_stays_there(tmp_path):
     store = EventStore(cfg.store_path)
     store.upsert_events([small, big])
     store.close()
-    report.build_report(cfg, night)
+    build_report(cfg, night)
     srv = ReviewServer(cfg, night, port=0)
     srv.start_background()
     try:

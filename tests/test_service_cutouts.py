@@ -5,10 +5,10 @@ from types import SimpleNamespace
 
 import numpy as np
 
-from rxlog import report
 from rxlog.archive import read_spectrum_fits
 from rxlog.channelizer import Ring
 from rxlog.config import load_config
+from rxlog.review.cutouts import cutout_file
 from rxlog.spectrum import channel_grid
 from rxlog.station.cutouts import cutout_relpath, prune_cutouts, save_cutout
 from rxlog.station.supervise import Logger
@@ -40,7 +40,7 @@ def test_cutout_covers_the_event_with_margins_and_reads_back(tmp_path):
     cfg = load_config(write_config(tmp_path))
     ev = save_cutout(cfg, _event(), _ring())
     assert ev["cutout_path"] == str(cutout_relpath(ev)) and not ev["cutout_path"].startswith("/")
-    path = report.cutout_file(cfg, ev)          # where the morning report looks for it
+    path = cutout_file(cfg, ev)          # where the morning report looks for it
     assert path == cfg.storage_root / ev["cutout_path"] and path.is_file()
     cut = read_spectrum_fits(path)
     assert abs(cut.cadence_s - ROW_S) < 1e-9

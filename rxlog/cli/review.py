@@ -59,8 +59,10 @@ def review(cfg, night, serve, port, host, allow_remote, access_token):
       rxlog review --config station.toml
       rxlog review --config station.toml --night 2027-02-03 --serve --port 8765
     """
-    from rxlog.report import build_report, default_night, parse_night
-    from rxlog.review_server import check_bind, serve_review
+    from rxlog.review.data import default_night
+    from rxlog.review.night import parse_night
+    from rxlog.review.report import build_report
+    from rxlog.review.server import check_bind, serve_review
 
     if serve:
         check_bind(host, allow_remote, access_token)      # before the minute of work, not after
@@ -88,7 +90,7 @@ def events(cfg, night, cls, unlabelled):
     Example:
       rxlog events --config station.toml --night 2027-02-03 --class jovian_l --unlabelled
     """
-    from rxlog.report import event_table
+    from rxlog.review.listing import event_table
 
     click.echo(event_table(cfg, night=night, cls=cls, unlabelled=unlabelled))
 

@@ -58,6 +58,15 @@ def _in_range(x: np.ndarray, lo: float, hi: float) -> np.ndarray:
     return (x >= lo) | (x <= hi)
 
 
+def wrapped_spans(lo: float, hi: float) -> list[tuple[float, float]]:
+    """A degree range on a 0..360 axis as one or two spans that do not wrap: a start above
+    the end wraps through 0° into two (330..30 -> 330..360 and 0..30); 360° or more is the
+    whole circle."""
+    if hi - lo >= 360.0:
+        return [(0.0, 360.0)]
+    return [(lo, hi)] if lo <= hi else [(lo, 360.0), (0.0, hi)]
+
+
 def _range_problem(value, what: str, allow_any: bool) -> str | None:
     if allow_any and value == "any":
         return None

@@ -45,6 +45,13 @@ CLASS_NAMES = {
     "solar_iii": "Solar type III", "solar_ii": "Solar type II", "solar_iv": "Solar type IV",
     "fadeout": "Short-wave fadeout", "rfi": "Interference", "unknown": "Real, unclassified",
 }
+# ... and of every label a reviewer can give: the classes, nothing there, not sure.
+LABEL_NAMES = {**CLASS_NAMES, "noise": "Nothing there", "unsure": "Not sure"}
+
+# Colours of what is not a class (bands, light curves, region boxes, the selection):
+# greys and ink, so that a palette colour always means a class.
+INK = "#1d2327"
+BAND_GREY = "#6b757d"
 
 # A class-coloured line is drawn over a light halo over a dark edge: the halo shows it on
 # a dark background (viridis' deep purple), the edge on a light one (viridis' yellow, a
