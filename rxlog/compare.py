@@ -37,6 +37,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rxlog.boxes import overlap, overlap_pairs
 from rxlog.constants import MAD_TO_SIGMA
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
@@ -289,32 +290,6 @@ def _member_sigma(E: _Events, idx, cls):
 
 # -- candidates and matching ---------------------------------------------------------------
 
-def _expand(lo, hi):
-    """For ranges [lo_i, hi_i): (i repeated, positions) covering every element of every range."""
-    cnt = np.maximum(hi - lo, 0)
-    total = int(cnt.sum())
-    idx = np.repeat(np.arange(len(lo)), cnt)
-    first = np.cumsum(cnt) - cnt
-    pos = np.arange(total) - np.repeat(first, cnt) + np.repeat(lo, cnt)
-    return idx, pos
-
-
-def overlap_pairs(a0, a1, b0, b1):
-    """Index pairs (i, j) whose closed intervals [a0_i, a1_i] and [b0_j, b1_j] overlap.
-
-    Interval sweep with sorted starts: either b_j starts inside a_i, or a_i starts
-    inside b_j (strictly after b_j's start, so no pair is found twice). Output-sensitive:
-    O((n + m) log(n + m) + pairs).
-    """
-    ob = np.argsort(b0, kind="stable")
-    b0s = b0[ob]
-    i1, p1 = _expand(np.searchsorted(b0s, a0, "left"), np.searchsorted(b0s, a1, "right"))
-    oa = np.argsort(a0, kind="stable")
-    a0s = a0[oa]
-    j2, p2 = _expand(np.searchsorted(a0s, b0, "right"), np.searchsorted(a0s, b1, "right"))
-    return np.concatenate([i1, oa[p2]]), np.concatenate([ob[p1], j2])
-
-
 MAX_CANDIDATES = 20_000_000
 
 
@@ -329,17 +304,17 @@ def _candidates(E: _Events, n_st: int, window_s: float):
             i, j = overlap_pairs(E.start[ia_all] - window_s, E.end[ia_all] + window_s,
                                  E.start[ib_all], E.end[ib_all])
             ia, ib = ia_all[i], ib_all[j]
-            f_lo = np.maximum(E.fmin[ia], E.fmin[ib])
+            f_ov = overlap(E.fmin[ia], E.fmax[ia], E.fmin[ib], E.fmax[ib])
             f_hi = np.minimum(E.fmax[ia], E.fmax[ib])
             rfi = CLS["rfi"]
-            ok = (f_hi >= f_lo) & ((E.cls[ia] == rfi) == (E.cls[ib] == rfi))
-            ia, ib, f_lo, f_hi = ia[ok], ib[ok], f_lo[ok], f_hi[ok]
+            ok = (f_ov >= 0) & ((E.cls[ia] == rfi) == (E.cls[ib] == rfi))
+            ia, ib, f_ov, f_hi = ia[ok], ib[ok], f_ov[ok], f_hi[ok]
             total += len(ia)
             if total > MAX_CANDIDATES:
                 raise RxlogError(f"more than {MAX_CANDIDATES} overlapping event pairs within {window_s:g} s; "
                                  "use a smaller --window or shorter lists")
             narrow = np.maximum(np.minimum(E.fmax[ia] - E.fmin[ia], E.fmax[ib] - E.fmin[ib]), 0.01)
-            freq_frac = np.clip((f_hi - f_lo) / narrow, 0.0, 1.0)
+            freq_frac = np.clip(f_ov / narrow, 0.0, 1.0)
             # Pair class: the better clock of the two when they differ.
             cls = np.where(SIGMA[E.cls[ia]] <= SIGMA[E.cls[ib]], E.cls[ia], E.cls[ib])
             dt = _clock_time(E, ib, cls, f_hi) - _clock_time(E, ia, cls, f_hi)
