@@ -41,7 +41,7 @@ from rxlog.boxes import overlap, overlap_pairs
 from rxlog.constants import MAD_TO_SIGMA
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
-from rxlog.exchange import EventList, read_event_list
+from rxlog.exchange.importer import EventList, read_event_list
 from rxlog.store import CLASSES
 from rxlog.timeutil import parse_iso
 

@@ -8,7 +8,7 @@ from hypothesis import strategies as st
 
 from rxlog.boxes import overlap_pairs
 from rxlog.compare import compare_stations
-from rxlog.exchange import EventList
+from rxlog.exchange.importer import EventList
 
 from exchange_helpers import T0, event, list_header, sky, station_list
 

@@ -10,7 +10,7 @@ import pytest
 
 from rxlog.compare import compare_stations
 from rxlog.errors import RxlogError
-from rxlog.exchange import write_event_list
+from rxlog.exchange.export import write_event_list
 
 from exchange_helpers import list_header, sky, station_list
 

@@ -14,7 +14,7 @@ from PIL import Image
 
 from rxlog import palette, report
 from rxlog.compare import compare_stations
-from rxlog.exchange import export_events
+from rxlog.exchange.export import export_events
 from rxlog.store import CLASSES, EventStore
 from rxlog.timeutil import parse_iso
 from test_report_night import NIGHT, TZ, _event, make_night, station_config
