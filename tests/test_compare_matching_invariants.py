@@ -7,7 +7,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rxlog.boxes import overlap_pairs
-from rxlog.compare import compare_stations
+from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.importer import EventList
 
 from exchange_helpers import T0, event, list_header, sky, station_list

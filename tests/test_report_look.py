@@ -13,7 +13,7 @@ from matplotlib.colors import to_hex
 from PIL import Image
 
 from rxlog import palette, report
-from rxlog.compare import compare_stations
+from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.export import export_events
 from rxlog.store import CLASSES, EventStore
 from rxlog.timeutil import parse_iso

@@ -7,8 +7,8 @@ import stat
 
 import pytest
 
-from rxlog.compare import compare_stations
 from rxlog.errors import RxlogError
+from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.export import export_events, write_event_list
 from rxlog.exchange.voevent import write_voevents
 from rxlog.fileio import write_atomic

@@ -85,7 +85,7 @@ def compare_cmd(files, window_s, outdir, spectra):
       rxlog compare birchwater.csv kestrel-ridge.json saltmarsh-point.vot --out compare/
       rxlog compare a.csv b.csv --window 5 --spectra a=a-fits/ --spectra b=b-fits/
     """
-    from rxlog.compare import compare_stations
+    from rxlog.exchange.compare import compare_stations
 
     def progress(stage: str):
         click.echo(f"  {stage}", err=True)
