@@ -15,8 +15,9 @@ from pathlib import Path
 
 import numpy as np
 
-from rxlog.compare import compare_stations
-from rxlog.exchange import FORMAT_NAME, FORMAT_VERSION, write_event_list
+from rxlog.exchange.columns import FORMAT_NAME, FORMAT_VERSION
+from rxlog.exchange.compare import compare_stations
+from rxlog.exchange.export import write_event_list
 from rxlog.timeutil import iso
 
 N_STATIONS = 5

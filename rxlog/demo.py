@@ -170,8 +170,9 @@ def detect_quietly(cfg, label: str) -> dict:
 
 def run_demo(out: str | Path, echo=click.echo) -> dict:
     """Run the demo under ``out``; return the paths it wrote (also printed through ``echo``)."""
-    from rxlog.compare import compare_stations
-    from rxlog.exchange import export_events, write_voevents
+    from rxlog.exchange.compare import compare_stations
+    from rxlog.exchange.export import export_events
+    from rxlog.exchange.voevent import write_voevents
     from rxlog.forecast import make_forecast
     from rxlog.review.report import build_report
     from rxlog.sim.truth import write_truth_csv

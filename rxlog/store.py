@@ -21,6 +21,7 @@ from pathlib import Path
 
 import sqlite_utils
 
+from rxlog import boxes
 from rxlog.errors import RxlogError
 from rxlog.timeutil import iso, parse_iso
 
@@ -358,14 +359,7 @@ def _box(row: dict) -> tuple[float, float, float, float]:
 
 def box_iou(a: dict, b: dict) -> float:
     """Intersection over union of two rows' time-frequency boxes (0..1)."""
-    a0, a1, af0, af1 = _box(a)
-    b0, b1, bf0, bf1 = _box(b)
-    dt = min(a1, b1) - max(a0, b0)
-    df = min(af1, bf1) - max(af0, bf0)
-    if dt <= 0 or df <= 0:
-        return 0.0
-    inter = dt * df
-    return inter / ((a1 - a0) * (af1 - af0) + (b1 - b0) * (bf1 - bf0) - inter)
+    return boxes.box_iou(_box(a), _box(b))
 
 
 def reattach_orphans(db: sqlite_utils.Database, station: str | None = None) -> list[tuple[int, str, str]]:

@@ -6,7 +6,7 @@ Alvarez & Haddock (1973) drift law; events are timed only to the 1-s archive row
 import numpy as np
 import pytest
 
-from rxlog.compare import compare_stations
+from rxlog.exchange.compare import compare_stations
 
 from exchange_helpers import T0, type3_events, type3_spectrum
 

@@ -6,8 +6,9 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rxlog.compare import compare_stations, overlap_pairs
-from rxlog.exchange import EventList
+from rxlog.boxes import overlap_pairs
+from rxlog.exchange.compare import compare_stations
+from rxlog.exchange.importer import EventList
 
 from exchange_helpers import T0, event, list_header, sky, station_list
 

@@ -8,9 +8,9 @@ import csv
 import numpy as np
 import pytest
 
-from rxlog.compare import compare_stations
 from rxlog.errors import RxlogError
-from rxlog.exchange import write_event_list
+from rxlog.exchange.compare import compare_stations
+from rxlog.exchange.export import write_event_list
 
 from exchange_helpers import list_header, sky, station_list
 

@@ -11,7 +11,9 @@ from astropy.io import votable
 from astropy.io.votable.ucd import check_ucd
 from astropy.table import Table
 
-from rxlog.exchange import COLUMNS, FORMAT_VERSION, HEADER, read_event_list, write_event_list
+from rxlog.exchange.columns import COLUMNS, FORMAT_VERSION, HEADER
+from rxlog.exchange.export import write_event_list
+from rxlog.exchange.importer import read_event_list
 from rxlog.store import make_event_id
 from rxlog.timeutil import iso
 

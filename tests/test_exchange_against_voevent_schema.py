@@ -6,7 +6,7 @@ from pathlib import Path
 import pytest
 
 from rxlog.errors import RxlogError
-from rxlog.exchange import write_voevents
+from rxlog.exchange.voevent import write_voevents
 from rxlog.store import EventStore
 
 from exchange_helpers import T0, event, station_config

@@ -5,7 +5,7 @@ import numpy as np
 from click.testing import CliRunner
 
 from rxlog.cli import main
-from rxlog.exchange import write_event_list
+from rxlog.exchange.export import write_event_list
 from rxlog.store import EventStore
 
 from exchange_helpers import T0, event, list_header, sky, station_config, station_list

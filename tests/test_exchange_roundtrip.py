@@ -8,7 +8,9 @@ import pytest
 
 from rxlog import __version__
 from rxlog.errors import RxlogError
-from rxlog.exchange import COLUMN_NAMES, FORMAT_VERSION, FORMATS, SUFFIX, export_events, read_event_list
+from rxlog.exchange.columns import COLUMN_NAMES, FORMAT_VERSION, FORMATS, SUFFIX
+from rxlog.exchange.export import export_events
+from rxlog.exchange.importer import read_event_list
 from rxlog.store import EventStore
 from rxlog.timeutil import iso
 

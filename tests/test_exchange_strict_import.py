@@ -13,7 +13,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from rxlog.errors import RxlogError
-from rxlog.exchange import COLUMN_NAMES, read_event_list, write_event_list
+from rxlog.exchange.columns import COLUMN_NAMES
+from rxlog.exchange.export import write_event_list
+from rxlog.exchange.importer import read_event_list
 
 from exchange_helpers import T0, event, list_header
 

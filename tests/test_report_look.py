@@ -12,8 +12,8 @@ import pytest
 from matplotlib.colors import to_hex
 from PIL import Image
 
-from rxlog.compare import compare_stations
-from rxlog.exchange import export_events
+from rxlog.exchange.compare import compare_stations
+from rxlog.exchange.export import export_events
 from rxlog.review import palette
 from rxlog.review.data import ZOOM_LENGTHS_S, read_night, zoom_window
 from rxlog.review.listing import event_table

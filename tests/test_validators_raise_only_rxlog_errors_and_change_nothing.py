@@ -27,7 +27,8 @@ from rxlog.archive import ingest_fits, read_spectrum_fits
 from rxlog.channelizer import Channelizer, ingest_recording
 from rxlog.config import SCHEMA, ConfigError, load_config
 from rxlog.errors import RxlogError
-from rxlog.exchange import COLUMN_NAMES, HEADER, read_event_list
+from rxlog.exchange.columns import COLUMN_NAMES, HEADER
+from rxlog.exchange.importer import read_event_list
 from rxlog.sweep import SweepPlan
 from rxlog.timeutil import parse_iso
 

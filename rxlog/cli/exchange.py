@@ -32,7 +32,9 @@ def export_cmd(cfg, fmt, out, start, end, include_rfi, labelled_only, voevent_di
       rxlog export --config station.toml --format votable --labelled-only --out labelled.vot
       rxlog export --config station.toml --voevent notices/ birchwater-20270203T141502.0-20.000
     """
-    from rxlog.exchange import SUFFIX, export_events, write_voevents
+    from rxlog.exchange.columns import SUFFIX
+    from rxlog.exchange.export import export_events
+    from rxlog.exchange.voevent import write_voevents
 
     if voevent_dir is not None:
         if not event_ids:
@@ -83,7 +85,7 @@ def compare_cmd(files, window_s, outdir, spectra):
       rxlog compare birchwater.csv kestrel-ridge.json saltmarsh-point.vot --out compare/
       rxlog compare a.csv b.csv --window 5 --spectra a=a-fits/ --spectra b=b-fits/
     """
-    from rxlog.compare import compare_stations
+    from rxlog.exchange.compare import compare_stations
 
     def progress(stage: str):
         click.echo(f"  {stage}", err=True)

@@ -1,22 +1,10 @@
-"""Event lists for partner stations: export in open formats, strict and safe import.
+"""Event lists from partner stations, read strictly and safely (CSV, JSON or VOTable).
 
-An event list is one station's events plus a header that travels with them: station
-name and position, antenna and receiver, clock-sync state, band and cadence, the rxlog
-version and the ``format_version`` of this layout. Three encodings carry the same
-content:
-
-- CSV (RFC 4180) with ISO 8601 UTC times: header lines ``# key: value`` before the
-  column row;
-- JSON (RFC 8259): ``{"header": {...}, "events": [{...}, ...]}``;
-- VOTable 1.4 (IVOA), written with astropy.io.votable: station metadata as PARAMs,
-  format and provenance as INFOs, one FIELD per column with unit and UCD.
-
-Single notable events also go out as IVOA VOEvent 2.0 notices.
-
-Imports take files from anyone, so they are strict and safe: nothing is evaluated or
-unpickled, XML with a DOCTYPE or entity declarations is refused before any XML library
-sees it, each bad row is reported with file and line and skipped, and a file with
-nothing usable left is refused with an ``RxlogError``.
+Imports take files from anyone: nothing is evaluated or unpickled, XML with a DOCTYPE
+or entity declarations is refused (by defusedxml) before astropy's VOTable parser sees
+it, each bad row is reported with file and line and skipped, and a file with nothing
+usable left is refused with an ``RxlogError``. The layout read is
+rxlog.exchange.columns, in any ``format_version`` up to this rxlog's.
 """
 
 from __future__ import annotations
@@ -27,7 +15,7 @@ import io
 import json
 import math
 import re
-import time
+import warnings
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -36,67 +24,11 @@ import defusedxml
 import defusedxml.ElementTree as defused_et
 import numpy as np
 
-from rxlog import __version__, validate
+from rxlog import validate
 from rxlog.errors import RxlogError
-from rxlog.fileio import write_atomic
-from rxlog.store import CLASSES, LABELS, EventStore
+from rxlog.exchange.columns import FORMAT_VERSION, HEADER, KIND, REQUIRED
+from rxlog.store import CLASSES, LABELS
 from rxlog.timeutil import iso, parse_iso
-
-# Version of the export layout (columns, header keys, encodings). Readers accept every
-# version up to this one; a file from a newer rxlog is read for the columns this
-# version knows, with a notice.
-FORMAT_VERSION = 1
-FORMAT_NAME = "rxlog event list"
-
-FORMATS = ("csv", "json", "votable")
-SUFFIX = {"csv": ".csv", "json": ".json", "votable": ".vot"}
-
-# (name, kind, unit, UCD (IVOA UCD1+ words), description). The order is the column order.
-COLUMNS = (
-    ("station", "str", "", "meta.id;instr.obsty", "Station that recorded the event"),
-    ("event_id", "str", "", "meta.id;meta.main", "Event id, unique within the station"),
-    ("start_utc", "time", "", "time.start", "Start of the event, ISO 8601 UTC"),
-    ("end_utc", "time", "", "time.end", "End of the event, ISO 8601 UTC"),
-    ("peak_utc", "time", "", "time.epoch", "Time of the peak, ISO 8601 UTC"),
-    ("fmin_mhz", "float", "MHz", "em.freq;stat.min", "Lowest frequency of the event"),
-    ("fmax_mhz", "float", "MHz", "em.freq;stat.max", "Highest frequency of the event"),
-    ("peak_excess_db", "float", "dB", "phot.flux.density;arith.ratio", "Peak power above the background"),
-    ("snr", "float", "", "stat.snr", "Signal-to-noise ratio of the detection"),
-    ("drift_mhz_s", "float", "MHz/s", "arith.rate;em.freq", "Frequency drift rate (negative: downward)"),
-    ("class", "str", "", "src.class", "Detector class: " + ", ".join(CLASSES)),
-    ("confidence", "float", "", "stat.probability", "Detector confidence in the class, 0-1"),
-    ("label", "str", "", "meta.code.class", "Reviewer's label, if any: " + ", ".join(LABELS)),
-    ("cml3_deg", "float", "deg", "pos.bodyrc.lon", "Jupiter central meridian longitude, System III (1965), at the peak"),
-    ("io_phase_deg", "float", "deg", "time.phase", "Geocentric Io phase at the peak"),
-    ("source_region", "str", "", "meta.code", "Jovian source region (Io-A, Io-B, ...), if any"),
-    ("jupiter_alt_deg", "float", "deg", "pos.az.alt", "Jupiter's altitude at the station at the peak"),
-    ("sun_alt_deg", "float", "deg", "pos.az.alt", "The Sun's altitude at the station at the peak"),
-)
-COLUMN_NAMES = tuple(c[0] for c in COLUMNS)
-KIND = {c[0]: c[1] for c in COLUMNS}
-REQUIRED = ("event_id", "start_utc", "end_utc", "peak_utc", "fmin_mhz", "fmax_mhz", "class")
-
-# Header keys: name -> (kind, unit, UCD, description).
-HEADER = {
-    "format": ("str", "", "meta.code", "Always 'rxlog event list'"),
-    "format_version": ("int", "", "meta.version", "Version of this export layout"),
-    "rxlog_version": ("str", "", "meta.version", "rxlog version that wrote the file"),
-    "exported_utc": ("time", "", "time.creation", "When the file was written, ISO 8601 UTC"),
-    "station": ("str", "", "meta.id;instr.obsty", "Station name"),
-    "latitude_deg": ("float", "deg", "pos.earth.lat", "Geodetic latitude, north"),
-    "longitude_deg": ("float", "deg", "pos.earth.lon", "Longitude, east"),
-    "elevation_m": ("float", "m", "pos.earth.altitude", "Height above the WGS84 ellipsoid"),
-    "antenna": ("str", "", "instr.setup", "Antenna, free text"),
-    "receiver": ("str", "", "instr.setup", "Receiver kind"),
-    "clock_sync": ("str", "", "meta.code.status", "Clock synchronisation state at export time"),
-    "band_fmin_mhz": ("float", "MHz", "em.freq;stat.min", "Lower edge of the recorded band"),
-    "band_fmax_mhz": ("float", "MHz", "em.freq;stat.max", "Upper edge of the recorded band"),
-    "channels": ("int", "", "meta.number", "Channels across the band"),
-    "cadence_s": ("float", "s", "time.interval", "Seconds between spectra"),
-    "period_start_utc": ("time", "", "time.start", "Start of the exported period (empty: from the first event)"),
-    "period_end_utc": ("time", "", "time.end", "End of the exported period (empty: to the last event)"),
-    "n_events": ("int", "", "meta.number", "Number of events in the file"),
-}
 
 STATION_NAME = re.compile(r"[A-Za-z0-9_-]{1,40}")
 # Times as rxlog writes them (rxlog.timeutil.iso); others are rewritten in this form.
@@ -133,299 +65,6 @@ MAX_FILE_BYTES = 256 * 1024 * 1024
 MAX_LINE_CHARS = 64 * 1024
 MAX_ROW_NOTICES = 20  # problem rows reported one by one per file; the rest are counted
 
-
-# -- writing -------------------------------------------------------------------------------
-
-def station_header(cfg, clock_sync: str = "unknown", n_events: int = 0,
-                   t0: float | None = None, t1: float | None = None) -> dict:
-    """The header of an event list for the station of ``cfg``."""
-    st, sp = cfg["station"], cfg["spectra"]
-    return {
-        "format": FORMAT_NAME,
-        "format_version": FORMAT_VERSION,
-        "rxlog_version": __version__,
-        "exported_utc": iso(time.time()),
-        "station": st["name"],
-        "latitude_deg": float(st["latitude_deg"]),
-        "longitude_deg": float(st["longitude_deg"]),
-        "elevation_m": float(st["elevation_m"]),
-        "antenna": st.get("antenna", ""),
-        "receiver": cfg["receiver"]["kind"],
-        "clock_sync": clock_sync or "unknown",
-        "band_fmin_mhz": float(sp["fmin_mhz"]),
-        "band_fmax_mhz": float(sp["fmax_mhz"]),
-        "channels": int(sp["channels"]),
-        "cadence_s": float(sp["cadence_s"]),
-        "period_start_utc": iso(t0) if t0 is not None else None,
-        "period_end_utc": iso(t1) if t1 is not None else None,
-        "n_events": int(n_events),
-    }
-
-
-def export_events(cfg, path, fmt: str, t0: float | None = None, t1: float | None = None,
-                  include_rfi: bool = False, labelled_only: bool = False) -> int:
-    """Write this station's events peaking in [t0, t1) to ``path`` as csv, json or votable.
-
-    Returns the number of events written. The file is replaced atomically.
-    """
-    if fmt not in FORMATS:
-        raise RxlogError(f"unknown export format {fmt!r}; expected one of {', '.join(FORMATS)}")
-    if not Path(cfg.store_path).exists():
-        raise RxlogError(f"{cfg.store_path}: no event store yet; run the logger (or the demo) first")
-    store = EventStore(cfg.store_path)
-    try:
-        events = store.events(t0=t0, t1=t1, include_rfi=include_rfi, labelled_only=labelled_only,
-                              station=cfg["station"]["name"])
-        health = store.latest_health(cfg["station"]["name"]) or store.latest_health()
-    finally:
-        store.close()
-    clock = (health or {}).get("clock_sync") or "unknown"
-    header = station_header(cfg, clock_sync=clock, n_events=len(events), t0=t0, t1=t1)
-    write_event_list(path, fmt, header, events)
-    return len(events)
-
-
-def write_event_list(path, fmt: str, header: dict, events: list[dict]) -> Path:
-    """Write ``events`` (dicts with the event store's field names) with ``header`` to ``path``."""
-    if fmt not in FORMATS:
-        raise RxlogError(f"unknown export format {fmt!r}; expected one of {', '.join(FORMATS)}")
-    header = dict(header, n_events=len(events))
-    rows = [_export_row(e) for e in events]
-    if fmt == "csv":
-        data = _csv_bytes(header, rows)
-    elif fmt == "json":
-        data = _json_bytes(header, rows)
-    else:
-        data = _votable_bytes(header, rows)
-    return write_atomic(Path(path), data)
-
-
-def _export_row(ev: dict) -> dict:
-    row = {}
-    for name in COLUMN_NAMES:
-        v = ev.get(name)
-        if KIND[name] == "float":
-            v = None if v is None or not math.isfinite(float(v)) else float(v)
-        elif KIND[name] == "time":
-            v = None if v in (None, "") else iso(parse_iso(v) if isinstance(v, str) else float(v))
-        else:
-            v = None if v in (None, "") else _one_line(str(v))
-        row[name] = v
-    return row
-
-
-def _one_line(text: str) -> str:
-    return " ".join(str(text).split())
-
-
-def _text(v) -> str:
-    """A header or cell value as text: floats in their shortest exact form."""
-    if v is None:
-        return ""
-    if isinstance(v, float):
-        return repr(v)
-    return _one_line(str(v))
-
-
-def _csv_bytes(header: dict, rows: list[dict]) -> bytes:
-    out = io.StringIO(newline="")
-    out.write(f"# {FORMAT_NAME}: one station's events; times ISO 8601 UTC, frequencies MHz\n")
-    for key in HEADER:
-        out.write(f"# {key}: {_text(header.get(key))}\n")
-    w = csv.writer(out, lineterminator="\n")
-    w.writerow(COLUMN_NAMES)
-    for r in rows:
-        w.writerow([_text(r[c]) for c in COLUMN_NAMES])
-    return out.getvalue().encode("utf-8")
-
-
-def _json_bytes(header: dict, rows: list[dict]) -> bytes:
-    doc = {"header": {k: header.get(k) for k in HEADER}, "events": rows}
-    return (json.dumps(doc, indent=1, allow_nan=False, ensure_ascii=False) + "\n").encode("utf-8")
-
-
-def _votable_bytes(header: dict, rows: list[dict]) -> bytes:
-    from astropy.io.votable.tree import Field, Info, Param, Resource, TableElement, VOTableFile
-
-    vo = VOTableFile(version="1.4")
-    res = Resource()
-    vo.resources.append(res)
-    res.infos.append(Info(name="format", value=FORMAT_NAME))
-    res.infos.append(Info(name="format_version", value=str(FORMAT_VERSION)))
-    res.infos.append(Info(name="rxlog_version", value=str(header.get("rxlog_version") or __version__)))
-    res.infos.append(Info(name="time_scale", value="UTC"))
-    table = TableElement(vo, name="events")
-    table.description = f"{FORMAT_NAME} of station {header.get('station')}"
-    res.tables.append(table)
-    for key, (kind, unit, ucd, desc) in HEADER.items():
-        if key in ("format", "format_version", "rxlog_version"):
-            continue
-        value = header.get(key)
-        kw = {"datatype": {"float": "double", "int": "long"}.get(kind, "char")}
-        if kw["datatype"] == "char":
-            kw["arraysize"] = "*"
-            value = _text(value)
-        elif value is None:
-            value = "NaN" if kind == "float" else None
-            if value is None:
-                continue
-        p = Param(vo, name=key, ID=f"h_{key}", ucd=ucd, unit=unit or None, value=value, **kw)
-        p.description = desc
-        table.params.append(p)
-    for name, kind, unit, ucd, desc in COLUMNS:
-        kw = {"datatype": "double"} if kind == "float" else {"datatype": "char", "arraysize": "*"}
-        if kind == "time":
-            kw["xtype"] = "timestamp"  # DALI 1.1 ISO 8601 timestamp
-        f = Field(vo, name=name, ID=name, ucd=ucd, unit=unit or None, **kw)
-        f.description = desc
-        table.fields.append(f)
-    table.create_arrays(len(rows))
-    for name in COLUMN_NAMES:
-        if KIND[name] == "float":
-            table.array[name] = np.array([np.nan if r[name] is None else r[name] for r in rows], dtype=float)
-        else:
-            col = np.empty(len(rows), dtype=object)
-            col[:] = [r[name] or "" for r in rows]
-            table.array[name] = col
-    buf = io.BytesIO()
-    vo.to_xml(buf)
-    return buf.getvalue()
-
-
-# -- VOEvent 2.0 notices ------------------------------------------------------------------
-
-VOEVENT_NS = "http://www.ivoa.net/xml/VOEvent/v2.0"
-XSI_NS = "http://www.w3.org/2001/XMLSchema-instance"
-SOURCE = {"jovian_l": "Jupiter", "jovian_s": "Jupiter", "solar_iii": "Sun", "solar_ii": "Sun",
-          "solar_iv": "Sun", "fadeout": "Sun"}
-CONCEPT = {"jovian_l": "Jovian decametric emission, L-bursts", "jovian_s": "Jovian decametric emission, S-bursts",
-           "solar_iii": "Solar radio burst, type III", "solar_ii": "Solar radio burst, type II",
-           "solar_iv": "Solar radio burst, type IV continuum", "fadeout": "Short-wave fadeout",
-           "unknown": "Unclassified radio burst", "rfi": "Radio-frequency interference"}
-
-
-def write_voevents(cfg, outdir, event_ids: list[str]) -> list[Path]:
-    """Write one IVOA VOEvent 2.0 notice per event id to ``outdir``/<event_id>.xml.
-
-    Every id is looked up before anything is written; an unknown id writes nothing.
-    """
-    if not event_ids:
-        raise RxlogError("no event ids given; expected one or more ids from the event list")
-    if not Path(cfg.store_path).exists():
-        raise RxlogError(f"{cfg.store_path}: no event store yet; run the logger (or the demo) first")
-    store = EventStore(cfg.store_path)
-    try:
-        events = [store.get_event(eid) for eid in event_ids]
-        health = store.latest_health(cfg["station"]["name"]) or store.latest_health()
-    finally:
-        store.close()
-    header = station_header(cfg, clock_sync=(health or {}).get("clock_sync") or "unknown",
-                            n_events=len(events))
-    header["operator_contact"] = cfg["station"].get("operator_contact", "")
-    out = Path(outdir)
-    return [write_atomic(out / (_safe_name(ev["event_id"]) + ".xml"), voevent_bytes(header, ev))
-            for ev in events]
-
-
-def _safe_name(text: str) -> str:
-    return re.sub(r"[^A-Za-z0-9_.-]", "_", text)[:120]
-
-
-def _voe_time(t_iso: str) -> str:
-    # VOEvent 2.0 gives the time scale in the coordinate system (UTC-...), so ISOTime
-    # carries no zone designator (IVOA VOEvent 2.0, section 3.3; from memory).
-    return iso(parse_iso(t_iso))[:-1]
-
-
-def voevent_bytes(header: dict, ev: dict) -> bytes:
-    """One event as a VOEvent 2.0 notice (IVOA Recommendation 2011-07-11)."""
-    ET.register_namespace("voe", VOEVENT_NS)
-    ET.register_namespace("xsi", XSI_NS)
-    station = header["station"]
-    root = ET.Element(f"{{{VOEVENT_NS}}}VOEvent", {
-        "version": "2.0", "role": "observation",
-        # rxlog stations have no registered IVOA authority; the id is ours, unregistered.
-        "ivorn": f"ivo://rxlog/{_safe_name(station)}#{_safe_name(ev['event_id'])}",
-        f"{{{XSI_NS}}}schemaLocation": f"{VOEVENT_NS} http://www.ivoa.net/xml/VOEvent/VOEvent-v2.0.xsd",
-    })
-    who = ET.SubElement(root, "Who")
-    ET.SubElement(who, "AuthorIVORN").text = f"ivo://rxlog/{_safe_name(station)}"
-    ET.SubElement(who, "Date").text = _voe_time(iso(time.time()))
-    author = ET.SubElement(who, "Author")
-    ET.SubElement(author, "shortName").text = station
-    if header.get("operator_contact"):
-        ET.SubElement(author, "contactName").text = _one_line(header["operator_contact"])
-
-    what = ET.SubElement(root, "What")
-    row = _export_row(ev)
-    for name, kind, unit, ucd, desc in COLUMNS:
-        if name == "station" or row[name] is None:
-            continue
-        attrs = {"name": name, "ucd": ucd, "value": _text(row[name]),
-                 "dataType": "float" if kind == "float" else "string"}
-        if unit:
-            attrs["unit"] = unit
-        p = ET.SubElement(what, "Param", attrs)
-        ET.SubElement(p, "Description").text = desc
-    group = ET.SubElement(what, "Group", {"name": "station"})
-    for key in ("station", "latitude_deg", "longitude_deg", "elevation_m", "antenna", "receiver",
-                "clock_sync", "band_fmin_mhz", "band_fmax_mhz", "cadence_s"):
-        kind, unit, ucd, _ = HEADER[key]
-        attrs = {"name": key, "ucd": ucd, "value": _text(header.get(key)),
-                 "dataType": {"float": "float", "int": "int"}.get(kind, "string")}
-        if unit:
-            attrs["unit"] = unit
-        ET.SubElement(group, "Param", attrs)
-
-    ww = ET.SubElement(root, "WhereWhen")
-    odl = ET.SubElement(ww, "ObsDataLocation")
-    obs = ET.SubElement(odl, "ObservatoryLocation", {"id": station})
-    ET.SubElement(obs, "AstroCoordSystem", {"id": "UTC-GEOD-TOPO"})
-    coords = ET.SubElement(obs, "AstroCoords", {"coord_system_id": "UTC-GEOD-TOPO"})
-    # Geodetic position: longitude, latitude in degrees, height in metres (VOEvent 2.0
-    # observatory location, unit "deg-deg-m"; from memory).
-    p3 = ET.SubElement(coords, "Position3D", {"unit": "deg-deg-m"})
-    for tag, text in (("Name1", "longitude"), ("Name2", "latitude"), ("Name3", "elevation")):
-        ET.SubElement(p3, tag).text = text
-    v3 = ET.SubElement(p3, "Value3")
-    for tag, key in (("C1", "longitude_deg"), ("C2", "latitude_deg"), ("C3", "elevation_m")):
-        ET.SubElement(v3, tag).text = _text(float(header.get(key) or 0.0))
-    # The observation itself: a time in UTC, topocentric (no sky position is given, as
-    # the source is the Sun or Jupiter, named under Why).
-    loc = ET.SubElement(odl, "ObservationLocation")
-    ET.SubElement(loc, "AstroCoordSystem", {"id": "UTC-ICRS-TOPO"})
-    c2 = ET.SubElement(loc, "AstroCoords", {"coord_system_id": "UTC-ICRS-TOPO"})
-    tm = ET.SubElement(c2, "Time", {"unit": "s"})
-    ti = ET.SubElement(tm, "TimeInstant")
-    ET.SubElement(ti, "ISOTime").text = _voe_time(row["peak_utc"])
-    cadence = header.get("cadence_s")
-    if cadence:
-        ET.SubElement(tm, "Error").text = _text(float(cadence))
-    ET.SubElement(ww, "Description").text = (
-        f"Peak time at station {station}, by its own clock (clock sync: {header.get('clock_sync')}).")
-
-    how = ET.SubElement(root, "How")
-    ET.SubElement(how, "Description").text = _one_line(
-        f"rxlog {header.get('rxlog_version')} dynamic-spectrum burst detector; receiver "
-        f"{header.get('receiver')}; antenna {header.get('antenna') or 'not described'}; band "
-        f"{header.get('band_fmin_mhz')}-{header.get('band_fmax_mhz')} MHz every {cadence} s")
-
-    cls = row["label"] if row["label"] in CLASSES else row["class"]
-    conf = row["confidence"]
-    why_attrs = {"importance": _text(conf)} if conf is not None and 0 <= conf <= 1 else {}
-    why = ET.SubElement(root, "Why", why_attrs)
-    inf = ET.SubElement(why, "Inference", {"probability": _text(conf)} if why_attrs else {})
-    if cls in SOURCE:
-        ET.SubElement(inf, "Name").text = SOURCE[cls]
-    ET.SubElement(inf, "Concept").text = CONCEPT.get(cls, cls)
-    ET.SubElement(root, "Description").text = (
-        f"{CONCEPT.get(cls, cls)} seen at {station} from {row['start_utc']} to {row['end_utc']}, "
-        f"{row['fmin_mhz']}-{row['fmax_mhz']} MHz.")
-    ET.indent(root)
-    return ET.tostring(root, encoding="utf-8", xml_declaration=True) + b"\n"
-
-
-# -- reading ------------------------------------------------------------------------------
 
 @dataclass
 class EventList:
@@ -779,9 +418,7 @@ def check_xml_safe(data: bytes, where: str):
 
 
 def _read_votable(p: Path, data: bytes):
-    import warnings
-
-    from astropy.io import votable
+    from astropy.io import votable  # loaded only for VOTables: it takes a second or more to import
 
     check_xml_safe(data, str(p))
     problems = _Problems(str(p))
