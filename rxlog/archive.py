@@ -40,6 +40,7 @@ import datetime as dt
 import fcntl
 import gzip
 import hashlib
+import itertools
 import math
 import os
 import re
@@ -57,6 +58,7 @@ from rxlog import __version__, validate
 from rxlog.constants import GPS_MINUS_TAI_S, TT_MINUS_TAI_S
 from rxlog.errors import RxlogError
 from rxlog.fileio import ensure_dir, fsync_dir, write_atomic
+from rxlog.receive.replay import spectra_from_recording
 from rxlog.spectrum import FLAG_GAP, FLAG_RETUNE, FLAG_RFI, FLAG_UNCOVERED, DynamicSpectrum
 
 FORMAT = "rxlog-dynspec-1"          # value of RXFORMAT in the primary header of our files
@@ -1424,3 +1426,41 @@ def _summary(path, segment, t0, cadence, n_time, freq_hz) -> IngestSummary:
     return IngestSummary(path=path, segment=segment, t0=t0, t_end=t0 + n_time * cadence, cadence_s=cadence,
                          n_time=n_time, n_chan=freq_hz.size, fmin_hz=float(freq_hz[0]),
                          fmax_hz=float(freq_hz[-1]))
+
+
+@dataclass
+class RecordingSummary:
+    """What ``ingest_recording`` stored."""
+
+    path: str
+    segments: list
+    t0: float
+    t_end: float
+    rows: int
+    duration_s: float
+
+
+def ingest_recording(cfg, path, progress=None, *, fmt=None, rate_hz=None, center_hz=None, start=None,
+                     chunk_samples: int = 1 << 20) -> RecordingSummary:
+    """Channelize a recording onto the station grid and append it to the station archive.
+
+    The same channelizer as the live logger (``[sweep]`` FFT settings, ``[spectra]`` grid
+    and cadence); each tuning of the recording is a segment of its own. The recording's
+    description is checked whole before a sample is read (``open_recording``, and every
+    tuning must reach the station band), and the spectra are stored all or nothing
+    (``staged_writer``): a refused or failed recording leaves the archive as it was.
+    """
+    segments, rows, t0, t_end = [], 0, math.inf, -math.inf
+    spectra = spectra_from_recording(cfg, path, progress, fmt=fmt, rate_hz=rate_hz, center_hz=center_hz,
+                                     start=start, chunk_samples=chunk_samples)
+    first = next(spectra, None)          # open and check the recording before staging anything
+    if first is None:
+        raise RxlogError(f"{path}: too short for one {cfg['spectra']['cadence_s']:g}-s spectrum; nothing stored")
+    with staged_writer(cfg) as w:
+        for ds in itertools.chain([first], spectra):
+            w.write(ds)
+            rows += ds.n_time
+            t0, t_end = min(t0, ds.t0), max(t_end, ds.t_end)
+            if ds.segment not in segments:
+                segments.append(ds.segment)
+    return RecordingSummary(str(path), segments, t0, t_end, rows, t_end - t0)

@@ -56,7 +56,7 @@ import numpy as np
 from rxlog import health as hl
 from rxlog.errors import RxlogError
 from rxlog.notify import Notifier
-from rxlog.receiver import EndOfStream
+from rxlog.receive.blocks import EndOfStream
 from rxlog.spectrum import DynamicSpectrum
 from rxlog.timeutil import iso, parse_iso
 
@@ -894,9 +894,9 @@ class SweepFeed:
         self._done = (0, 0)           # sample counts of sources already closed
 
     def open(self):
-        from rxlog.channelizer import Channelizer
+        from rxlog.receive.channelizer import Channelizer
+        from rxlog.receive.sweep import Sweeper, SweepPlan
         from rxlog.station.sources import open_source
-        from rxlog.sweep import Sweeper, SweepPlan
 
         kind = self.cfg["receiver"]["kind"]
         if kind in ("rtlsdr", "rtltcp"):

@@ -7,8 +7,8 @@ import numpy as np
 
 from rxlog import report
 from rxlog.archive import read_spectrum_fits
-from rxlog.channelizer import Ring
 from rxlog.config import load_config
+from rxlog.receive.ring import Ring
 from rxlog.service import Logger, cutout_relpath, prune_cutouts, save_cutout
 from rxlog.spectrum import channel_grid
 from rxlog.store import EventStore
