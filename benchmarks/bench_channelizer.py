@@ -8,7 +8,7 @@ process (the wall clock is printed too: on a shared host it also counts other wo
 configuration (Hann window, 1024-point frames, spectral kurtosis on, mapping onto the
 station's 1024 channels); the bare pipeline converts cu8 to complex64, windows, FFTs,
 squares and averages -- nothing else. The memory figure is the peak RSS
-(``resource.getrusage``) of a separate process that runs ``rxlog.archive.ingest_recording``
+(``resource.getrusage``) of a separate process that runs ``rxlog.archive.ingest.ingest_recording``
 on a generated 2 GB cu8 file (417 s at 2.4 MS/s) into a scratch archive.
 
     python -m benchmarks channelizer
@@ -97,7 +97,7 @@ def _bare(raw: np.ndarray) -> list:
 
 _MEMORY_CHILD = textwrap.dedent("""
     import resource, sys
-    from rxlog.archive import ingest_recording
+    from rxlog.archive.ingest import ingest_recording
     from rxlog.config import config_from_text
     folder, path = sys.argv[1], sys.argv[2]
     cfg = config_from_text("[station]\\nname='bench'\\nlatitude_deg=47.5\\nlongitude_deg=8.7\\n"

@@ -27,7 +27,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 
 from rxlog import report
-from rxlog.archive import ArchiveWriter
+from rxlog.archive.write import ArchiveWriter
 from rxlog.config import config_from_text
 from rxlog.review_server import ReviewServer
 from rxlog.spectrum import DynamicSpectrum, channel_grid

@@ -551,7 +551,7 @@ def _load_spectra(spectra, names: list[str], notices: list[str]) -> dict[int, li
             files = sorted(q for q in p.rglob("*") if q.name.endswith((".fits", ".fits.fz", ".fit"))) \
                 if p.is_dir() else [p]
             for f in files:
-                from rxlog.archive import read_spectrum_fits
+                from rxlog.archive.read import read_spectrum_fits
 
                 try:
                     got.append(read_spectrum_fits(f))

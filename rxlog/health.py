@@ -270,15 +270,15 @@ def _archive_status(cfg, now: float) -> dict:
     """The last archived row and the disk outlook, from the archive's files. An archive
     that cannot be read (a damaged file, no permission) is reported, not raised: the
     rest of the status still answers."""
-    from rxlog import archive
+    from rxlog.archive.read import archive_hours, file_spans
     from rxlog.errors import RxlogError
     from rxlog.timeutil import iso
 
     now_hour = int(now // 3600)
     try:
-        hours = archive.archive_hours(cfg.archive_dir)
-        recent = archive.file_spans(cfg.archive_dir, now_hour - 24, None) if hours else []
-        newest = archive.file_spans(cfg.archive_dir, hours[-1], hours[-1]) if hours and not recent else recent
+        hours = archive_hours(cfg.archive_dir)
+        recent = file_spans(cfg.archive_dir, now_hour - 24, None) if hours else []
+        newest = file_spans(cfg.archive_dir, hours[-1], hours[-1]) if hours and not recent else recent
         error = None
     except (RxlogError, OSError) as e:
         hours, recent, newest, error = [], [], [], str(e)

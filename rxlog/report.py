@@ -130,7 +130,7 @@ def parse_night(cfg, text: str) -> Night:
 
 def data_extent(cfg) -> tuple[float, float] | None:
     """First and last instant with data: archived spectra or stored events, whichever reach further."""
-    from rxlog.archive import archive_extent
+    from rxlog.archive.read import archive_extent
 
     lo, hi = [], []
     ext = archive_extent(cfg.archive_dir)
@@ -275,7 +275,7 @@ def read_night(cfg, night: Night, events: list[dict], on_zoom=None, progress=Non
     ``on_zoom(index, event, t_edges, f_edges_mhz, power, background)`` is called for each
     event as soon as the data past its window (and the background around it) are read.
     """
-    from rxlog.archive import read_archive
+    from rxlog.archive.read import read_archive
 
     cadence = float(cfg["spectra"]["cadence_s"])
     f_edges = _freq_bins(cfg)
@@ -1340,7 +1340,7 @@ def read_cutout(cfg, ev: dict):
     Cutouts are dynamic spectra in the archive's FITS layout. The background is the
     per-channel median over the cutout (its burst is brief against its length).
     """
-    from rxlog.archive import read_spectrum_fits
+    from rxlog.archive.read import read_spectrum_fits
 
     path = cutout_file(cfg, ev)
     if path is None or not path.is_file():

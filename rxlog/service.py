@@ -1051,7 +1051,7 @@ def open_feed(cfg, clock: Clock, sim_hours: float | None = None):
 
 
 def open_archive(cfg):
-    from rxlog.archive import ArchiveWriter
+    from rxlog.archive.write import ArchiveWriter
 
     return ArchiveWriter(cfg.archive_dir, cfg["station"], lossless=cfg["storage"]["lossless"],
                          chunk_s=cfg["service"]["chunk_s"])
@@ -1065,7 +1065,7 @@ def open_detector(cfg):
 
 def prune_archive(cfg, now: float | None = None) -> list:
     """Daily retention: archived spectra and event cutouts older than ``retention_days``."""
-    from rxlog.archive import prune
+    from rxlog.archive.prune import prune
 
     days = cfg["storage"]["retention_days"]
     return prune(cfg.archive_dir, days, now=now) + prune_cutouts(cfg, days, now=now)
@@ -1092,7 +1092,7 @@ def save_cutout(cfg, ev: dict, ring) -> dict:
     """Write the ring's rows around ``ev`` as a FITS file in the archive's layout and return
     the event as ``rxlog.detect.cutout.refine_with_cutout`` sees it then (with ``cutout_path``,
     relative to the storage root). Without rows in the ring the event comes back as it was."""
-    from rxlog.archive import write_spectrum_fits
+    from rxlog.archive.write import write_spectrum_fits
     from rxlog.detect.cutout import refine_with_cutout
 
     t0 = parse_iso(ev["start_utc"]) - CUTOUT_MARGIN_S

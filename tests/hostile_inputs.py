@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 from astropy.io import fits
 
-from rxlog.archive import ArchiveWriter, write_spectrum_fits
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 from rxlog.config import config_from_text
 from rxlog.store import EventStore
 from rxlog.timeutil import iso

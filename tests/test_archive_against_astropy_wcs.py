@@ -16,7 +16,7 @@ from astropy.time import Time
 from astropy.utils import iers
 from astropy.wcs import WCS
 
-from rxlog.archive import ArchiveWriter, write_spectrum_fits
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 
 from archive_helpers import STATION, T_NIGHT, noisy_spectrum
 

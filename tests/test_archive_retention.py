@@ -5,7 +5,9 @@ import os
 
 from click.testing import CliRunner
 
-from rxlog.archive import ArchiveWriter, prune, read_archive
+from rxlog.archive.prune import prune
+from rxlog.archive.read import read_archive
+from rxlog.archive.write import ArchiveWriter
 from rxlog.cli import main
 from rxlog.config import config_from_text
 

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from rxlog.archive import read_archive
+from rxlog.archive.read import read_archive
 from rxlog.cli import main
 from rxlog.cli.base import UserError, parse_time_option
 from rxlog.timeutil import parse_iso

@@ -56,7 +56,7 @@ def test_refinement_needs_the_per_channel_sweep_offsets(scene):
 
 
 def test_spectra_from_fits_files(scene, tmp_path):
-    archive = pytest.importorskip("rxlog.archive")
+    archive = pytest.importorskip("rxlog.archive.write")
     la, lb, spec_a, spec_b = scene
     station = {"name": "st-a", "latitude_deg": 47.5, "longitude_deg": 8.7, "elevation_m": 450.0}
     pa = archive.write_spectrum_fits(spec_a, tmp_path / "a.fits", station)

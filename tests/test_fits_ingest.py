@@ -8,7 +8,9 @@ from astropy.io import fits
 from astropy.time import Time
 from click.testing import CliRunner
 
-from rxlog.archive import ArchiveWriter, ingest_fits, read_archive, write_spectrum_fits
+from rxlog.archive.ingest import ingest_fits
+from rxlog.archive.read import read_archive
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 from rxlog.cli import main
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError

@@ -12,7 +12,7 @@ from click.testing import CliRunner
 from PIL import Image
 
 from rxlog import report
-from rxlog.archive import write_spectrum_fits
+from rxlog.archive.write import write_spectrum_fits
 from rxlog.cli import main
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 from rxlog.store import EventStore

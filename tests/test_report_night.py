@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from rxlog import report
-from rxlog.archive import ArchiveWriter
+from rxlog.archive.write import ArchiveWriter
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.spectrum import DynamicSpectrum, channel_grid

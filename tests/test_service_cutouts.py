@@ -6,7 +6,7 @@ from types import SimpleNamespace
 import numpy as np
 
 from rxlog import report
-from rxlog.archive import read_spectrum_fits
+from rxlog.archive.read import read_spectrum_fits
 from rxlog.config import load_config
 from rxlog.receive.ring import Ring
 from rxlog.service import Logger, cutout_relpath, prune_cutouts, save_cutout

@@ -23,7 +23,8 @@ from hypothesis import strategies as st
 import hostile_inputs as H
 from archive_helpers import T_NIGHT
 from rxlog import validate
-from rxlog.archive import ingest_fits, ingest_recording, read_spectrum_fits
+from rxlog.archive.ingest import ingest_fits, ingest_recording
+from rxlog.archive.read import read_spectrum_fits
 from rxlog.config import SCHEMA, ConfigError, load_config
 from rxlog.errors import RxlogError
 from rxlog.exchange import COLUMN_NAMES, HEADER, read_event_list

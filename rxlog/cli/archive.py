@@ -18,7 +18,7 @@ def prune_command(cfg):
     Example:
       rxlog prune --config station.toml
     """
-    from rxlog.archive import prune
+    from rxlog.archive.prune import prune
 
     days = cfg["storage"]["retention_days"]
     deleted = prune(cfg.archive_dir, days)

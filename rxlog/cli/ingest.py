@@ -92,14 +92,14 @@ def ingest(cfg, paths, fmt, rate_msps, center_mhz, start):
                         "a centre frequency in MHz")
     for path, kind in kinds:
         if kind == "fits":
-            from rxlog.archive import ingest_fits
+            from rxlog.archive.ingest import ingest_fits
 
             for s in ingest_fits(cfg, path):
                 click.echo(f"{s.path}: segment {s.segment}, {iso(s.t0)} to {iso(s.t_end)}, {s.n_time} spectra "
                            f"every {s.cadence_s:g} s, {s.n_chan} channels {s.fmin_hz / 1e6:.3f}-"
                            f"{s.fmax_hz / 1e6:.3f} MHz")
             continue
-        from rxlog.archive import ingest_recording
+        from rxlog.archive.ingest import ingest_recording
 
         with click.progressbar(length=1, label=path.name, file=sys.stderr) as bar:
             def progress(done, total):
