@@ -19,7 +19,6 @@ from rxlog.receive.blocks import ReceiverLost, SampleBlock, segment_id, to_compl
 from rxlog.receive.clock import ClockDiscipline
 from rxlog.timeutil import parse_iso
 
-
 # librtlsdr's resampler accepts these rates (rtlsdr_set_sample_rate in librtlsdr.c rejects
 # <= 225 kS/s, 300-900 kS/s and > 3.2 MS/s with -EINVAL).
 RTL_RATE_RANGES = ((225_001, 300_000), (900_001, 3_200_000))
