@@ -20,6 +20,9 @@ so a dwell never starts before its planned offset (it may start up to one buffer
 
 ``mode = "single"``: one fixed window (``center_hz``), rows straight from the channelizer
 at the highest time resolution, for S-burst work.
+
+``samples_per_cell(cfg)``: the independent power samples behind each archived cell, the
+sweep's duty cycle included.
 """
 
 from __future__ import annotations
