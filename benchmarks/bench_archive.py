@@ -18,7 +18,8 @@ from pathlib import Path
 
 import numpy as np
 
-from rxlog.archive import ArchiveWriter, read_archive
+from rxlog.archive.read import read_archive
+from rxlog.archive.write import ArchiveWriter
 from rxlog.spectrum import FLAG_RFI, DynamicSpectrum, channel_grid
 
 N_CHAN = 1024

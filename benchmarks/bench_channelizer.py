@@ -8,7 +8,7 @@ process (the wall clock is printed too: on a shared host it also counts other wo
 configuration (Hann window, 1024-point frames, spectral kurtosis on, mapping onto the
 station's 1024 channels); the bare pipeline converts cu8 to complex64, windows, FFTs,
 squares and averages -- nothing else. The memory figure is the peak RSS
-(``resource.getrusage``) of a separate process that runs ``rxlog.channelizer.ingest_recording``
+(``resource.getrusage``) of a separate process that runs ``rxlog.archive.ingest.ingest_recording``
 on a generated 2 GB cu8 file (417 s at 2.4 MS/s) into a scratch archive.
 
     python -m benchmarks channelizer
@@ -27,13 +27,13 @@ from pathlib import Path
 import numpy as np
 import scipy.fft
 
-from rxlog.channelizer import Channelizer
-from rxlog.receiver import SampleBlock, to_complex64
+from rxlog.receive.blocks import SampleBlock, to_complex64
+from rxlog.receive.channelizer import Channelizer
 from rxlog.spectrum import channel_grid
 
 RATE = 2_400_000
 SECONDS = 8
-CHUNK = 1 << 20                   # samples per chunk, as rxlog.channelizer.spectra_from_recording reads
+CHUNK = 1 << 20                   # samples per chunk, as rxlog.receive.replay.spectra_from_recording reads
 T0 = 1_796_162_400.0
 TARGET_X = 50.0                   # times real time
 TARGET_RATIO = 0.5                # of the bare scipy.fft pipeline's throughput
@@ -97,8 +97,8 @@ def _bare(raw: np.ndarray) -> list:
 
 _MEMORY_CHILD = textwrap.dedent("""
     import resource, sys
+    from rxlog.archive.ingest import ingest_recording
     from rxlog.config import config_from_text
-    from rxlog.channelizer import ingest_recording
     folder, path = sys.argv[1], sys.argv[2]
     cfg = config_from_text("[station]\\nname='bench'\\nlatitude_deg=47.5\\nlongitude_deg=8.7\\n"
                            "[storage]\\nroot='data'\\n[sweep]\\nmode='single'\\n", folder + "/station.toml")

@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import math
 from collections import defaultdict
+from pathlib import Path
 
 import numpy as np
 
@@ -43,8 +44,6 @@ from rxlog.detect.online import OnlineDetector, latest
 from rxlog.errors import RxlogError
 from rxlog.sim.spectra import iter_spectra
 from rxlog.timeutil import parse_iso
-
-from pathlib import Path
 
 PEAKS = (0.5, 1.0, 2.0, 4.0, 8.0)
 CONFIG = Path(__file__).resolve().parents[1] / "config" / "station.example.toml"

@@ -20,8 +20,8 @@ import time
 
 import numpy as np
 
-from rxlog.sky.tags import compute_tags
 from rxlog.forecast import forecast_windows
+from rxlog.sky.tags import compute_tags
 
 SITE = (47.5, 8.7, 450.0)
 T0 = 1796083200.0                 # 2026-12-01T00:00:00Z

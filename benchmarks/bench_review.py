@@ -26,7 +26,7 @@ from zoneinfo import ZoneInfo
 
 import numpy as np
 
-from rxlog.archive import ArchiveWriter
+from rxlog.archive.write import ArchiveWriter
 from rxlog.config import config_from_text
 from rxlog.review.night import night_starting
 from rxlog.review.page import event_image_name

@@ -23,6 +23,7 @@ from typing import Any, Callable
 
 from rxlog import validate
 from rxlog.detect.settings import DEFAULT_STATIC_RANGES, check_static_ranges
+from rxlog.receive import devices, sweep
 from rxlog.sky import regions as _regions
 
 REQUIRED = object()
@@ -355,9 +356,7 @@ CROSS_CHECKS: list[Callable[[dict, Callable[..., str]], list[str]]] = []
 
 
 def _receiver_and_sweep_checks(cfg: dict, at) -> list[str]:
-    from rxlog import receiver, sweep
-
-    return receiver.config_problems(cfg, at) + sweep.config_problems(cfg, at)
+    return devices.config_problems(cfg, at) + sweep.config_problems(cfg, at)
 
 
 CROSS_CHECKS.append(_receiver_and_sweep_checks)

@@ -122,7 +122,7 @@ def simulate_into_archive(cfg, start: float, hours: float, inject: list[dict],
     ``clock_error_s`` shifts the station's time stamps as a wrong clock would: the sky is
     the same, the station writes it down late (positive) or early (negative).
     """
-    from rxlog.archive import ArchiveWriter
+    from rxlog.archive.write import ArchiveWriter
     from rxlog.sim.spectra import iter_spectra
 
     run = iter_spectra(cfg, start, hours, inject=inject)

@@ -26,10 +26,10 @@ from typing import Callable
 import icalendar
 import numpy as np
 
-from rxlog.sky.regions import regions_from_config, wrapped_spans
-from rxlog.sky.tags import station_tags
 from rxlog.errors import RxlogError
 from rxlog.fileio import write_atomic
+from rxlog.sky.regions import regions_from_config, wrapped_spans
+from rxlog.sky.tags import station_tags
 from rxlog.timeutil import iso
 
 # Defaults (common practice): Jupiter at least 10 deg up, since low sources suffer most

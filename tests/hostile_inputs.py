@@ -9,14 +9,13 @@ import json
 from pathlib import Path
 
 import numpy as np
+from archive_helpers import T_NIGHT, noisy_spectrum
 from astropy.io import fits
 
-from rxlog.archive import ArchiveWriter, write_spectrum_fits
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 from rxlog.config import config_from_text
 from rxlog.store import EventStore
 from rxlog.timeutil import iso
-
-from archive_helpers import T_NIGHT, noisy_spectrum
 
 START = "2026-12-01T22:00:00Z"          # T_NIGHT: a night in the past of any test run
 

@@ -155,7 +155,7 @@ def integrity(store_path: Path) -> str:
 
 def archive_rows(archive_dir: Path):
     """(segment id, row start times) of every archived row, read back through the archive reader."""
-    from rxlog.archive import read_archive
+    from rxlog.archive.read import read_archive
 
     got = read_archive(archive_dir, 0, 4e9, fill_gaps_up_to_s=0)
     return got

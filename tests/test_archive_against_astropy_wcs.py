@@ -9,6 +9,7 @@ the spectrum says it holds.
 import warnings
 
 import pytest
+from archive_helpers import STATION, T_NIGHT, noisy_spectrum
 from astropy import units as u
 from astropy.coordinates import EarthLocation
 from astropy.io import fits
@@ -16,9 +17,7 @@ from astropy.time import Time
 from astropy.utils import iers
 from astropy.wcs import WCS
 
-from rxlog.archive import ArchiveWriter, write_spectrum_fits
-
-from archive_helpers import STATION, T_NIGHT, noisy_spectrum
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 
 # No network at a field site or in CI: astropy must not try to fetch IERS tables.
 iers.conf.auto_download = False

@@ -5,11 +5,11 @@ import shutil
 
 import numpy as np
 import pytest
-
-from rxlog.archive import ArchiveWriter, archive_extent, read_archive
-from rxlog.spectrum import FLAG_GAP
-
 from archive_helpers import STATION, T_NIGHT, archive_files, noisy_spectrum
+
+from rxlog.archive.read import archive_extent, read_archive
+from rxlog.archive.write import ArchiveWriter
+from rxlog.spectrum import FLAG_GAP
 
 
 def _close(a, b):

@@ -3,13 +3,14 @@ hours, never the event store, reports or anything else under the storage root.""
 
 import os
 
+from archive_helpers import STATION, T_NIGHT, archive_files, noisy_spectrum
 from click.testing import CliRunner
 
-from rxlog.archive import ArchiveWriter, prune, read_archive
+from rxlog.archive.prune import prune
+from rxlog.archive.read import read_archive
+from rxlog.archive.write import ArchiveWriter
 from rxlog.cli import main
 from rxlog.config import config_from_text
-
-from archive_helpers import STATION, T_NIGHT, archive_files, noisy_spectrum
 
 DAY = 86400.0
 

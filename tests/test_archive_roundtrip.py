@@ -4,12 +4,12 @@ change what is read back."""
 
 import numpy as np
 import pytest
-
-from rxlog.archive import (QUANT_STEP_DB, ArchiveWriter, read_archive, read_spectrum_fits,
-                           write_spectrum_fits)
-from rxlog.spectrum import FLAG_GAP
-
 from archive_helpers import STATION, T_NIGHT, noisy_spectrum
+
+from rxlog.archive.layout import QUANT_STEP_DB
+from rxlog.archive.read import read_archive, read_spectrum_fits
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
+from rxlog.spectrum import FLAG_GAP
 
 
 def _with_nan(spec):

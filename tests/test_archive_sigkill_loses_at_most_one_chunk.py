@@ -8,16 +8,16 @@ import sys
 
 import numpy as np
 import pytest
+from archive_helpers import STATION, T_NIGHT
 from astropy.io import fits
 
-from rxlog.archive import ArchiveWriter, read_archive
-
-from archive_helpers import STATION, T_NIGHT
+from rxlog.archive.read import read_archive
+from rxlog.archive.write import ArchiveWriter
 
 CHILD = r"""
 import sys
 import numpy as np
-from rxlog.archive import ArchiveWriter
+from rxlog.archive.write import ArchiveWriter
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 
 root, t0 = sys.argv[1], float(sys.argv[2])

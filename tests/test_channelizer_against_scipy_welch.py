@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from rxlog.channelizer import Channelizer
+from rxlog.receive.channelizer import Channelizer
 from rxlog.spectrum import channel_grid
 
 RATE = 2_400_000

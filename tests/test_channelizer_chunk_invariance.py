@@ -7,8 +7,8 @@ complex64 paths' own block splits, and for the full-resolution ring.
 import numpy as np
 import pytest
 
-from rxlog.channelizer import Channelizer
-from rxlog.receiver import SampleBlock, to_complex64
+from rxlog.receive.blocks import SampleBlock, to_complex64
+from rxlog.receive.channelizer import Channelizer
 from rxlog.spectrum import FLAG_GAP, channel_grid
 
 RATE = 2_400_000

@@ -12,7 +12,8 @@ so the per-channel SK is the published single-bin estimator.
 import numpy as np
 import pytest
 
-from rxlog.channelizer import Channelizer, sk_sigma, spectral_kurtosis
+from rxlog.receive.channelizer import Channelizer
+from rxlog.receive.kurtosis import sk_sigma, spectral_kurtosis
 
 RATE = 2_400_000
 CENTER = 20e6

@@ -8,8 +8,13 @@ window and overlap (K from window bin correlation and Welch's overlap formula).
 import numpy as np
 import pytest
 
-from rxlog.channelizer import Channelizer, independent_bins, bin_correlation, get_window
 from rxlog.config import config_from_text
+from rxlog.receive.channelizer import (
+    Channelizer,
+    bin_correlation,
+    get_window,
+    independent_bins,
+)
 from rxlog.spectrum import channel_grid
 
 RATE = 2_400_000
@@ -51,8 +56,7 @@ def test_hann_bins_correlate_as_published():
 
 
 def test_sweep_duty_cycle_enters_samples_per_cell(tmp_path):
-    from rxlog.channelizer import samples_per_cell
-    from rxlog.sweep import SweepPlan
+    from rxlog.receive.sweep import SweepPlan, samples_per_cell
 
     base = "[station]\nname='t'\nlatitude_deg=47\nlongitude_deg=8\n"
     single = config_from_text(base + "[sweep]\nmode='single'\n", tmp_path / "a.toml")

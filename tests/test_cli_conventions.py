@@ -11,14 +11,13 @@ import click
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from test_cli_help import all_commands
+from test_receiver_ingest import RATE, station, tone_cu8
 
-from rxlog.archive import read_archive
+from rxlog.archive.read import read_archive
 from rxlog.cli import main
 from rxlog.cli.base import UserError, parse_time_option
 from rxlog.timeutil import parse_iso
-
-from test_cli_help import all_commands
-from test_receiver_ingest import RATE, station, tone_cu8
 
 
 def visible_options():

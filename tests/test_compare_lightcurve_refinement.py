@@ -5,10 +5,9 @@ Alvarez & Haddock (1973) drift law; events are timed only to the 1-s archive row
 
 import numpy as np
 import pytest
+from exchange_helpers import T0, type3_events, type3_spectrum
 
 from rxlog.exchange.compare import compare_stations
-
-from exchange_helpers import T0, type3_events, type3_spectrum
 
 N_CHAN = 256
 TRUE = 1.37  # st-b's clock is this many seconds ahead of st-a's
@@ -56,7 +55,7 @@ def test_refinement_needs_the_per_channel_sweep_offsets(scene):
 
 
 def test_spectra_from_fits_files(scene, tmp_path):
-    archive = pytest.importorskip("rxlog.archive")
+    archive = pytest.importorskip("rxlog.archive.write")
     la, lb, spec_a, spec_b = scene
     station = {"name": "st-a", "latitude_deg": 47.5, "longitude_deg": 8.7, "elevation_m": 450.0}
     pa = archive.write_spectrum_fits(spec_a, tmp_path / "a.fits", station)

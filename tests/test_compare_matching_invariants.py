@@ -3,14 +3,13 @@ against a brute-force double loop), groups are one-to-one, the order of the inpu
 not change the result, and events farther apart than the window never match."""
 
 import numpy as np
+from exchange_helpers import T0, event, list_header, sky, station_list
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rxlog.boxes import overlap_pairs
 from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.importer import EventList
-
-from exchange_helpers import T0, event, list_header, sky, station_list
 
 interval_lists = st.lists(st.tuples(st.integers(0, 50), st.integers(0, 10)), max_size=25)
 

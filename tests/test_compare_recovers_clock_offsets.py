@@ -7,12 +7,11 @@ import csv
 
 import numpy as np
 import pytest
+from exchange_helpers import list_header, sky, station_list
 
 from rxlog.errors import RxlogError
 from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.export import write_event_list
-
-from exchange_helpers import list_header, sky, station_list
 
 
 def offsets_of(result):

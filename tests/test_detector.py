@@ -7,8 +7,8 @@ checks rxlog's own rules (classes, masks, episodes, per-channel sampling times).
 
 import numpy as np
 import pytest
-
 from detector_helpers import CFG, Sky, cfg_with, jupiter_up, sun_down, sun_up
+
 from rxlog.detect.drift import ah_drift, fit_drift
 from rxlog.detect.online import OnlineDetector, detect_spectrum, latest
 from rxlog.spectrum import FLAG_RFI

@@ -2,8 +2,8 @@
 one-shot run, and both give the same mask and hourly quality rows."""
 
 import numpy as np
-
 from detector_helpers import Sky, cfg_with, sun_up
+
 from rxlog.detect.online import OnlineDetector, detect_spectrum, latest
 
 # A short slow window so long events also finish inside the test spectrum.

@@ -2,9 +2,9 @@
 labels survive re-detection, and the command line reports what it stored."""
 
 from click.testing import CliRunner
-
 from detector_helpers import Sky
-from rxlog.archive import ArchiveWriter
+
+from rxlog.archive.write import ArchiveWriter
 from rxlog.cli import main
 from rxlog.config import config_from_text
 from rxlog.store import EventStore

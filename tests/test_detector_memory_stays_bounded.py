@@ -3,8 +3,8 @@ rows fed minute by minute holds no more than a few minutes of bursts and half a 
 window of coarse block levels)."""
 
 import numpy as np
-
 from detector_helpers import Sky, cfg_with, sun_up
+
 from rxlog.detect.online import OnlineDetector
 
 

@@ -10,8 +10,8 @@ textured storm and a slow lane in the same band are still found.
 
 import numpy as np
 import pytest
-
 from detector_helpers import Sky, cfg_with, jupiter_up, sun_up
+
 from rxlog.detect.drift import ah_drift
 from rxlog.detect.online import detect_spectrum
 from rxlog.spectrum import FLAG_RFI

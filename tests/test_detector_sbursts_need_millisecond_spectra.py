@@ -3,11 +3,10 @@ channelizer's ring), never from 1-s spectra. S-burst drift -5 to -30 MHz/s after
 reviews of Jovian decametric emission (from memory); the synthetic bursts drift at -15."""
 
 import numpy as np
+from detector_helpers import CFG
 
 from rxlog.detect.cutout import refine_with_cutout
 from rxlog.spectrum import DynamicSpectrum
-
-from detector_helpers import CFG
 
 T0 = 1796162400.0
 

@@ -6,10 +6,10 @@ import socket
 import numpy as np
 import pytest
 
+from rxlog.errors import RxlogError
 from rxlog.sky import tags as sky_tags
 from rxlog.sky import timescales
 from rxlog.sky.tags import TAG_KEYS, compute_tags, station_tags
-from rxlog.errors import RxlogError
 
 SITE = (47.5, 8.7, 450.0)
 NIGHT = 1_796_083_200.0 + np.arange(0.0, 30 * 3600.0, 7.0)     # 2026-12-01, 30 h at 7 s

@@ -4,9 +4,14 @@ import numpy as np
 import pytest
 
 from rxlog.config import ConfigError, load_config
-from rxlog.sky.regions import (DEFAULT_REGION_BOXES, Region, regions_from_boxes, regions_from_config,
-                               source_region)
 from rxlog.errors import RxlogError
+from rxlog.sky.regions import (
+    DEFAULT_REGION_BOXES,
+    Region,
+    regions_from_boxes,
+    regions_from_config,
+    source_region,
+)
 
 DEFAULTS = regions_from_boxes(DEFAULT_REGION_BOXES)
 

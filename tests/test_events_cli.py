@@ -5,11 +5,11 @@ import datetime as dt
 
 import pytest
 from click.testing import CliRunner
+from test_report_night import NIGHT, _event, make_night
 
 from rxlog.cli import main
 from rxlog.store import EventStore, make_event_id
 from rxlog.timeutil import parse_iso
-from test_report_night import NIGHT, _event, make_night
 
 
 @pytest.fixture

@@ -4,12 +4,11 @@ the IVOA Recommendation's schema; see tests/data/README.md) with lxml."""
 from pathlib import Path
 
 import pytest
+from exchange_helpers import T0, event, station_config
 
 from rxlog.errors import RxlogError
 from rxlog.exchange.voevent import write_voevents
 from rxlog.store import EventStore
-
-from exchange_helpers import T0, event, station_config
 
 lxml = pytest.importorskip("lxml.etree")
 XSD = Path(__file__).parent / "data" / "VOEvent-v2.0.xsd"

@@ -3,12 +3,11 @@ bad input a short message with exit status 2."""
 
 import numpy as np
 from click.testing import CliRunner
+from exchange_helpers import T0, event, list_header, sky, station_config, station_list
 
 from rxlog.cli import main
 from rxlog.exchange.export import write_event_list
 from rxlog.store import EventStore
-
-from exchange_helpers import T0, event, list_header, sky, station_config, station_list
 
 
 def make_store(tmp_path):

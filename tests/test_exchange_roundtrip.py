@@ -5,6 +5,7 @@ import csv
 import json
 
 import pytest
+from exchange_helpers import T0, event, station_config
 
 from rxlog import __version__
 from rxlog.errors import RxlogError
@@ -13,8 +14,6 @@ from rxlog.exchange.export import export_events
 from rxlog.exchange.importer import read_event_list
 from rxlog.store import EventStore
 from rxlog.timeutil import iso
-
-from exchange_helpers import T0, event, station_config
 
 
 @pytest.fixture

@@ -9,6 +9,7 @@ import tempfile
 from pathlib import Path
 
 import pytest
+from exchange_helpers import T0, event, list_header
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -16,8 +17,6 @@ from rxlog.errors import RxlogError
 from rxlog.exchange.columns import COLUMN_NAMES
 from rxlog.exchange.export import write_event_list
 from rxlog.exchange.importer import read_event_list
-
-from exchange_helpers import T0, event, list_header
 
 GOOD = [event("st-a", T0 + 100 * i, cls="solar_iii") for i in range(5)]
 

@@ -16,7 +16,7 @@ from astropy.io import fits
 from astropy.time import Time
 from astropy.wcs import WCS
 
-from rxlog.archive import read_spectrum_fits
+from rxlog.archive.read import read_spectrum_fits
 from rxlog.errors import RxlogError
 from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED
 

@@ -4,17 +4,18 @@ the `rxlog ingest` command."""
 
 import numpy as np
 import pytest
+from archive_helpers import STATION, noisy_spectrum
 from astropy.io import fits
 from astropy.time import Time
 from click.testing import CliRunner
 
-from rxlog.archive import ArchiveWriter, ingest_fits, read_archive, write_spectrum_fits
+from rxlog.archive.ingest import ingest_fits
+from rxlog.archive.read import read_archive
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 from rxlog.cli import main
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED
-
-from archive_helpers import STATION, noisy_spectrum
 
 REF = Time("2026-12-01T21:55:00", scale="utc")      # astropy.time gives the expected epoch
 N_TIME, N_CHAN, CADENCE = 1200, 24, 0.5             # 10 minutes across 22:00 UTC

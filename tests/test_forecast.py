@@ -10,12 +10,22 @@ import numpy as np
 import pytest
 
 from rxlog.config import SCHEMA
+from rxlog.errors import RxlogError
+from rxlog.forecast import (
+    MIN_WINDOW_MIN,
+    REGION_COLOURS,
+    TOUCH_S,
+    calendar_bars,
+    forecast_figure,
+    forecast_watches,
+    forecast_windows,
+    format_forecast,
+    make_forecast,
+    plot_forecast,
+    write_ics,
+)
 from rxlog.sky.regions import DEFAULT_REGION_BOXES
 from rxlog.sky.tags import body_up_intervals, station_tags
-from rxlog.errors import RxlogError
-from rxlog.forecast import (MIN_WINDOW_MIN, REGION_COLOURS, TOUCH_S, calendar_bars, forecast_figure,
-                            forecast_watches, forecast_windows, format_forecast, make_forecast, plot_forecast,
-                            write_ics)
 
 START = 1_796_083_200.0          # 2026-12-01T00:00Z: Jupiter is a morning/evening object
 CFG = {"station": {"name": "test-site", "latitude_deg": 47.5, "longitude_deg": 8.7, "elevation_m": 450.0,

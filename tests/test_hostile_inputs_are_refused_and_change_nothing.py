@@ -2,10 +2,10 @@
 short message naming the file and the key or header card, never a traceback, and every
 file under the storage root (archive and event store) byte for byte as before."""
 
+import hostile_inputs as H
 import pytest
 from click.testing import CliRunner
 
-import hostile_inputs as H
 from rxlog.cli import main
 
 INGEST_CASES = {

@@ -4,14 +4,14 @@ for recordings and FITS files alike; without the failure both hours are there.""
 
 from pathlib import Path
 
+import hostile_inputs as H
 import numpy as np
 import pytest
+from archive_helpers import T_NIGHT
 from click.testing import CliRunner
 
-import hostile_inputs as H
-from archive_helpers import T_NIGHT
-from rxlog import archive
-from rxlog.archive import read_archive
+from rxlog import fileio
+from rxlog.archive.read import read_archive
 from rxlog.cli import main
 from rxlog.errors import RxlogError
 
@@ -32,7 +32,7 @@ def fits_across_the_hour(folder: Path) -> list[str]:
 
 def full_disk_on_second_archive_write(monkeypatch, root: Path):
     """Make the second write into the archive (not the staging folder) fail as a full disk would."""
-    real, seen = archive.write_atomic, []
+    real, seen = fileio.write_atomic, []
 
     def flaky(path, data, what="file"):
         if Path(path).is_relative_to(root):
@@ -41,7 +41,7 @@ def full_disk_on_second_archive_write(monkeypatch, root: Path):
                 raise RxlogError(f"{path}: cannot write {what} ([Errno 28] No space left on device)")
         return real(path, data, what)
 
-    monkeypatch.setattr(archive, "write_atomic", flaky)
+    monkeypatch.setattr(fileio, "write_atomic", flaky)
     return seen
 
 

@@ -12,7 +12,9 @@ clocks: CLOCK_MONOTONIC running 5 ppm off true time, CLOCK_REALTIME wandering by
 import numpy as np
 import pytest
 
-from rxlog.receiver import ClockDiscipline, RtlSdrSource, RtlTcpSource
+from rxlog.receive.clock import ClockDiscipline
+from rxlog.receive.devices import RtlSdrSource
+from rxlog.receive.rtltcp import RtlTcpSource
 
 RATE = 2_400_000
 CRYSTAL_PPM = 40.0             # the dongle's crystal runs fast (domain: 1-50 ppm)

@@ -6,7 +6,8 @@ import pytest
 
 from rxlog.config import ConfigError, config_from_text, load_config
 from rxlog.errors import RxlogError
-from rxlog.receiver import EndOfStream, RecordingSource, open_recording, to_complex64
+from rxlog.receive.blocks import EndOfStream, to_complex64
+from rxlog.receive.recordings import RecordingSource, open_recording
 from rxlog.station.sources import open_source
 from rxlog.timeutil import parse_iso
 
@@ -172,9 +173,9 @@ def test_sigmf_capture_may_start_a_little_before_the_previous_ends(tmp_path):
 
 
 def test_oversized_sigmf_metadata_is_refused_unread(tmp_path, monkeypatch):
-    from rxlog import receiver
+    from rxlog.receive import recordings
 
-    monkeypatch.setattr(receiver, "MAX_SIGMF_META_BYTES", 100)
+    monkeypatch.setattr(recordings, "MAX_SIGMF_META_BYTES", 100)
     path = sigmf_pair(tmp_path, with_global(**{"note": "x" * 200}))
     with pytest.raises(RxlogError, match="too large for SigMF metadata"):
         open_recording(path)

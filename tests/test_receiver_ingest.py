@@ -1,14 +1,14 @@
 """``rxlog ingest`` for recordings: through the channelizer into the archive, read back.
 
 The recording is written with the reference ``sigmf`` package; the archive is read back
-with ``rxlog.archive.read_archive``.
+with ``rxlog.archive.read.read_archive``.
 """
 
 import numpy as np
 import sigmf
 from click.testing import CliRunner
 
-from rxlog.archive import read_archive
+from rxlog.archive.read import read_archive
 from rxlog.cli import main
 from rxlog.config import config_from_text
 from rxlog.timeutil import parse_iso

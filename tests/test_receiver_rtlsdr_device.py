@@ -12,10 +12,11 @@ import sys
 import numpy as np
 import pytest
 
-from rxlog.channelizer import Channelizer
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
-from rxlog.receiver import ReceiverLost, RtlSdrSource
+from rxlog.receive.blocks import ReceiverLost
+from rxlog.receive.channelizer import Channelizer
+from rxlog.receive.devices import RtlSdrSource
 from rxlog.spectrum import channel_grid
 from rxlog.station.sources import open_source
 
@@ -228,7 +229,7 @@ def test_a_dongle_that_stops_delivering_is_reported_lost(tmp_path):
 
 
 def test_sweep_over_the_device_retunes_it_and_stitches_the_tone(tmp_path):
-    from rxlog.sweep import SweepPlan, Sweeper
+    from rxlog.receive.sweep import Sweeper, SweepPlan
 
     cfg = config_from_text("[station]\nname='t'\nlatitude_deg=47\nlongitude_deg=8\n"
                            "[receiver]\nkind='rtlsdr'\ndirect_sampling='q'\n[sweep]\nring_s=0\n", tmp_path / "w.toml")

@@ -10,8 +10,9 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 from PIL import Image
+from test_report_night import make_night, simulated_night
 
-from rxlog.archive import write_spectrum_fits
+from rxlog.archive.write import write_spectrum_fits
 from rxlog.cli import main
 from rxlog.review.data import zoom_window
 from rxlog.review.night import report_dir
@@ -21,7 +22,6 @@ from rxlog.review.zoom import ZOOM_SPECTRUM_AXES
 from rxlog.spectrum import DynamicSpectrum, channel_grid
 from rxlog.store import EventStore
 from rxlog.timeutil import parse_iso
-from test_report_night import make_night, simulated_night
 
 
 class PageParser(HTMLParser):

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 from matplotlib.colors import to_hex
 from PIL import Image
+from test_report_night import NIGHT, TZ, _event, make_night, station_config
 
 from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.export import export_events
@@ -24,7 +25,6 @@ from rxlog.review.summary import JOVIAN, fmt_span, night_summary
 from rxlog.review.zoom import MAX_CLOCK_TICKS, ZoomPlotter, clock_ticks
 from rxlog.store import CLASSES, EventStore
 from rxlog.timeutil import parse_iso
-from test_report_night import NIGHT, TZ, _event, make_night, station_config
 
 # Okabe, M. & Ito, K. (2008) "Color Universal Design (CUD): how to make figures and
 # presentations that are friendly to colorblind people", J*FLY; the seven hues as listed by

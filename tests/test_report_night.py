@@ -12,7 +12,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 import pytest
 
-from rxlog.archive import ArchiveWriter
+from rxlog.archive.write import ArchiveWriter
 from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.review.data import default_night

@@ -7,13 +7,13 @@ import re
 import shutil
 
 import pytest
+from test_report_night import make_night
 
 from rxlog.review import palette
 from rxlog.review.night import report_dir
 from rxlog.review.report import build_report
 from rxlog.review.server import ReviewServer
 from rxlog.store import EventStore
-from test_report_night import make_night
 
 CHROMIUM = "/usr/bin/chromium"
 ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",

@@ -10,13 +10,13 @@ import threading
 import time
 
 import pytest
+from test_report_night import make_night
 
 from rxlog.errors import RxlogError
 from rxlog.review.night import report_dir
 from rxlog.review.report import build_report
 from rxlog.review.server import ReviewServer
 from rxlog.store import EventStore
-from test_report_night import make_night
 
 
 @pytest.fixture(scope="module")
@@ -104,6 +104,7 @@ def test_other_addresses_need_the_flag_and_a_token(night):
 
 def test_review_command_refuses_a_remote_bind_before_building(night):
     from click.testing import CliRunner
+
     from rxlog.cli import main
 
     cfg, n, _ = night

@@ -4,12 +4,13 @@ the store."""
 
 import json
 
+from test_report_night import _event, make_night
+from test_review_server import page_token, post_label, request
+
 from rxlog.review.report import build_report
 from rxlog.review.server import ReviewServer
 from rxlog.store import EventStore
 from rxlog.timeutil import parse_iso
-from test_report_night import _event, make_night
-from test_review_server import page_token, post_label, request
 
 
 def test_page_label_on_a_nested_event_stays_there(tmp_path):

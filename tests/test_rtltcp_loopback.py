@@ -14,9 +14,18 @@ import numpy as np
 import pytest
 
 from rxlog.errors import RxlogError
-from rxlog.receiver import (ReceiverLost, RtlTcpSource, TCP_SET_AGC_MODE, TCP_SET_BIAS_TEE,
-                            TCP_SET_DIRECT_SAMPLING, TCP_SET_FREQ, TCP_SET_FREQ_CORRECTION, TCP_SET_GAIN,
-                            TCP_SET_GAIN_MODE, TCP_SET_SAMPLE_RATE)
+from rxlog.receive.blocks import ReceiverLost
+from rxlog.receive.rtltcp import (
+    TCP_SET_AGC_MODE,
+    TCP_SET_BIAS_TEE,
+    TCP_SET_DIRECT_SAMPLING,
+    TCP_SET_FREQ,
+    TCP_SET_FREQ_CORRECTION,
+    TCP_SET_GAIN,
+    TCP_SET_GAIN_MODE,
+    TCP_SET_SAMPLE_RATE,
+    RtlTcpSource,
+)
 
 RATE = 250_000            # librtlsdr's low range; keeps the loopback light
 CHUNK = 2 * 2048          # bytes per send: 8.2 ms of samples

@@ -5,8 +5,16 @@ the end of `--duration`. The three runs go side by side, each on its own storage
 import signal
 import time
 
+from service_helpers import (
+    NARROW_IQ,
+    Run,
+    archive_rows,
+    health_rows,
+    integrity,
+    write_config,
+)
+
 from rxlog.config import load_config
-from service_helpers import NARROW_IQ, Run, archive_rows, health_rows, integrity, write_config
 
 # The spectral feed hands out a chunk once its last row has passed (1 s), and a flush
 # happens every chunk_s (1 s): data older than that must be on disk at the stop.

@@ -10,9 +10,10 @@ import signal
 import sqlite3
 import time
 
+from service_helpers import Run, archive_rows, health_rows, integrity, write_config
+
 from rxlog.config import load_config
 from rxlog.timeutil import parse_iso
-from service_helpers import Run, archive_rows, health_rows, integrity, write_config
 
 FORWARD, BACK = 3.0, -2.0
 

@@ -6,8 +6,9 @@ and health rows only every 60 s."""
 import signal
 import time
 
-from rxlog.config import load_config
 from service_helpers import Run, archive_rows, health_rows, integrity, write_config
+
+from rxlog.config import load_config
 
 RUNS = 2
 KILL_AFTER_S = 4.5        # after the first spectra: the first flush is due 2 s in (FIRST_FLUSH_S)

@@ -4,17 +4,17 @@ around each new event as a FITS file the report and the detector can read back."
 from types import SimpleNamespace
 
 import numpy as np
+from service_helpers import write_config
 
-from rxlog.archive import read_spectrum_fits
-from rxlog.channelizer import Ring
+from rxlog.archive.read import read_spectrum_fits
 from rxlog.config import load_config
+from rxlog.receive.ring import Ring
 from rxlog.review.cutouts import cutout_file
 from rxlog.spectrum import channel_grid
 from rxlog.station.cutouts import cutout_relpath, prune_cutouts, save_cutout
 from rxlog.station.supervise import Logger
 from rxlog.store import EventStore
 from rxlog.timeutil import iso
-from service_helpers import write_config
 
 T0 = 1_796_162_400.0      # 2026-12-01T22:00:00Z
 ROW_S = 0.002
@@ -90,9 +90,10 @@ def test_default_ring_outlasts_the_detector_latency():
     # (rxlog.detect); with the shipped defaults a minute-long burst is still in the ring.
     from pathlib import Path
 
+    from detector_helpers import Sky, sun_up
+
     from rxlog.detect.online import OnlineDetector
     from rxlog.station.cutouts import cutout_ring_needed_s
-    from detector_helpers import Sky, sun_up
 
     cfg = load_config(Path(__file__).resolve().parents[1] / "config" / "station.example.toml")
     need = cutout_ring_needed_s(cfg)

@@ -9,10 +9,17 @@ import subprocess
 import time
 
 import pytest
+from service_helpers import (
+    Run,
+    archive_rows,
+    health_rows,
+    integrity,
+    open_every_fits,
+    write_config,
+)
 
 from rxlog.config import load_config
 from rxlog.timeutil import parse_iso
-from service_helpers import Run, archive_rows, health_rows, integrity, open_every_fits, write_config
 
 SIZE_MB = 16
 MIN_FREE_MB = 6

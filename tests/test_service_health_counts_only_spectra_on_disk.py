@@ -5,8 +5,9 @@ handed to the archive writer; what the writer still holds in memory is given apa
 import signal
 import time
 
-from rxlog.config import load_config
 from service_helpers import Run, archive_rows, health_rows, write_config
+
+from rxlog.config import load_config
 
 CHUNK_S = 30          # long: between flushes the writer holds many seconds of spectra
 

@@ -5,9 +5,18 @@ the same process, no restart. The server is a loopback rtl_tcp speaker in the te
 import signal
 import time
 
+from service_helpers import (
+    NARROW_IQ,
+    RtlTcpServer,
+    Run,
+    archive_rows,
+    health_rows,
+    integrity,
+    write_config,
+)
+
 from rxlog.config import load_config
 from rxlog.timeutil import parse_iso
-from service_helpers import NARROW_IQ, RtlTcpServer, Run, archive_rows, health_rows, integrity, write_config
 
 OUTAGE_S = 2.0
 RTL_SET_FREQ = 0x01

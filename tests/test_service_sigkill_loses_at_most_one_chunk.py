@@ -7,10 +7,18 @@ import random
 import signal
 import time
 
-from rxlog.archive import ArchiveWriter
+from service_helpers import (
+    Run,
+    archive_rows,
+    health_rows,
+    integrity,
+    open_every_fits,
+    write_config,
+)
+
+from rxlog.archive.write import ArchiveWriter
 from rxlog.config import load_config
 from rxlog.timeutil import parse_iso
-from service_helpers import Run, archive_rows, health_rows, integrity, open_every_fits, write_config
 
 KILLS = 10
 EARLY = 3                 # kills at a random moment of start-up (store, archive recovery, sky model)

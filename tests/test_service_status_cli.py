@@ -4,9 +4,8 @@ command line; and the log format journald keeps (one line per message, level fir
 import io
 import logging
 import signal
-from types import SimpleNamespace
-
 from pathlib import Path
+from types import SimpleNamespace
 
 import pytest
 from click.testing import CliRunner

@@ -6,6 +6,7 @@ import os
 import stat
 
 import pytest
+from exchange_helpers import T0, event, list_header, station_config
 
 from rxlog.errors import RxlogError
 from rxlog.exchange.compare import compare_stations
@@ -14,8 +15,6 @@ from rxlog.exchange.voevent import write_voevents
 from rxlog.fileio import write_atomic
 from rxlog.forecast import forecast_windows, write_ics
 from rxlog.store import EventStore
-
-from exchange_helpers import T0, event, list_header, station_config
 
 
 @pytest.fixture

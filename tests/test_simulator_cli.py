@@ -7,9 +7,9 @@ import json
 import numpy as np
 from click.testing import CliRunner
 
-from rxlog.archive import read_archive, read_spectrum_fits
+from rxlog.archive.read import read_archive, read_spectrum_fits
 from rxlog.cli import main
-from rxlog.receiver import open_recording
+from rxlog.receive.recordings import open_recording
 from rxlog.timeutil import parse_iso
 
 CONFIG = """

@@ -5,9 +5,9 @@ predicts. Also: the SimulatedReceiver source contract and seeded reproducibility
 import numpy as np
 import pytest
 
-from rxlog import channelizer
 from rxlog.config import config_from_text
-from rxlog.receiver import EndOfStream
+from rxlog.receive import channelizer
+from rxlog.receive.blocks import EndOfStream
 from rxlog.sim.cells import cell_layout
 from rxlog.sim.iq import SimulatedReceiver, simulate_iq
 from rxlog.sim.spectra import simulate_spectra
@@ -105,7 +105,7 @@ def test_simulated_receiver_source_contract(cfg):
 
 def test_sweep_plan_over_the_simulated_receiver_matches_spectral_mode(tmp_path):
     # the logger's own path: SimulatedReceiver -> Sweeper (retunes, discards) -> channelizer
-    from rxlog import sweep
+    from rxlog.receive import sweep
 
     cfg = config_from_text("""
 [station]

@@ -6,8 +6,8 @@ carrier lines are steady tones, so their spectral kurtosis falls below the Gauss
 import numpy as np
 import pytest
 
-from rxlog import channelizer
 from rxlog.config import config_from_text
+from rxlog.receive import channelizer
 from rxlog.sim.iq import SimulatedReceiver, simulate_iq
 from rxlog.sim.spectra import SpectralRun
 from rxlog.timeutil import parse_iso

@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from rxlog import channelizer
 from rxlog.config import config_from_text
+from rxlog.receive import sweep
 from rxlog.sim.cells import cell_layout
 from rxlog.sim.spectra import simulate_spectra
 from rxlog.timeutil import parse_iso
@@ -41,7 +41,7 @@ def cells(tmp_path_factory):
 
 def test_gamma_shape_is_the_channelizers_count_of_independent_samples(cells):
     cfg, _, k = cells
-    np.testing.assert_allclose(k, channelizer.samples_per_cell(cfg))
+    np.testing.assert_allclose(k, sweep.samples_per_cell(cfg))
     assert k.min() > 100     # a 1-s cell of a 2.4 MS/s sweep averages hundreds of samples
 
 

@@ -15,21 +15,22 @@ import string
 import tempfile
 from pathlib import Path
 
+import hostile_inputs as H
 import numpy as np
 import pytest
+from archive_helpers import T_NIGHT
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-import hostile_inputs as H
-from archive_helpers import T_NIGHT
 from rxlog import validate
-from rxlog.archive import ingest_fits, read_spectrum_fits
-from rxlog.channelizer import Channelizer, ingest_recording
+from rxlog.archive.ingest import ingest_fits, ingest_recording
+from rxlog.archive.read import read_spectrum_fits
 from rxlog.config import SCHEMA, ConfigError, load_config
 from rxlog.errors import RxlogError
 from rxlog.exchange.columns import COLUMN_NAMES, HEADER
 from rxlog.exchange.importer import read_event_list
-from rxlog.sweep import SweepPlan
+from rxlog.receive.channelizer import Channelizer
+from rxlog.receive.sweep import SweepPlan
 from rxlog.timeutil import parse_iso
 
 SETTINGS = dict(deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])

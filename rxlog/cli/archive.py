@@ -6,6 +6,7 @@ import click
 
 from rxlog.cli.base import station_command
 
+
 @station_command("prune")
 def prune_command(cfg):
     """Delete archived spectra older than [storage] retention_days.
@@ -18,7 +19,7 @@ def prune_command(cfg):
     Example:
       rxlog prune --config station.toml
     """
-    from rxlog.archive import prune
+    from rxlog.archive.prune import prune
 
     days = cfg["storage"]["retention_days"]
     deleted = prune(cfg.archive_dir, days)

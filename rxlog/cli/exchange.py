@@ -6,7 +6,15 @@ from pathlib import Path
 
 import click
 
-from rxlog.cli.base import TIME_HELP, UserError, friendly_errors, main, parse_time_option, renamed, station_command
+from rxlog.cli.base import (
+    TIME_HELP,
+    UserError,
+    friendly_errors,
+    main,
+    parse_time_option,
+    renamed,
+    station_command,
+)
 
 
 @station_command("export")

@@ -8,7 +8,13 @@ from pathlib import Path
 import click
 
 from rxlog import validate
-from rxlog.cli.base import TIME_HELP, UserError, parse_time_option, renamed, station_command
+from rxlog.cli.base import (
+    TIME_HELP,
+    UserError,
+    parse_time_option,
+    renamed,
+    station_command,
+)
 from rxlog.timeutil import iso
 
 FITS_SUFFIXES = (".fits", ".fit", ".fits.gz", ".fit.gz")
@@ -16,7 +22,7 @@ FITS_SUFFIXES = (".fits", ".fit", ".fits.gz", ".fit.gz")
 
 def _kind(path: Path, raw_format: str | None) -> str:
     """'fits', 'sigmf', 'raw', or a UserError saying what the file should have been."""
-    from rxlog.receiver import _sigmf_paths
+    from rxlog.receive.recordings import sigmf_paths
 
     if not path.is_file():
         raise UserError(f"{path}: no such file")
@@ -25,7 +31,7 @@ def _kind(path: Path, raw_format: str | None) -> str:
     with open(path, "rb") as fh:
         if fh.read(9) == b"SIMPLE  =":        # FITS Standard 4.0, 4.4.1.1: the first card
             return "fits"
-    if _sigmf_paths(path) is not None:
+    if sigmf_paths(path) is not None:
         return "sigmf"
     if raw_format:
         return "raw"
@@ -92,14 +98,14 @@ def ingest(cfg, paths, fmt, rate_msps, center_mhz, start):
                         "a centre frequency in MHz")
     for path, kind in kinds:
         if kind == "fits":
-            from rxlog.archive import ingest_fits
+            from rxlog.archive.ingest import ingest_fits
 
             for s in ingest_fits(cfg, path):
                 click.echo(f"{s.path}: segment {s.segment}, {iso(s.t0)} to {iso(s.t_end)}, {s.n_time} spectra "
                            f"every {s.cadence_s:g} s, {s.n_chan} channels {s.fmin_hz / 1e6:.3f}-"
                            f"{s.fmax_hz / 1e6:.3f} MHz")
             continue
-        from rxlog.channelizer import ingest_recording
+        from rxlog.archive.ingest import ingest_recording
 
         with click.progressbar(length=1, label=path.name, file=sys.stderr) as bar:
             def progress(done, total):

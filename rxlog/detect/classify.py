@@ -13,8 +13,14 @@ import math
 from dataclasses import dataclass
 
 from rxlog.detect.drift import ah_drift
-from rxlog.detect.settings import (SBURST_DRIFT, SBURST_MAX_CADENCE_S, STORM_TEXTURE, TYPE2_DRIFT, TYPE3_FACTOR,
-                                   Settings)
+from rxlog.detect.settings import (
+    SBURST_DRIFT,
+    SBURST_MAX_CADENCE_S,
+    STORM_TEXTURE,
+    TYPE2_DRIFT,
+    TYPE3_FACTOR,
+    Settings,
+)
 
 Verdict = tuple[str, float, str]
 

@@ -20,7 +20,6 @@ from rxlog.detect.grid import Grid
 from rxlog.detect.impulses import Storm
 from rxlog.detect.settings import Settings
 
-
 # ------------------------------------------------------------------------------------
 # Bursts (the fine path, and SumThreshold lines)
 # ------------------------------------------------------------------------------------

@@ -30,7 +30,13 @@ import numpy as np
 
 from rxlog.detect.classify import classify
 from rxlog.detect.episodes import Episodes
-from rxlog.detect.events import LongEventPieces, TagsFn, event_record, feature_tags, sky_context
+from rxlog.detect.events import (
+    LongEventPieces,
+    TagsFn,
+    event_record,
+    feature_tags,
+    sky_context,
+)
 from rxlog.detect.mask import add_hours
 from rxlog.detect.segment import Segment
 from rxlog.detect.settings import Settings

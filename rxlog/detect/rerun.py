@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from typing import Callable
 
-from rxlog.archive import archive_extent, read_archive
+from rxlog.archive.read import archive_extent, read_archive
 from rxlog.detect.events import TagsFn
 from rxlog.detect.online import OnlineDetector, latest
 from rxlog.detect.settings import Settings

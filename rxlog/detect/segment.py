@@ -36,7 +36,13 @@ from rxlog.detect.grid import segment_grid
 from rxlog.detect.impulses import Impulses
 from rxlog.detect.mask import SegmentMask, always_masked, kurtosis_flags
 from rxlog.detect.settings import LINE_MIN_MHZ, Settings
-from rxlog.spectrum import FLAG_GAP, FLAG_RETUNE, FLAG_RFI, FLAG_UNCOVERED, DynamicSpectrum
+from rxlog.spectrum import (
+    FLAG_GAP,
+    FLAG_RETUNE,
+    FLAG_RFI,
+    FLAG_UNCOVERED,
+    DynamicSpectrum,
+)
 
 BAD_FLAGS = FLAG_GAP | FLAG_UNCOVERED | FLAG_RETUNE
 

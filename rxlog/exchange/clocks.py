@@ -17,7 +17,14 @@ import numpy as np
 from scipy.sparse.csgraph import connected_components
 
 from rxlog.constants import MAD_TO_SIGMA
-from rxlog.exchange.timing import N_CLS, SIGMA, SYSTEMATIC, Events, clock_time, member_sigma
+from rxlog.exchange.timing import (
+    N_CLS,
+    SIGMA,
+    SYSTEMATIC,
+    Events,
+    clock_time,
+    member_sigma,
+)
 
 # An offset matters when it is larger than half of a typical 1-s archive cadence and
 # significant (3 sigma): beyond that, events and spectra of different stations no

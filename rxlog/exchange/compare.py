@@ -37,7 +37,14 @@ from pathlib import Path
 import numpy as np
 
 from rxlog.errors import RxlogError
-from rxlog.exchange.clocks import FLAG_OFFSET_S, FLAG_SIGMAS, Solution, clock_fit, reference_stations, relative_to
+from rxlog.exchange.clocks import (
+    FLAG_OFFSET_S,
+    FLAG_SIGMAS,
+    Solution,
+    clock_fit,
+    reference_stations,
+    relative_to,
+)
 from rxlog.exchange.importer import EventList, read_event_list
 from rxlog.exchange.lightcurves import load_spectra, refine_lags
 from rxlog.exchange.matching import candidates, group_events, pair_offsets

@@ -22,8 +22,18 @@ import numpy as np
 
 from rxlog import __version__
 from rxlog.errors import RxlogError
-from rxlog.exchange.columns import (COLUMN_NAMES, COLUMNS, FORMAT_NAME, FORMAT_VERSION, FORMATS, HEADER, KIND,
-                                    cell_text, export_row, station_header)
+from rxlog.exchange.columns import (
+    COLUMN_NAMES,
+    COLUMNS,
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    FORMATS,
+    HEADER,
+    KIND,
+    cell_text,
+    export_row,
+    station_header,
+)
 from rxlog.fileio import write_atomic
 from rxlog.store import EventStore
 
@@ -91,7 +101,14 @@ def _json_bytes(header: dict, rows: list[dict]) -> bytes:
 
 def _votable_bytes(header: dict, rows: list[dict]) -> bytes:
     # Loaded only for VOTables: astropy.io.votable takes a second or more to import.
-    from astropy.io.votable.tree import Field, Info, Param, Resource, TableElement, VOTableFile
+    from astropy.io.votable.tree import (
+        Field,
+        Info,
+        Param,
+        Resource,
+        TableElement,
+        VOTableFile,
+    )
 
     vo = VOTableFile(version="1.4")
     res = Resource()

@@ -418,7 +418,9 @@ def check_xml_safe(data: bytes, where: str):
 
 
 def _read_votable(p: Path, data: bytes):
-    from astropy.io import votable  # loaded only for VOTables: it takes a second or more to import
+    from astropy.io import (
+        votable,  # loaded only for VOTables: it takes a second or more to import
+    )
 
     check_xml_safe(data, str(p))
     problems = _Problems(str(p))

@@ -30,7 +30,7 @@ LC_MIN_CORR = 0.3          # mean normalised correlation at the peak to accept a
 def load_spectra(spectra, names: list[str], notices: list[str]) -> dict[int, list]:
     """station name -> list of DynamicSpectrum (or FITS paths / folders of them) -> by station index."""
     # Loaded only when spectra are given: the archive brings astropy.io.fits, slow to import.
-    from rxlog.archive import read_spectrum_fits
+    from rxlog.archive.read import read_spectrum_fits
 
     out: dict[int, list] = {}
     for name, items in (spectra or {}).items():

@@ -13,7 +13,14 @@ import xml.etree.ElementTree as ET
 from pathlib import Path
 
 from rxlog.errors import RxlogError
-from rxlog.exchange.columns import COLUMNS, HEADER, cell_text, export_row, one_line, station_header
+from rxlog.exchange.columns import (
+    COLUMNS,
+    HEADER,
+    cell_text,
+    export_row,
+    one_line,
+    station_header,
+)
 from rxlog.exchange.export import events_from_store
 from rxlog.fileio import write_atomic
 from rxlog.store import CLASSES

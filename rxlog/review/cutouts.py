@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from rxlog.archive import read_spectrum_fits
+from rxlog.archive.read import read_spectrum_fits
 from rxlog.errors import RxlogError
 from rxlog.review.data import DISPLAY_FLAGS, add_rows, display_channels
 

@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.sparse import csr_matrix
 
-from rxlog.archive import archive_extent, read_archive
+from rxlog.archive.read import archive_extent, read_archive
 from rxlog.errors import RxlogError
 from rxlog.review.night import Night, night_of, night_starting
 from rxlog.spectrum import FLAG_GAP, FLAG_RFI, FLAG_UNCOVERED

@@ -29,7 +29,13 @@ from rxlog.fileio import write_atomic
 from rxlog.forecast import forecast_windows
 from rxlog.review.cutouts import read_cutout
 from rxlog.review.data import default_night, freq_bins, read_night
-from rxlog.review.night import Night, night_events, night_starting, parse_night, report_dir
+from rxlog.review.night import (
+    Night,
+    night_events,
+    night_starting,
+    parse_night,
+    report_dir,
+)
 from rxlog.review.page import event_image_name, render_page
 from rxlog.review.plots import plot_cml_io, plot_overview
 from rxlog.review.summary import JOVIAN, format_summary, night_summary

@@ -35,8 +35,14 @@ import threading
 from http.server import ThreadingHTTPServer
 
 from rxlog.errors import RxlogError
-from rxlog.review.connections import (MAX_HANDLERS, MAX_WAITING, REQUEST_TIMEOUT_S, SLOT_WAIT_S,
-                                      WRITE_TIMEOUT_S, Lobby)
+from rxlog.review.connections import (
+    MAX_HANDLERS,
+    MAX_WAITING,
+    REQUEST_TIMEOUT_S,
+    SLOT_WAIT_S,
+    WRITE_TIMEOUT_S,
+    Lobby,
+)
 from rxlog.review.handler import ReviewHandler
 from rxlog.review.labels import NightLabels
 from rxlog.review.night import Night, report_dir

@@ -15,9 +15,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rxlog import channelizer, sweep
 from rxlog.constants import K_B
 from rxlog.errors import RxlogError
+from rxlog.receive import channelizer, sweep
 from rxlog.sim.model import SkyModel
 from rxlog.sim.render import Grid, render
 from rxlog.timeutil import iso

@@ -22,7 +22,7 @@ import scipy.fft
 from scipy.special import ndtri
 
 from rxlog.errors import RxlogError
-from rxlog.receiver import EndOfStream, SampleBlock, _segment_id, to_complex64
+from rxlog.receive.blocks import EndOfStream, SampleBlock, segment_id, to_complex64
 from rxlog.sim.cells import calibrate_injections, cell_layout, system_psd_per_kelvin
 from rxlog.sim.interference import Impulses, Spur, check_rfi_category
 from rxlog.sim.model import SkyModel
@@ -333,7 +333,7 @@ class SimulatedReceiver:
     def _new_segment(self) -> None:
         self._n_segments += 1
         t = self.start_unix + self._count / self.rate_hz
-        self.segment = _segment_id("sim", t, self._n_segments)
+        self.segment = segment_id("sim", t, self._n_segments)
 
     def _model_for(self, t: float) -> None:
         """A sky model for the day ahead from ``t`` (events are planned per UTC day, so

@@ -34,10 +34,27 @@ from rxlog.errors import RxlogError
 from rxlog.sim.antenna import RECEIVER_NOISE_K, bandpass, dipole_beam, p372_temperature
 from rxlog.sim.events import DAY_S, EVENT_CLASSES, Event, Site
 from rxlog.sim.galaxy import GALACTIC_P372, galactic_background
-from rxlog.sim.interference import (MANMADE_P372, check_rfi_category, inject_rfi, manmade_noise, plan_rfi_day,
-                                    plan_spurs)
-from rxlog.sim.ionosphere import d_absorption_db, f2_transmission, fof2_mhz, sec_layer, solar_r12
-from rxlog.sim.sources import inject_natural, plan_solar_day, plan_storms, storm_from_schedule
+from rxlog.sim.interference import (
+    MANMADE_P372,
+    check_rfi_category,
+    inject_rfi,
+    manmade_noise,
+    plan_rfi_day,
+    plan_spurs,
+)
+from rxlog.sim.ionosphere import (
+    d_absorption_db,
+    f2_transmission,
+    fof2_mhz,
+    sec_layer,
+    solar_r12,
+)
+from rxlog.sim.sources import (
+    inject_natural,
+    plan_solar_day,
+    plan_storms,
+    storm_from_schedule,
+)
 from rxlog.sky.tags import station_tags
 from rxlog.spectrum import channel_grid
 from rxlog.timeutil import parse_iso

@@ -11,7 +11,7 @@ import numpy as np
 
 # Writing simulated spectra as an archive is the one place the simulator reaches the
 # archive's stage above it; the archive never imports the simulator.
-from rxlog import archive
+from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 from rxlog.errors import RxlogError
 from rxlog.sim.interference import check_rfi_category
 from rxlog.sim.iq import SimulatedReceiver
@@ -57,7 +57,7 @@ def write_simulation(cfg, start_unix: float, hours: float, out, iq: bool = False
     done = 0
     if out.suffix.lower() in (".fits", ".fit", ".fts"):
         spec, truth = simulate_spectra(cfg, start_unix, hours, seed=seed, rfi=rfi)
-        path = archive.write_spectrum_fits(spec, out, station, lossless=lossless)
+        path = write_spectrum_fits(spec, out, station, lossless=lossless)
         truth_path = out.with_name(out.stem + ".truth.csv")
         done = spec.n_time
         if progress:
@@ -65,7 +65,7 @@ def write_simulation(cfg, start_unix: float, hours: float, out, iq: bool = False
     else:
         path = out
         run = iter_spectra(cfg, start_unix, hours, seed=seed, rfi=rfi)
-        with archive.ArchiveWriter(out, station, lossless=lossless) as w:
+        with ArchiveWriter(out, station, lossless=lossless) as w:
             for spec in run:
                 w.write(spec)
                 done += spec.n_time

@@ -29,7 +29,13 @@ import numpy as np
 
 from rxlog.constants import AU_M
 from rxlog.sky.jupiter import earth_from_jupiter, light_time
-from rxlog.sky.timescales import J2000_JD, J2000_UNIX, tai_minus_utc, tt_days, ut1_minus_utc
+from rxlog.sky.timescales import (
+    J2000_JD,
+    J2000_UNIX,
+    tai_minus_utc,
+    tt_days,
+    ut1_minus_utc,
+)
 
 NODE_STEP_S = 43200.0               # ERFA node spacing for interpolation (12 h)
 

@@ -13,8 +13,18 @@ import numpy as np
 
 from rxlog.errors import RxlogError
 from rxlog.sky.jupiter import cml3_deg, io_phase_deg
-from rxlog.sky.positions import earth_rotation, interpolated, refraction_deg, site_alt_az
-from rxlog.sky.regions import DEFAULT_REGION_BOXES, regions_from_boxes, regions_from_config, source_region
+from rxlog.sky.positions import (
+    earth_rotation,
+    interpolated,
+    refraction_deg,
+    site_alt_az,
+)
+from rxlog.sky.regions import (
+    DEFAULT_REGION_BOXES,
+    regions_from_boxes,
+    regions_from_config,
+    source_region,
+)
 from rxlog.sky.timescales import check_times, tai_minus_utc, tt_days
 from rxlog.timeutil import iso
 

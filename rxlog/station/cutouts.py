@@ -8,7 +8,7 @@ import datetime as dt
 import time
 from pathlib import Path
 
-from rxlog.archive import write_spectrum_fits
+from rxlog.archive.write import write_spectrum_fits
 from rxlog.detect.cutout import refine_with_cutout
 from rxlog.timeutil import parse_iso
 

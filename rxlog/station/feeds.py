@@ -11,13 +11,13 @@ import logging
 import math
 import time
 
-from rxlog.channelizer import Channelizer
-from rxlog.receiver import EndOfStream
-from rxlog.station.sources import open_source
+from rxlog.receive.blocks import EndOfStream
+from rxlog.receive.channelizer import Channelizer
+from rxlog.receive.sweep import Sweeper, SweepPlan
 from rxlog.sim.spectra import iter_spectra
 from rxlog.spectrum import DynamicSpectrum
 from rxlog.station.clock import Clock
-from rxlog.sweep import Sweeper, SweepPlan
+from rxlog.station.sources import open_source
 
 log = logging.getLogger("rxlog")
 

@@ -16,7 +16,8 @@ from typing import Callable
 
 import numpy as np
 
-from rxlog.archive import ArchiveWriter, prune
+from rxlog.archive.prune import prune
+from rxlog.archive.write import ArchiveWriter
 from rxlog.detect.online import OnlineDetector
 from rxlog.errors import RxlogError
 from rxlog.spectrum import DynamicSpectrum

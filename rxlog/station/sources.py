@@ -12,7 +12,9 @@ import os
 from pathlib import Path
 
 from rxlog.errors import RxlogError
-from rxlog.receiver import RtlSdrSource, RtlTcpSource, open_recording
+from rxlog.receive.devices import RtlSdrSource
+from rxlog.receive.recordings import open_recording
+from rxlog.receive.rtltcp import RtlTcpSource
 from rxlog.sim.iq import SimulatedReceiver
 
 

@@ -12,7 +12,7 @@ import math
 import sqlite3
 import time
 
-from rxlog import archive
+from rxlog.archive.read import archive_hours, file_spans
 from rxlog.errors import RxlogError
 from rxlog.station.health import disk_free_mb, running_logger
 from rxlog.timeutil import iso, parse_iso
@@ -111,9 +111,9 @@ def _archive_status(cfg, now: float) -> dict:
     rest of the status still answers."""
     now_hour = int(now // 3600)
     try:
-        hours = archive.archive_hours(cfg.archive_dir)
-        recent = archive.file_spans(cfg.archive_dir, now_hour - 24, None) if hours else []
-        newest = archive.file_spans(cfg.archive_dir, hours[-1], hours[-1]) if hours and not recent else recent
+        hours = archive_hours(cfg.archive_dir)
+        recent = file_spans(cfg.archive_dir, now_hour - 24, None) if hours else []
+        newest = file_spans(cfg.archive_dir, hours[-1], hours[-1]) if hours and not recent else recent
         error = None
     except (RxlogError, OSError) as e:
         hours, recent, newest, error = [], [], [], str(e)

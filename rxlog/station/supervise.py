@@ -43,7 +43,7 @@ import time
 from dataclasses import dataclass
 
 from rxlog.errors import RxlogError
-from rxlog.receiver import EndOfStream
+from rxlog.receive.blocks import EndOfStream
 from rxlog.retry import DoublingWait
 from rxlog.spectrum import DynamicSpectrum
 from rxlog.station import health as hl

@@ -20,6 +20,9 @@ so a dwell never starts before its planned offset (it may start up to one buffer
 
 ``mode = "single"``: one fixed window (``center_hz``), rows straight from the channelizer
 at the highest time resolution, for S-burst work.
+
+``samples_per_cell(cfg)``: the independent power samples behind each archived cell, the
+sweep's duty cycle included.
 """
 
 from __future__ import annotations
@@ -30,9 +33,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rxlog.channelizer import MIN_ROW_FILL, Channelizer, Dwell, Ring, header_safe
 from rxlog.errors import RxlogError
-from rxlog.receiver import EndOfStream, _segment_id
+from rxlog.receive.blocks import EndOfStream, segment_id
+from rxlog.receive.channelizer import MIN_ROW_FILL, Channelizer, Dwell, header_safe
+from rxlog.receive.ring import Ring
 from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED, DynamicSpectrum, channel_grid
 
 
@@ -169,6 +173,24 @@ def _assign(grid, tunings, rate_hz, ch: Channelizer) -> np.ndarray:
     return best
 
 
+def samples_per_cell(cfg, center_hz: float | None = None, rate_hz: float | None = None) -> np.ndarray:
+    """Independent power samples behind each archived cell, per channel (0: not covered).
+
+    Accounts for the window (correlation of neighbouring FFT bins, which sets the
+    equivalent noise bandwidth), frame overlap (Welch 1967), how many bins fall in a
+    channel, and in sweep mode the duty cycle: only the dwell of a channel's tuning,
+    once per sweep cycle, contributes. For Gaussian noise a cell's linear power is
+    mean × Gamma(K)/K with K this number.
+    """
+    rate = float(cfg["receiver"]["sample_rate_hz"] if rate_hz is None else rate_hz)
+    plan = SweepPlan.from_config(cfg, rate)
+    ch = Channelizer(cfg, ring_s=0)
+    if plan.mode == "single" or center_hz is not None:
+        c = plan.tunings_hz[0] if center_hz is None else float(center_hz)
+        return ch.samples_per_cell(c, rate)
+    return plan.samples_per_cell(ch)
+
+
 class Sweeper:
     """Runs a sweep plan on a source: stitched rows on the channel grid with ``chan_offset_s``.
 
@@ -227,7 +249,7 @@ class Sweeper:
     def _new_segment(self) -> None:
         """Each opening of the source starts a segment (gain and rate are set at open)."""
         self._n_segments += 1
-        self.segment = _segment_id("sweep", getattr(self.source, "realtime", time.time)(), self._n_segments)
+        self.segment = segment_id("sweep", getattr(self.source, "realtime", time.time)(), self._n_segments)
 
     # -- running
     def spectra(self, max_rows: int | None = None):
@@ -428,4 +450,4 @@ def config_problems(cfg: dict, at) -> list[str]:
     return problems
 
 
-__all__ = ["SweepPlan", "Sweeper", "plan_for", "config_problems"]
+__all__ = ["SweepPlan", "Sweeper", "plan_for", "samples_per_cell", "config_problems"]

@@ -32,15 +32,15 @@ Spectral kurtosis (Nita & Gary 2010, PASP 122, 595): from the M frames of a row,
 bin, S1 = sum P and S2 = sum P^2; SK = (M+1)/(M-1) (M S2 / S1^2 - 1), expectation 1 for
 Gaussian noise, 0 for a steady carrier, above 1 for intermittent signals. With overlapping
 frames only every (1/(1 - overlap))-th frame is used, so the M frames are independent.
-Each channel reports the mean SK of its bins.
+Each channel reports the mean SK of its bins (the estimator: ``rxlog.receive.kurtosis``).
 
 A short ring of high-time-resolution spectra (``ring_s``, rows of at most
-``ring_resolution_s``) lets the detector cut out an event at full resolution.
+``ring_resolution_s``; ``rxlog.receive.ring``) lets the detector cut out an event at full
+resolution.
 """
 
 from __future__ import annotations
 
-import itertools
 import math
 from dataclasses import dataclass
 
@@ -49,7 +49,9 @@ import scipy.fft
 import scipy.signal
 
 from rxlog.errors import RxlogError
-from rxlog.receiver import FORMATS, SampleBlock
+from rxlog.receive.blocks import FORMATS, SampleBlock
+from rxlog.receive.kurtosis import spectral_kurtosis
+from rxlog.receive.ring import Ring
 from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED, DynamicSpectrum, channel_grid
 
 WINDOWS = ("hann", "hamming", "blackman", "blackmanharris", "boxcar")
@@ -67,27 +69,6 @@ def header_safe(meta: dict) -> dict:
     """Drop values a FITS header cannot hold (NaN, None): an unknown gain is simply absent."""
     return {k: v for k, v in meta.items()
             if v is not None and not (isinstance(v, float) and not math.isfinite(v))}
-
-
-def spectral_kurtosis(s1, s2, m, n: int = 1, d: float = 1.0):
-    """Generalised spectral kurtosis estimator (Nita & Gary 2010, MNRAS 406, L60, eq. 8).
-
-    ``s1``, ``s2``: sums of M power values and of their squares, each power itself the
-    sum of ``n`` FFT powers (n = 1: single frames, the PASP 122, 595 form);
-    ``d`` = 1 for complex voltages. Expectation 1 for Gaussian noise; the scatter for
-    n = 1 is sqrt(4 M^2 / ((M - 1)(M + 2)(M + 3))) (PASP 122, 595).
-    """
-    s1 = np.asarray(s1, dtype=np.float64)
-    m = np.asarray(m, dtype=np.float64)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return (m * n * d + 1) / (m - 1) * (m * np.asarray(s2, dtype=np.float64) / (s1 * s1) - 1)
-
-
-def sk_sigma(m) -> np.ndarray:
-    """Standard deviation of SK for Gaussian noise from M single-frame powers (Nita & Gary 2010, PASP)."""
-    m = np.asarray(m, dtype=np.float64)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.sqrt(4 * m * m / ((m - 1) * (m + 2) * (m + 3)))
 
 
 def get_window(name: str, n: int) -> np.ndarray:
@@ -175,59 +156,6 @@ def make_channel_map(freq_hz: np.ndarray, center_hz: float, rate_hz: float, fft_
     k, ch = k[sort], ch[sort]
     chans, starts, counts = np.unique(ch, return_index=True, return_counts=True)
     return ChannelMap(k, starts, counts.astype(np.float64), chans, freq_hz.size)
-
-
-class Ring:
-    """The last ``seconds`` of high-time-resolution spectra (float16 dB), for event cutouts."""
-
-    def __init__(self, seconds: float, row_s: float, freq_hz: np.ndarray, chans: np.ndarray, segment: str,
-                 meta: dict | None = None):
-        self.row_s = float(row_s)
-        self.freq_hz = np.asarray(freq_hz)
-        self.chans = np.asarray(chans)
-        self.segment = segment
-        self.meta = dict(meta or {})
-        self.capacity = max(1, int(math.ceil(seconds / row_s)))
-        self._t = np.full(self.capacity, np.nan)
-        self._db = np.full((self.capacity, self.chans.size), np.nan, dtype=np.float16)
-        self._next = 0
-        self.rows = 0
-
-    def push(self, t: np.ndarray, db: np.ndarray) -> None:
-        t = np.asarray(t, dtype=np.float64)
-        if t.size == 0:
-            return
-        if t.size > self.capacity:
-            t, db = t[-self.capacity:], db[-self.capacity:]
-        idx = (self._next + np.arange(t.size)) % self.capacity
-        self._t[idx] = t
-        self._db[idx] = db
-        self._next = int((self._next + t.size) % self.capacity)
-        self.rows = min(self.capacity, self.rows + t.size)
-
-    @property
-    def span(self) -> tuple[float, float] | None:
-        """(first, end) time held, or None when empty."""
-        if not self.rows:
-            return None
-        return float(np.nanmin(self._t)), float(np.nanmax(self._t)) + self.row_s
-
-    def cutout(self, t_start: float, t_end: float) -> DynamicSpectrum | None:
-        """Rows starting in [t_start, t_end) on a regular grid (missing rows NaN, FLAG_GAP)."""
-        sel = np.flatnonzero((self._t >= t_start) & (self._t < t_end))
-        if sel.size == 0:
-            return None
-        sel = sel[np.argsort(self._t[sel])]
-        t = self._t[sel]
-        pos = np.round((t - t[0]) / self.row_s).astype(np.int64)
-        n = int(pos[-1]) + 1
-        power = np.full((n, self.freq_hz.size), np.nan, dtype=np.float32)
-        flags = np.full((n, self.freq_hz.size), FLAG_UNCOVERED, dtype=np.uint8)
-        flags[:, self.chans] = FLAG_GAP
-        power[np.ix_(pos, self.chans)] = self._db[sel].astype(np.float32)
-        flags[np.ix_(pos, self.chans)] = 0
-        return DynamicSpectrum(power, float(t[0]), self.row_s, self.freq_hz, flags, segment=self.segment,
-                               meta=dict(self.meta, resolution="ring"))
 
 
 class Channelizer:
@@ -566,75 +494,6 @@ class Channelizer:
             self.ring.push(times[full], db)
 
 
-def samples_per_cell(cfg, center_hz: float | None = None, rate_hz: float | None = None) -> np.ndarray:
-    """Independent power samples behind each archived cell, per channel (0: not covered).
-
-    Accounts for the window (correlation of neighbouring FFT bins, which sets the
-    equivalent noise bandwidth), frame overlap (Welch 1967), how many bins fall in a
-    channel, and in sweep mode the duty cycle: only the dwell of a channel's tuning,
-    once per sweep cycle, contributes. For Gaussian noise a cell's linear power is
-    mean × Gamma(K)/K with K this number.
-    """
-    from rxlog import sweep
-
-    rate = float(cfg["receiver"]["sample_rate_hz"] if rate_hz is None else rate_hz)
-    plan = sweep.SweepPlan.from_config(cfg, rate)
-    ch = Channelizer(cfg, ring_s=0)
-    if plan.mode == "single" or center_hz is not None:
-        c = plan.tunings_hz[0] if center_hz is None else float(center_hz)
-        return ch.samples_per_cell(c, rate)
-    return plan.samples_per_cell(ch)
-
-
-def spectra_from_recording(cfg, path, progress=None, *, fmt=None, rate_hz=None, center_hz=None, start=None,
-                           chunk_samples: int = 1 << 20):
-    """Dynamic spectra of a recording on the station's channel grid and cadence (an iterator).
-
-    ``path``: SigMF (``.sigmf-meta``/``.sigmf-data``) or a raw file with ``fmt``,
-    ``rate_hz``, ``center_hz`` and ``start``. Each SigMF capture with its own tuning is a
-    segment. ``progress(done, total)`` is called with samples read so far. The file is
-    mapped one chunk (``chunk_samples``) at a time, so memory stays flat.
-    """
-    from rxlog.receiver import EndOfStream, open_recording
-
-    rec = open_recording(path, fmt=fmt, rate_hz=rate_hz, center_hz=center_hz, start=start)
-    ch = Channelizer(cfg, ring_s=0)
-    _check_reaches_band(rec, ch, cfg)
-    meta = rec.meta()
-    total, done = rec.n_samples, 0
-    with rec:
-        while True:
-            try:
-                c = rec.read_raw(chunk_samples)
-            except EndOfStream:
-                break
-            pieces = ch.feed_samples(c.data, c.t0, c.center_hz, c.rate_hz, rec.gain_db, c.segment,
-                                     c.dropped_before, fmt=c.fmt, meta=meta)
-            done += c.n
-            del c                        # unmaps the chunk
-            yield from pieces
-            if progress is not None:
-                progress(done, total)
-        yield from ch.flush()
-
-
-def _check_reaches_band(rec, ch: Channelizer, cfg) -> None:
-    """Every tuning of a recording must feed some channel of the station grid: one that
-    feeds none would give nothing at all, which is an error in its description (or the
-    wrong recording), not a short file."""
-    sp = cfg["spectra"]
-    for cap in rec.captures:
-        if ch.channel_map(cap.center_hz, rec.rate_hz).chans.size == 0:
-            half = ch.usable_fraction * rec.rate_hz / 2
-            lo, hi = cap.center_hz - half, cap.center_hz + half
-            covers = (f"{rec.source}: {cap.label} {cap.center_hz / 1e6:.6g} MHz at {rec.rate_hz:g} samples/s "
-                      f"covers {lo / 1e6:.6g} to {hi / 1e6:.6g} MHz")
-            if lo < sp["fmax_mhz"] * 1e6 and hi > sp["fmin_mhz"] * 1e6:
-                raise RxlogError(f"{covers}, too narrow to leave a usable FFT bin beyond [sweep] dc_cut_hz "
-                                 f"({ch.dc_cut_hz:g} Hz either side of the centre, the DC spike)")
-            raise RxlogError(f"{covers}, outside the station band {sp['fmin_mhz']:g}-{sp['fmax_mhz']:g} MHz "
-                             "([spectra] fmin_mhz, fmax_mhz)")
-
 
 class Dwell:
     """Power and SK integrated over one dwell at a fixed tuning (the sweeper's unit of work).
@@ -693,43 +552,3 @@ class Dwell:
                 sk[m.chans] = m.to_channels(spectral_kurtosis(s1, self.k2, self.km))
         return power, sk, self.m
 
-
-@dataclass
-class RecordingSummary:
-    """What ``ingest_recording`` stored."""
-
-    path: str
-    segments: list
-    t0: float
-    t_end: float
-    rows: int
-    duration_s: float
-
-
-def ingest_recording(cfg, path, progress=None, *, fmt=None, rate_hz=None, center_hz=None, start=None,
-                     chunk_samples: int = 1 << 20) -> RecordingSummary:
-    """Channelize a recording onto the station grid and append it to the station archive.
-
-    The same channelizer as the live logger (``[sweep]`` FFT settings, ``[spectra]`` grid
-    and cadence); each tuning of the recording is a segment of its own. The recording's
-    description is checked whole before a sample is read (``open_recording``, and every
-    tuning must reach the station band), and the spectra are stored all or nothing
-    (``rxlog.archive.staged_writer``): a refused or failed recording leaves the archive
-    as it was.
-    """
-    from rxlog.archive import staged_writer
-
-    segments, rows, t0, t_end = [], 0, math.inf, -math.inf
-    spectra = spectra_from_recording(cfg, path, progress, fmt=fmt, rate_hz=rate_hz, center_hz=center_hz,
-                                     start=start, chunk_samples=chunk_samples)
-    first = next(spectra, None)          # open and check the recording before staging anything
-    if first is None:
-        raise RxlogError(f"{path}: too short for one {cfg['spectra']['cadence_s']:g}-s spectrum; nothing stored")
-    with staged_writer(cfg) as w:
-        for ds in itertools.chain([first], spectra):
-            w.write(ds)
-            rows += ds.n_time
-            t0, t_end = min(t0, ds.t0), max(t_end, ds.t_end)
-            if ds.segment not in segments:
-                segments.append(ds.segment)
-    return RecordingSummary(str(path), segments, t0, t_end, rows, t_end - t0)
