@@ -5,6 +5,10 @@ Truth rows are measured on the archive grid (noise-free): ``peak_excess_db`` is
 a fadeout), the background being the sky, the man-made noise and the receiver without
 any event. Events that stay below 0.01 dB (a carrier whose path is closed, a burst with
 its source near the horizon) have no row.
+
+Interference rows name their kind (``rfi_kind``: one of ``events.RFI_KINDS``); sky rows
+name the true episode they belong to (``episode``, an id; ``episode_kind``: one of
+``events.EPISODE_KINDS``) and, for a flare's episodes, the ``sequence`` they share.
 """
 
 from __future__ import annotations
@@ -19,7 +23,8 @@ from rxlog.sim.model import NODE_S, SkyModel
 from rxlog.timeutil import iso
 
 TRUTH_FIELDS = ("station", "event_id", "class", "start_utc", "end_utc", "peak_utc", "fmin_mhz", "fmax_mhz",
-                "peak_excess_db", "drift_mhz_s", "source_region", "reason")
+                "peak_excess_db", "drift_mhz_s", "source_region", "rfi_kind", "episode", "episode_kind", "sequence",
+                "reason")
 MIN_TRUTH_DB = 0.01
 
 
@@ -44,7 +49,8 @@ def truth_rows(model: SkyModel, peaks: dict, start: float, end: float) -> list[d
                      "fmax_mhz": round(float(min(e.f_hi, model.fmax)) / 1e6, 6),
                      "peak_excess_db": round(db, 3),
                      "drift_mhz_s": None if math.isnan(e.drift_mhz_s) else round(float(e.drift_mhz_s), 4),
-                     "source_region": e.region, "reason": e.reason})
+                     "source_region": e.region, "rfi_kind": e.rfi_kind, "episode": e.episode,
+                     "episode_kind": e.episode_kind, "sequence": e.sequence, "reason": e.reason})
     rows.sort(key=lambda r: (r["start_utc"], r["fmin_mhz"]))
     for k, r in enumerate(rows):
         r["event_id"] = f"sim-{model.name}-{k + 1:05d}"
