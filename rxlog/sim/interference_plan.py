@@ -145,7 +145,7 @@ def plan_spurs(rng, start: float, end: float, site: Site, level) -> list[Event]:
 DAYTIME = [1] * 7 + [4] * 14 + [1] * 3          # transmitters and operators: busiest 07-21 h
 WAKING = [0.3] * 6 + [1] * 17 + [0.5]           # the neighbours' appliances: any hour, fewest at night
 EVENING = [0] * 16 + [1] * 4 + [0] * 4          # lights go on 16-20 h
-NIGHT = [2] * 5 + [0.3] * 14 + [2] * 5           # distant storms heard best 19-05 h (no D-layer absorption)
+NIGHT = [2] * 5 + [0.1] * 14 + [2] * 5           # distant storms heard 19-05 h (no D-layer absorption)
 AFTERNOON = [0] * 12 + [2, 3, 3, 2, 1, 1] + [0] * 6   # local summer thunderstorms 12-18 h
 
 BROADCAST_SHARE = 0.15      # of a broadcast band's 5-kHz channels that carry some station that day
@@ -297,15 +297,16 @@ def _site_sounders(rng, t_day, site, level):
 
 
 def _summer(t: float, lat_deg: float) -> float:
-    """1 at the local midsummer (about 21 June in the north), 0 at midwinter."""
+    """How far into the warm half of the year: 1 at the local midsummer (about 21 June in
+    the north), 0 from the autumn to the spring equinox."""
     doy = (t / 86400.0) % 365.2425           # from 1 January 1970
-    north = 0.5 * (1 + math.cos(2 * math.pi * (doy - 171.0) / 365.2425))
-    return north if lat_deg >= 0 else 1.0 - north
+    north = math.cos(2 * math.pi * (doy - 171.0) / 365.2425)
+    return max(0.0, north if lat_deg >= 0 else -north)
 
 
 def _site_sferics(rng, t_day, site, t_ref):
     """Sferics of thunderstorms, mostly at night (the D layer no longer absorbs distant
-    storms) and on summer afternoons (local convection). A storm is active 0.5-4 h and
+    storms) and on summer afternoons (local convection). A storm is active 0.5-3 h and
     flashes at a peak rate of 2-10 a minute, rising and falling over its life. A flash is
     1 + Poisson(2.5) return strokes ~80 ms apart (3-5 strokes a flash, interstroke
     intervals of tens of ms: Rakov & Uman 2003, *Lightning: Physics and Effects*, ch. 4;
@@ -319,7 +320,7 @@ def _site_sferics(rng, t_day, site, t_ref):
     out = []
     width = 1e-3
     for t0 in starts:
-        d = float(_log_uniform(rng, 1800, 14400))
+        d = float(_log_uniform(rng, 1800, 10800))
         peak_rate = rng.uniform(2, 10) / 60.0
         near = rng.lognormal(0.0, 0.7)                     # a nearer or farther storm
         n = rng.poisson(peak_rate * d * 2 / math.pi)       # rate ~ sin(pi x) over the storm's life
