@@ -11,9 +11,11 @@ import pytest
 
 from rxlog.config import config_from_text
 from rxlog.sim.events import RFI_KINDS, Site
+from rxlog.sim.interference import switched_noise
 from rxlog.sim.interference_plan import plan_site_day
 from rxlog.sim.render import render
 from rxlog.sim.spectra import SpectralRun
+from rxlog.sim.truth import interference_share
 from rxlog.timeutil import parse_iso
 
 DAY = parse_iso("2027-01-19T00:00:00Z")
@@ -211,3 +213,16 @@ def test_every_interference_truth_row_names_its_kind_and_every_sky_row_its_episo
         [("solar_iii", "group", "type_iii_group", "flare", "")] * 2 + [("solar_iv", "iv", "type_iv", "flare", "")]
     (iv,) = [r for r in sky if r["class"] == "solar_iv"]
     assert parse_iso(iv["end_utc"]) - parse_iso(iv["start_utc"]) == pytest.approx(7200.0, abs=1.0)
+
+
+def test_interference_share_counts_the_cells_interference_lifts_by_over_1_db(day):
+    run = SpectralRun(day.cfg, DAY + 43200, 1.0, seed=SEED, rfi="quiet-rural", include=(), noise=False)
+    assert interference_share(run)["share"] == 0.0                  # the man-made floor is no interference
+    site = run.model.site
+    # 6 dB over the whole band for the first quarter of the hour
+    step = switched_noise("test step", run.start, run.start + 900, run.model.broadband_ref() * 3, 2.5, site)
+    run.model.events.append(step)
+    got = interference_share(run)
+    assert got["share"] == pytest.approx(0.25, abs=1 / 3600)
+    assert list(got["hours"]) == [DAY + 43200]
+    assert interference_share(run, stride=4)["share"] == pytest.approx(0.25, abs=0.01)
