@@ -5,6 +5,7 @@ filter with its cable ripple, and the receiver's own noise.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -43,6 +44,13 @@ def flux_to_kelvin(s_sfu, f_hz, zenith_deg):
     return s_sfu * SFU * ae / (2 * K_B) * dipole_beam(zenith_deg)
 
 
+@functools.lru_cache(maxsize=64)
+def _ripple(station_seed: int) -> tuple[float, float]:
+    """Period (Hz) and phase of a station's cable ripple, drawn once per station."""
+    rng = np.random.default_rng([station_seed, 11])
+    return float(rng.uniform(4e6, 6e6)), float(rng.uniform(0, 2 * np.pi))
+
+
 def bandpass(f_hz, fmin_hz: float, fmax_hz: float, station_seed: int):
     """H(f): the station's 4th-order Butterworth band-pass (band edges +-0.5 MHz) times
     a cable ripple of +-0.4 dB (standing wave of a ~20 m feedline, velocity 0.66);
@@ -53,8 +61,6 @@ def bandpass(f_hz, fmin_hz: float, fmax_hz: float, station_seed: int):
     bw = hi - lo
     x = (f / f0 - f0 / np.maximum(f, 1.0)) * f0 / bw
     h = 1.0 / (1.0 + x ** 8)
-    rng = np.random.default_rng([station_seed, 11])
-    period = rng.uniform(4e6, 6e6)
-    ph = rng.uniform(0, 2 * np.pi)
+    period, ph = _ripple(station_seed)
     ripple_db = 0.4 * np.sin(2 * np.pi * f / period + ph) + 0.15 * np.sin(2 * np.pi * f / (period / 2.7) + 2 * ph)
     return h * 10 ** (ripple_db / 10)
