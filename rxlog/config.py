@@ -99,8 +99,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                 help="recording: SigMF, or the sample format of a raw file"),
         "recording_center_hz": Key(NUMBER, 0.0, min=0, max=2e9, help="recording (raw): centre frequency, Hz"),
         "recording_start_utc": Key(str, "", help="recording (raw): ISO 8601 UTC time of the first sample"),
-        "sim_rfi": Key(str, "rural", choices=("quiet-rural", "rural", "residential", "city"),
-                       help="simulated: man-made noise category (ITU-R P.372) and its local interference"),
+        "sim_rfi": Key(str, "rural", choices=("quiet-rural", "rural", "residential", "city", "site"),
+                       help="simulated: man-made noise category (ITU-R P.372) and its local interference, "
+                            "or site: a quiet club site with every kind of interference"),
         "sim_seed": Key(int, 0, min=0, help="simulated: seed of the simulated sky and noise (same seed, same sky)"),
     },
     "spectra": {

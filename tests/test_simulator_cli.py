@@ -10,6 +10,7 @@ from click.testing import CliRunner
 from rxlog.archive import read_archive, read_spectrum_fits
 from rxlog.cli import main
 from rxlog.receiver import open_recording
+from rxlog.sim.events import RFI_KINDS
 from rxlog.timeutil import parse_iso
 
 CONFIG = """
@@ -77,3 +78,18 @@ def test_bad_options_are_one_line_and_exit_2(tmp_path):
         r = CliRunner().invoke(main, ["simulate", "--config", cfg, "--out", str(tmp_path / "x")] + args)
         assert r.exit_code == 2, r.output
         assert "Traceback" not in r.output and len(r.output.strip().splitlines()) == 1
+
+
+def test_simulate_site_writes_every_interference_kind_into_the_truth(tmp_path):
+    cfg = _cfg(tmp_path)
+    # local evening at 47.5 N in January: sounders, broadcasters fading out, the computer's spurs
+    r = CliRunner().invoke(main, ["simulate", "--config", cfg, "--start", "2027-01-19T15:00:00Z", "--hours", "0.5",
+                                  "--out", str(tmp_path / "site.fits"), "--rfi", "site", "--seed", "1"])
+    assert r.exit_code == 0, r.output
+    with open(tmp_path / "site.truth.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    kinds = {row["rfi_kind"] for row in rows if row["class"] == "rfi"}
+    assert {"sweep", "carrier", "spur"} <= kinds <= set(RFI_KINDS)
+    r = CliRunner().invoke(main, ["simulate", "--config", cfg, "--start", "2027-01-19T15:00:00Z", "--hours", "0.1",
+                                  "--out", str(tmp_path / "x.fits"), "--rfi", "suburb"])
+    assert r.exit_code == 2 and "site" in r.output

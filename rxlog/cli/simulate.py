@@ -17,20 +17,22 @@ from rxlog.cli.base import TIME_HELP, UserError, parse_time_option, station_comm
               help="Spectra: a folder (archive layout) or a .fits file; --iq: the SigMF base name.")
 @click.option("--iq", is_flag=True, help="Write IQ samples (SigMF, cu8) at one tuning instead of spectra.")
 @click.option("--seed", type=click.IntRange(min=0), help="Same seed, same sky and noise (default: [receiver] sim_seed).")
-@click.option("--rfi", type=click.Choice(["quiet-rural", "rural", "residential", "city"]),
-              help="Man-made noise category (ITU-R P.372) and the local interference that goes with it "
-                   "(default: [receiver] sim_rfi).")
+@click.option("--rfi", type=click.Choice(["quiet-rural", "rural", "residential", "city", "site"]),
+              help="Interference: a man-made noise category (ITU-R P.372) and the local interference that goes "
+                   "with it, or site: a quiet club site with every kind at once (sferics, switched appliance "
+                   "noise, voice and data bursts, broadcasters, sounders, spurs) (default: [receiver] sim_rfi).")
 @click.option("--center-mhz", type=float, metavar="MHZ", help="--iq: the tuning (default: middle of the band).")
 def simulate_command(cfg, start, hours, out, iq, seed, rfi, center_mhz):
     """Simulate what the station would record, and write down what was put in the sky.
 
     Writes FITS dynamic spectra in the archive's layout (or one .fits file), or with
     --iq a SigMF recording, plus a truth CSV (class, start_utc, end_utc, peak_utc,
-    fmin_mhz, fmax_mhz, peak_excess_db, drift_mhz_s, ...) beside it.
+    fmin_mhz, fmax_mhz, peak_excess_db, drift_mhz_s, rfi_kind, episode, ...) beside it.
 
     \b
     Examples:
       rxlog simulate --config station.toml --start 2026-12-01T18:00:00Z --hours 12 --out night
+      rxlog simulate --config station.toml --start 2027-01-20 --hours 24 --rfi site --out day
       rxlog simulate --config station.toml --start 2026-12-01T22:00:00Z --hours 0.005 --iq \\
           --center-mhz 20.1 --out iq/test
     """

@@ -11,6 +11,15 @@ from dataclasses import dataclass, field
 import numpy as np
 
 EVENT_CLASSES = ("jovian_l", "jovian_s", "solar_iii", "solar_ii", "solar_iv", "fadeout", "rfi")
+# What a reviewer sees as one story: a storm, a group of Type III bursts, a Type II, a
+# Type IV continuum, a fadeout, or one burst on its own. Episodes of one flare share a
+# sequence.
+EPISODE_KINDS = ("jovian_storm", "type_iii_group", "type_ii", "type_iv", "fadeout", "isolated_burst")
+# Interference by how it looks in a dynamic spectrum: one broadband impulse, a train or
+# bunch of them (a multiple-stroke sferic, a fence, arcing), a narrowband transmission
+# that comes and goes (voice, data), a step of broadband noise (an appliance switched
+# on), a swept transmitter, a steady or scheduled carrier, a spur of the station itself.
+RFI_KINDS = ("impulse", "impulse_train", "narrowband_burst", "switched_broadband", "sweep", "carrier", "spur")
 DAY_S = 86400.0             # events are planned per UTC day
 
 
@@ -27,6 +36,10 @@ class Event:
     source: str = "sun"         # 'sun', 'jupiter', 'skywave' (distant transmitter), 'local'
     reason: str = ""
     region: str = ""
+    rfi_kind: str = ""          # interference: one of RFI_KINDS
+    episode: str = ""           # sky events: the true episode they belong to (an id) ...
+    episode_kind: str = ""      # ... its kind (EPISODE_KINDS) ...
+    sequence: str = ""          # ... and the flare sequence it is part of ("" when none)
     scale: float = 1.0
     # area actually drawn (wider than the truth extent)
     r_t0: float = 0.0

@@ -199,10 +199,12 @@ class IQGenerator:
             w = max(1, int(round(e.params["width"] * self.rate)))
             sigma = math.sqrt(h * e.scale * e.params["t_imp"] * self.psd_per_k * self.rate * 0.5) * \
                 (127.5 if self.cu8 else 1.0)
-            for tp in times[a:b]:                  # a few pulses per block at most
-                i = int((tp - t_start) * self.rate)
+            weights = e.params.get("weights")
+            for k in range(a, b):                  # a few pulses per block at most
+                i = int((times[k] - t_start) * self.rate)
                 seg = y[i:i + w]
-                seg += (rng.standard_normal(seg.size) + 1j * rng.standard_normal(seg.size)).astype(np.complex64) * sigma
+                amp = sigma if weights is None else sigma * math.sqrt(weights[k])
+                seg += (rng.standard_normal(seg.size) + 1j * rng.standard_normal(seg.size)).astype(np.complex64) * amp
 
     def read(self, n: int) -> np.ndarray:
         """The next ``n`` samples: uint8 interleaved I/Q (cu8) or complex64 (full scale 1)."""

@@ -32,12 +32,12 @@ import numpy as np
 
 from rxlog.errors import RxlogError
 from rxlog.sim.antenna import RECEIVER_NOISE_K, bandpass, dipole_beam, p372_temperature
-from rxlog.sim.events import DAY_S, EVENT_CLASSES, Event, Site
+from rxlog.sim.events import DAY_S, EPISODE_KINDS, EVENT_CLASSES, Event, Site
 from rxlog.sim.galaxy import GALACTIC_P372, galactic_background
-from rxlog.sim.interference import (MANMADE_P372, check_rfi_category, inject_rfi, manmade_noise, plan_rfi_day,
-                                    plan_spurs)
+from rxlog.sim.interference import MANMADE_FLOOR, check_rfi_category, inject_rfi, manmade_noise
+from rxlog.sim.interference_plan import plan_rfi_day, plan_spurs
 from rxlog.sim.ionosphere import d_absorption_db, f2_transmission, fof2_mhz, sec_layer, solar_r12
-from rxlog.sim.sources import inject_natural, plan_solar_day, plan_storms, storm_from_schedule
+from rxlog.sim.sources import inject_natural, mark_episode, plan_solar_day, plan_storms, storm_from_schedule
 from rxlog.sky.tags import station_tags
 from rxlog.spectrum import channel_grid
 from rxlog.timeutil import parse_iso
@@ -145,7 +145,7 @@ class SkyModel:
 
     def typical_background(self, f_hz):
         """A time-independent background (K) for sizing levels: P.372 Galactic + man-made + receiver."""
-        c, d = MANMADE_P372[self.rfi]
+        c, d = MANMADE_FLOOR[self.rfi]
         return (p372_temperature(f_hz, *GALACTIC_P372) + p372_temperature(f_hz, c, d)) * self.bandpass(f_hz) + RECEIVER_NOISE_K
 
     def level_khz(self, fc, excess_db):
@@ -153,6 +153,11 @@ class SkyModel:
         background of an archive channel."""
         df = self.freq_hz[1] - self.freq_hz[0]
         return float(self.typical_background(fc)) * 10 ** (excess_db / 10) * df / 1e3 / float(self.bandpass(fc))
+
+    def broadband_ref(self) -> float:
+        """The typical background at 20 MHz referred to the antenna (K): broadband
+        interference is sized against it."""
+        return float(self.typical_background(20e6)) / float(self.bandpass(20e6))
 
     def background_rows(self, t_rows, f_hz):
         """Galactic (through the ionosphere) and man-made background (K) at row times,
@@ -212,7 +217,7 @@ class SkyModel:
                                   self.event_rate, self.seed, self.site)
             if "rfi" in self.include:
                 ev += plan_rfi_day(np.random.default_rng([self.seed, self.sid, day, 36]), t_day, self.rfi,
-                                   self.site, self.level_khz)
+                                   self.site, self.level_khz, self.broadband_ref())
         if jupiter_schedule is not None:
             ev += [storm_from_schedule(i, s, self.seed, self.site) for i, s in enumerate(jupiter_schedule)]
         if "rfi" in self.include:
@@ -255,11 +260,15 @@ class SkyModel:
         """An explicit event from ``dict(class=..., t=POSIX s or ISO, peak_excess_db=...)``.
 
         Optional keys: fmin_mhz/fmax_mhz (Type III start/end frequencies), drift_mhz_s
-        (Type II at 20 MHz, ionosonde), duration_s (Jovian storm, carrier), kind
-        ('carrier': a local transmitter, 'impulse', 'chirp': a distant ionosonde, for class
-        rfi). The event is placed as asked; its amplitude is set so the peak excess over
-        the background equals ``peak_excess_db`` on the archive grid (negative for a
-        fadeout). A solar burst needs the Sun up, a storm Jupiter, a chirp an open path.
+        (Type II at 20 MHz, ionosonde), duration_s (Jovian storm, Type II, Type IV -- then
+        a plateau --, fadeout, carrier), split_mhz and patchy (Type II: band-split lanes,
+        patchy emission), kind ('carrier': a local transmitter, 'impulse', 'chirp': a
+        distant ionosonde, for class rfi); for sky events episode (an id: events given one
+        id are one true episode), episode_kind (one of EPISODE_KINDS; by default the
+        class's: a solar_iii alone is an isolated_burst) and sequence (a flare's id). The
+        event is placed as asked; its amplitude is set so the peak excess over the
+        background equals ``peak_excess_db`` on the archive grid (negative for a fadeout).
+        A solar burst needs the Sun up, a storm Jupiter, a chirp an open path.
         """
         cls, t, x = _injection(spec)
         rng = np.random.default_rng([self.seed, int(t), 38])
@@ -269,6 +278,11 @@ class SkyModel:
             e = inject_natural(cls, spec, rng, t, self.site)
         if e is None:
             raise RxlogError(f"inject {cls}: the event falls outside the band")
+        if cls != "rfi":
+            kind = spec.get("episode_kind", e.episode_kind)
+            if kind not in EPISODE_KINDS:
+                raise RxlogError(f"inject {cls}: episode_kind {kind!r}: expected one of {', '.join(EPISODE_KINDS)}")
+            mark_episode([e], kind, t, episode=str(spec.get("episode", "")), sequence=str(spec.get("sequence", "")))
         e.params["target_db"] = x
         e.reason = "injected " + e.reason
         return e

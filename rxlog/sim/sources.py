@@ -16,7 +16,7 @@ from rxlog.errors import RxlogError
 from rxlog.sim.antenna import flux_to_kelvin
 from rxlog.sim.events import DAY_S, Event, Site, random_times
 from rxlog.sim.ionosphere import solar_r12
-from rxlog.timeutil import parse_iso
+from rxlog.timeutil import iso, parse_iso
 
 # Alvarez & Haddock (1973, Solar Physics 29, 197): Type III drift df/dt = -0.01 f^1.84
 # (MHz/s, f in MHz), applied here to the time of peak intensity at each frequency.
@@ -69,7 +69,9 @@ def _edge(f, lo, hi, soft=0.04):
 
 
 class TypeII(Event):
-    """Slow-drift solar burst: fundamental and harmonic lanes f = f0 exp(-(t - t0)/Ts)."""
+    """Slow-drift solar burst: fundamental and harmonic lanes f = f0 exp(-(t - t0)/Ts),
+    optionally each split in two parallel lanes ``split`` x f apart (band splitting) and
+    patchy (emission in patches of ~10 s and a few hundred kHz along the lane)."""
 
     def lanes(self, t):
         p = self.params
@@ -79,20 +81,40 @@ class TypeII(Event):
     def shape(self, t, f, dwell, df):
         p = self.params
         ff, fh = self.lanes(t)
-        lane = p["sf"] * np.exp(-0.5 * ((f - ff) / (p["w"] * ff)) ** 2) + \
-            p["sh"] * np.exp(-0.5 * ((f - fh) / (p["w"] * fh)) ** 2)
+        if p.get("split"):
+            lane = p["sf"] * _split_lane(f, ff, p["w"], p["split"]) + p["sh"] * _split_lane(f, fh, p["w"], p["split"])
+        else:
+            lane = p["sf"] * np.exp(-0.5 * ((f - ff) / (p["w"] * ff)) ** 2) + \
+                p["sh"] * np.exp(-0.5 * ((f - fh) / (p["w"] * fh)) ** 2)
         x = t - p["t0"]
         env = np.clip(x / 30.0, 0, 1) * np.exp(-np.clip(x - 30.0, 0, None) / p["decay"]) * (x < p["dur"])
         mod = _smooth_mod(t, p["periods"], p["phases"], 0.6)
+        if p.get("patch") is not None:        # patches ride on the lane: indexed by log(f / lane)
+            near = np.where(np.abs(f - ff) < np.abs(f - fh), np.log(f / ff), np.log(f / fh))
+            mod = mod * _bilinear(p["patch"], x / PATCH_DT_S, (near + PATCH_HALF) / PATCH_DX)
         return flux_to_kelvin(1.0, f, 0.0) * lane * env * mod
 
 
+def _split_lane(f, fl, w, split):
+    """Two parallel lanes at fl (1 +- split / 2), each of relative rms width ``w``."""
+    up, lo = fl * (1 + split / 2), fl * (1 - split / 2)
+    return 0.5 * (np.exp(-0.5 * ((f - up) / (w * up)) ** 2) + np.exp(-0.5 * ((f - lo) / (w * lo)) ** 2))
+
+
+# Patchy Type II emission: a patch field on 5-s x 0.005 (relative frequency) cells,
+# smoothed over two cells each way, over +-30 % of the lane frequency.
+PATCH_DT_S, PATCH_DX, PATCH_HALF = 5.0, 0.005, 0.3
+
+
 class TypeIV(Event):
-    """Broadband solar continuum: rise over minutes, decay over tens of minutes."""
+    """Broadband solar continuum: rise over minutes, optionally a plateau of ``hold`` s,
+    decay over tens of minutes."""
 
     def shape(self, t, f, dwell, df):
         p = self.params
         x = t - p["t0"]
+        if p.get("hold"):
+            x = x - np.clip(x - p["rise"], 0.0, p["hold"])       # the plateau holds the peak
         env = np.where(x < p["rise"], 0.5 * (1 - np.cos(np.pi * np.clip(x, 0, None) / p["rise"])),
                        np.exp(-np.clip(x - p["rise"], 0, None) / p["decay"]))
         env = env * (x >= 0)
@@ -191,9 +213,20 @@ def plan_type3(rng, t_day, per_day, site: Site):
     for tg in random_times(rng, t_day, rng.poisson(per_day)):
         n = 1 + rng.poisson(3)
         level = _powerlaw(rng, 1.8, 100.0, 1e5)
-        for tb in tg + np.sort(rng.uniform(0, rng.uniform(10, 180), n)):
-            out.append(make_type3(rng, tb, level * rng.lognormal(0, 0.5), site))
+        group = [make_type3(rng, tb, level * rng.lognormal(0, 0.5), site)
+                 for tb in tg + np.sort(rng.uniform(0, rng.uniform(10, 180), n))]
+        group = [e for e in group if e is not None]
+        mark_episode(group, "type_iii_group" if len(group) > 1 else "isolated_burst", tg)
+        out += group
     return out
+
+
+def mark_episode(events, kind: str, t: float, episode: str = "", sequence: str = ""):
+    """Mark ``events`` as one true episode of ``kind`` (``episode`` id, by default the kind
+    and the time ``t``), part of the flare ``sequence`` when one is given."""
+    for e in events:
+        e.episode = episode or f"{kind} {iso(t)[:19]}Z"
+        e.episode_kind, e.sequence = kind, sequence
 
 
 def make_type3(rng, t_ref, s20, site: Site, f_start=None, f_end=None):
@@ -214,6 +247,7 @@ def make_type3(rng, t_ref, s20, site: Site, f_start=None, f_end=None):
     e.r_t1 = float(e.t_peak(lo) + 7 * e.tau(lo))
     e.r_f0, e.r_f1 = max(lo * 0.85, site.fmin - 2e6), min(hi * 1.15, site.fmax + 2e6)
     e.drift_mhz_s = -AH_A * (0.5 * (lo + hi) / 1e6) ** AH_B
+    mark_episode([e], "isolated_burst", t_ref)
     return e
 
 
@@ -223,15 +257,23 @@ def plan_type2(rng, t_day, per_day, site: Site):
             for t in random_times(rng, t_day, rng.poisson(per_day))]
 
 
-def make_type2(rng, t0, s_f, site: Site, drift20=None, f0=None):
+def make_type2(rng, t0, s_f, site: Site, drift20=None, f0=None, duration=None, split_mhz=None, patchy=False):
     """A Type II burst from ``t0``: lanes of ``s_f`` sfu starting at f0 (Hz), drifting at
-    drift20 (MHz/s at 20 MHz; both drawn when not given); None when it misses the band."""
+    drift20 (MHz/s at 20 MHz; both drawn when not given), lasting ``duration`` s (drawn,
+    3-15 min, when not given); with ``split_mhz`` each lane is split in two that far apart
+    at 20 MHz, each a third of that wide (rms); ``patchy``: emission in patches. None when
+    it misses the band."""
     drift20 = drift20 if drift20 is not None else -math.exp(rng.uniform(math.log(0.03), math.log(0.4)))
     ts = 20.0 / abs(drift20)
     f0 = f0 if f0 is not None else rng.uniform(12e6, 40e6)
     dur = rng.uniform(180, 900)
+    dur = dur if duration is None else float(duration)
     p = dict(t0=t0, ts=ts, f0=f0, sf=s_f, sh=s_f * rng.uniform(0.3, 1.0), w=0.035, dur=dur,
              decay=dur / 2, periods=rng.uniform(20, 120, 3), phases=rng.uniform(0, 2 * np.pi, 3))
+    if split_mhz:
+        p.update(split=split_mhz / 20.0, w=split_mhz / 20.0 / 3)
+    if patchy:
+        p["patch"] = _scintillation(rng, int(dur / PATCH_DT_S) + 8, int(2 * PATCH_HALF / PATCH_DX) + 2, 2.0, 2.0)
     e = TypeII("solar_ii", 0, 0, 0, 0, source="sun", params=p, reason=f"Type II, {s_f:.0f} sfu")
     tt = np.linspace(t0, t0 + dur, 400)
     ff, fh = e.lanes(tt)
@@ -245,6 +287,9 @@ def make_type2(rng, t0, s_f, site: Site, drift20=None, f0=None):
     e.r_t0, e.r_t1 = t0, t0 + dur
     e.r_f0, e.r_f1 = site.fmin - 2e6, site.fmax + 2e6
     e.drift_mhz_s = -0.5 * (e.f_lo + e.f_hi) / 1e6 / ts
+    if split_mhz:                            # the split lanes reach beyond the lane centres
+        e.f_lo, e.f_hi = e.f_lo * (1 - p["split"] / 2), e.f_hi * (1 + p["split"] / 2)
+    mark_episode([e], "type_ii", t0)
     return e
 
 
@@ -254,15 +299,22 @@ def plan_type4(rng, t_day, per_day, site: Site):
             for t in random_times(rng, t_day, rng.poisson(per_day))]
 
 
-def make_type4(rng, t0, s20, site: Site):
-    """A Type IV continuum of ``s20`` sfu at 20 MHz from ``t0``."""
+def make_type4(rng, t0, s20, site: Site, duration=None):
+    """A Type IV continuum of ``s20`` sfu at 20 MHz from ``t0``; given a ``duration`` (s),
+    it holds its peak after the rise and decays over 10 min (e-folding) to end there (a
+    tenth of the peak)."""
     rise, decay = rng.uniform(300, 900), rng.uniform(1200, 5400)
     p = dict(t0=t0, rise=rise, decay=decay, s20=s20, alpha=rng.uniform(-1, 1),
              periods=rng.uniform(60, 600, 3), phases=rng.uniform(0, 2 * np.pi, 3))
-    e = TypeIV("solar_iv", t0, t0 + rise + decay * math.log(10), site.fmin, site.fmax, source="sun",
+    if duration is not None:
+        p["decay"] = decay = 600.0
+        p["hold"] = max(0.0, float(duration) - rise - decay * math.log(10))
+    hold = p.get("hold", 0.0)
+    e = TypeIV("solar_iv", t0, t0 + rise + hold + decay * math.log(10), site.fmin, site.fmax, source="sun",
                params=p, reason=f"Type IV continuum, {s20:.0f} sfu")
-    e.r_t1 = t0 + rise + 7 * decay
+    e.r_t1 = t0 + rise + hold + 7 * decay
     e.r_f0, e.r_f1 = site.fmin - 2e6, site.fmax + 2e6
+    mark_episode([e], "type_iv", t0)
     return e
 
 
@@ -272,14 +324,18 @@ def plan_fadeouts(rng, t_day, per_day, site: Site):
             for t in random_times(rng, t_day, rng.poisson(per_day))]
 
 
-def make_fadeout(rng, t0, a20, site: Site):
-    """A fadeout from ``t0`` with ``a20`` dB of extra vertical absorption at 20 MHz at its depth."""
+def make_fadeout(rng, t0, a20, site: Site, duration=None):
+    """A fadeout from ``t0`` with ``a20`` dB of extra vertical absorption at 20 MHz at its
+    depth; given a ``duration`` (s), it recovers (to a tenth of its depth) by then."""
     rise, decay = rng.uniform(120, 600), rng.uniform(600, 2400)
+    if duration is not None:
+        decay = max(60.0, float(duration) - rise) / math.log(10)
     p = dict(t0=t0, rise=rise, decay=decay, a20=a20)
     e = Fadeout("fadeout", t0, t0 + rise + decay * math.log(10), site.fmin, site.fmax, source="sun",
                 params=p, reason=f"short-wave fadeout, {a20:.1f} dB vertical at 20 MHz")
     e.r_t1 = t0 + rise + 9 * decay
     e.r_f0, e.r_f1 = 0.0, 1e12
+    mark_episode([e], "fadeout", t0)
     return e
 
 
@@ -349,6 +405,7 @@ def make_storm(rng, t0, t1, region, s20, s_bursts, site: Site):
     e.r_f0, e.r_f1 = site.fmin - 2e6, site.fmax + 2e6
     if s_bursts:
         e.drift_mhz_s = p["s_drift"]
+    mark_episode([e], "jovian_storm", t0)
     return e
 
 
@@ -381,10 +438,12 @@ def inject_natural(cls: str, spec: dict, rng, t: float, site: Site):
         f_end = spec.get("fmin_mhz", 5.0) * 1e6
         return make_type3(rng, t, 1.0, site, f_start=f_start, f_end=f_end)
     if cls == "solar_ii":
-        return make_type2(rng, t, 1.0, site, drift20=spec.get("drift_mhz_s"), f0=spec.get("fmax_mhz", 23.0) * 1e6)
+        return make_type2(rng, t, 1.0, site, drift20=spec.get("drift_mhz_s"), f0=spec.get("fmax_mhz", 23.0) * 1e6,
+                          duration=spec.get("duration_s"), split_mhz=spec.get("split_mhz"),
+                          patchy=bool(spec.get("patchy", False)))
     if cls == "solar_iv":
-        return make_type4(rng, t, 1.0, site)
+        return make_type4(rng, t, 1.0, site, duration=spec.get("duration_s"))
     if cls == "fadeout":
-        return make_fadeout(rng, t, 1.0, site)
+        return make_fadeout(rng, t, 1.0, site, duration=spec.get("duration_s"))
     d = float(spec.get("duration_s", 1800.0))
     return make_storm(rng, t, t + d, spec.get("region", "Io-B"), 1.0, cls == "jovian_s", site)

@@ -5,6 +5,10 @@ Truth rows are measured on the archive grid (noise-free): ``peak_excess_db`` is
 a fadeout), the background being the sky, the man-made noise and the receiver without
 any event. Events that stay below 0.01 dB (a carrier whose path is closed, a burst with
 its source near the horizon) have no row.
+
+Interference rows name their kind (``rfi_kind``: one of ``events.RFI_KINDS``); sky rows
+name the true episode they belong to (``episode``, an id; ``episode_kind``: one of
+``events.EPISODE_KINDS``) and, for a flare's episodes, the ``sequence`` they share.
 """
 
 from __future__ import annotations
@@ -15,11 +19,14 @@ from pathlib import Path
 
 import numpy as np
 
+from rxlog.sim.cells import archive_grid
 from rxlog.sim.model import NODE_S, SkyModel
+from rxlog.sim.render import render
 from rxlog.timeutil import iso
 
 TRUTH_FIELDS = ("station", "event_id", "class", "start_utc", "end_utc", "peak_utc", "fmin_mhz", "fmax_mhz",
-                "peak_excess_db", "drift_mhz_s", "source_region", "reason")
+                "peak_excess_db", "drift_mhz_s", "source_region", "rfi_kind", "episode", "episode_kind", "sequence",
+                "reason")
 MIN_TRUTH_DB = 0.01
 
 
@@ -44,7 +51,8 @@ def truth_rows(model: SkyModel, peaks: dict, start: float, end: float) -> list[d
                      "fmax_mhz": round(float(min(e.f_hi, model.fmax)) / 1e6, 6),
                      "peak_excess_db": round(db, 3),
                      "drift_mhz_s": None if math.isnan(e.drift_mhz_s) else round(float(e.drift_mhz_s), 4),
-                     "source_region": e.region, "reason": e.reason})
+                     "source_region": e.region, "rfi_kind": e.rfi_kind, "episode": e.episode,
+                     "episode_kind": e.episode_kind, "sequence": e.sequence, "reason": e.reason})
     rows.sort(key=lambda r: (r["start_utc"], r["fmin_mhz"]))
     for k, r in enumerate(rows):
         r["event_id"] = f"sim-{model.name}-{k + 1:05d}"
@@ -59,6 +67,36 @@ def _open_path(model, e, t0, t1):
     if not ok.any():
         return t0, t1
     return float(t[ok][0]), float(min(t1, t[ok][-1] + NODE_S / 4))
+
+
+def interference_share(run, threshold_db: float = 1.0, stride: int = 1) -> dict:
+    """The share of a run's cells that its interference lifts by more than ``threshold_db``
+    over the sky without it: the noise-free model drawn with every event and with the sky
+    events only, on the archive grid's covered channels. The man-made noise floor (ITU-R
+    P.372) is in both: it is the site's background, not something a mask could take.
+
+    ``run``: a ``SpectralRun``. ``stride``: draw every stride-th row only (an unbiased
+    estimate, ``stride`` times faster). Returns dict(share=..., hours={start of each UTC
+    hour (POSIX s): share of that hour's cells}).
+    """
+    model, layout = run.model, run.layout
+    sky = [e for e in model.events if e.cls != "rfi"]
+    hours: dict[float, list[int]] = {}
+    step = run.chunk_rows * max(1, int(stride))
+    for i0 in range(0, run.n_rows, step):
+        g = archive_grid(model, layout, run.start, run.cadence, i0, min(run.n_rows, i0 + step))
+        g.times = g.times[::max(1, int(stride))]
+        every, _ = render(model, g)
+        without, _ = render(model, g, events=sky)
+        up = (10 * np.log10(every[:, layout.covered] / without[:, layout.covered]) > threshold_db).sum(axis=1)
+        hour = np.floor(g.times / 3600.0) * 3600.0
+        for h in np.unique(hour):
+            acc = hours.setdefault(float(h), [0, 0])
+            acc[0] += int(up[hour == h].sum())
+            acc[1] += int((hour == h).sum()) * int(layout.covered.sum())
+    lifted = sum(a for a, _ in hours.values())
+    cells = sum(n for _, n in hours.values())
+    return {"share": lifted / max(cells, 1), "hours": {h: a / n for h, (a, n) in sorted(hours.items())}}
 
 
 def write_truth_csv(rows: list[dict], path) -> Path:
