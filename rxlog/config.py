@@ -22,7 +22,11 @@ from pathlib import Path
 from typing import Any, Callable
 
 from rxlog import validate
-from rxlog.detect.settings import DEFAULT_STATIC_RANGES, check_static_ranges
+from rxlog.detect.settings import (
+    DEFAULT_STATIC_RANGES,
+    band_problems,
+    check_static_ranges,
+)
 from rxlog.receive import devices, sweep
 from rxlog.sky import regions as _regions
 
@@ -146,10 +150,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "ring_resolution_s": Key(NUMBER, 0.002, min=1e-5, max=60, help="single: time step of the full-resolution spectra, seconds"),
     },
     "rfi": {
-        # Defaults: ITU Radio Regulations allocations in and near 16-24 MHz (from memory), see rxlog/detect/settings.py
+        # Default: the 20-MHz time-signal allocation only; the rest is learned (rxlog/detect/settings.py)
         "static_ranges": Key(list, DEFAULT_STATIC_RANGES, check=check_static_ranges,
-                             help="Always-masked ranges: tables {fmin_mhz, fmax_mhz, hours_utc = [from, to] "
-                                  "(optional, UTC, may wrap midnight), note}"),
+                             help="Ranges masked whatever the data say: tables {fmin_mhz, fmax_mhz, "
+                                  "hours_utc = [from, to] (optional, UTC, may wrap midnight), note}"),
         "carrier_width_mhz": Key(NUMBER, 0.1, min=0.001, max=5,
                                  help="A carrier stands above the median of the channels this far either side"),
         "carrier_sigma": Key(NUMBER, 6.0, min=2, max=100,
@@ -158,6 +162,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                 help="Memory of the learned carrier list (exponential, seconds)"),
         "carrier_fraction": Key(NUMBER, 0.5, min=0.01, max=1,
                                 help="A channel that was a carrier this often in memory stays masked while it fades"),
+        "occupancy_days": Key(NUMBER, 7.0, min=0.5, max=365,
+                              help="Learned carriers by UTC hour of day: exponential memory of this many days"),
         "sumthreshold_chi1": Key(NUMBER, 7.0, min=2, max=100,
                                  help="SumThreshold (Offringa et al. 2010) single-sample threshold, noise units; "
                                       "runs of M samples use chi1 / 1.5^log2(M)"),
@@ -374,6 +380,17 @@ def _service_checks(cfg: dict, at) -> list[str]:
 
 
 CROSS_CHECKS.append(_service_checks)
+
+
+def _static_range_checks(cfg: dict, at) -> list[str]:
+    """Static ranges must reach the station's band."""
+    sp, ranges = cfg.get("spectra", {}), cfg.get("rfi", {}).get("static_ranges")
+    if not ranges or not {"fmin_mhz", "fmax_mhz"} <= sp.keys():
+        return []
+    return [f"{at('rfi', 'static_ranges')}: {p}" for p in band_problems(ranges, sp["fmin_mhz"], sp["fmax_mhz"])]
+
+
+CROSS_CHECKS.append(_static_range_checks)
 
 
 class Config(dict):

@@ -72,18 +72,66 @@ def test_carrier_found_against_neighbours_and_remembered_while_it_fades():
     rng = np.random.default_rng(1)
     n = 200
     slope = np.linspace(0, 3, n)                       # a band-pass slope is not a carrier
-    mem = mask.CarrierMemory(n, 30.0, 600.0, 0.5)       # memory: 20 blocks
+    mem = mask.Occupancy(n, 30.0, 600.0, 0.5, 7.0)      # memory: 20 blocks
     seen, kept = [], []
     for k in range(90):
         level = slope + rng.normal(0, 0.01, n)
         level[77] += 0.5 if k < 30 else 0.02           # the carrier fades away after 30 blocks
         car = mask.carrier_channels(level, np.full(n, 0.01), 10, 6.0)
-        masked = mem.update(car)
+        masked = mem.update(car, 30.0 * k)
         seen.append(car[77]); kept.append(masked[77])
         assert masked.sum() <= 2                       # nothing else is called a carrier
     assert all(seen[:30]) and not any(seen[30:])
     # remembered for a while after fading (memory 0.785 after 30 blocks, halves in ~9), then released
     assert all(kept[30:36]) and not any(kept[50:])
+
+
+def test_a_broadcaster_heard_every_evening_stays_masked_at_that_hour_while_it_fades_deeply():
+    # A channel carrying a broadcaster 18-20 UTC every evening, in deep fades half of the
+    # time in the last evening; quiet the rest of the day. After a week of evenings the
+    # hour-of-day memory masks it through its fades at 18-20 UTC, and not at night.
+    n, block = 60, 30.0
+    mem = mask.Occupancy(n, block, 3600.0, 0.5, 3.0)
+    for day in range(8):
+        for k in range(int(86400 / block)):
+            t = 86400.0 * day + block * k
+            hour = (t / 3600.0) % 24
+            on = 18 <= hour < 20
+            faded = day == 7 and on and (k // 20) % 2 == 1        # ten-minute fades on the last day
+            car = np.zeros(n, bool)
+            car[33] = on and not faded
+            got = mem.update(car, t)
+            if day == 7 and on and faded:
+                assert got[33]                                   # masked through the fade
+            if day == 7 and 2 <= hour < 4:
+                assert not got[33]                               # free at night
+    assert mem.by_hour[19, 33] > 0.5 and mem.by_hour[3, 33] < 0.01 and mem.by_hour[19, 10] == 0
+
+
+def test_what_the_mask_learned_survives_a_restart():
+    n = 40
+    a = mask.Occupancy(n, 30.0, 3600.0, 0.5, 7.0)
+    car = np.zeros(n, bool); car[5] = True
+    for k in range(500):
+        a.update(car, 30.0 * k)
+    b = mask.Occupancy(n, 30.0, 3600.0, 0.5, 7.0)
+    b.load(a.state())
+    assert np.allclose(b.recent, a.recent, atol=1e-4) and np.allclose(b.by_hour, a.by_hour, atol=1e-4)
+    assert b.update(np.zeros(n, bool), 30.0 * 500)[5]          # still masked after the restart
+    other = mask.Occupancy(n + 1, 30.0, 3600.0, 0.5, 7.0)
+    other.load(a.state())                                       # another channel grid: ignored
+    assert not other.recent.any()
+
+
+def test_overlapping_and_out_of_band_static_ranges_are_named():
+    base = {"station": {"name": "x", "latitude_deg": 1, "longitude_deg": 2}}
+    _, problems = validate(dict(base, rfi={"static_ranges": [
+        {"fmin_mhz": 17.4, "fmax_mhz": 17.9}, {"fmin_mhz": 17.8, "fmax_mhz": 18.0},
+        {"fmin_mhz": 21.0, "fmax_mhz": 21.5, "hours_utc": [6, 12]}, {"fmin_mhz": 21.2, "fmax_mhz": 21.4,
+                                                                      "hours_utc": [18, 22]}]}), "st.toml")
+    assert len(problems) == 1 and "entry 2" in problems[0] and "overlaps entry 1" in problems[0]
+    _, problems = validate(dict(base, rfi={"static_ranges": [{"fmin_mhz": 9.9, "fmax_mhz": 10.1}]}), "st.toml")
+    assert len(problems) == 1 and "entry 1" in problems[0] and "outside the band" in problems[0]
 
 
 def test_kurtosis_flags_non_gaussian_cells_only():

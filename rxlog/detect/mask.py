@@ -8,8 +8,10 @@ however the rows arrive:
 * **Carriers** found per block: a channel whose block median stands above the running
   median of its neighbours (``carrier_width_mhz`` either side) by more than
   ``carrier_sigma`` noise units. A channel that has been a carrier in more than
-  ``carrier_fraction`` of recent blocks (exponential memory of ``carrier_memory_s``) is
-  masked even while it fades: the mask *learns* the station's carriers.
+  ``carrier_fraction`` of recent blocks (exponential memory of ``carrier_memory_s``), or
+  of the blocks at this UTC hour of day over the last ``occupancy_days`` (``Occupancy``),
+  is masked even while it fades: the mask *learns* the station's carriers and their
+  schedules, channel by channel, instead of taking out whole allocations.
 * **SumThreshold** (Offringa et al. 2010, MNRAS 405, 155) on the narrowband residual
   (excess minus its running mean over neighbouring channels), along frequency and, within
   a block, along time: runs of M = 1, 2, 4, ... samples are flagged when their sum exceeds
@@ -97,22 +99,49 @@ def carrier_channels(level: np.ndarray, level_sigma: np.ndarray, width_ch: int,
     return ok & ((x - ref) > threshold_sigma * sig)
 
 
-class CarrierMemory:
-    """Exponential memory of how often each channel was a carrier, per block.
+class Occupancy:
+    """How often each channel of one channel grid carried a carrier, learned block by block.
 
-    ``update(is_carrier)`` ages the memory by one block (weight alpha = block_s /
-    memory_s) and returns the channels to mask for this block: carriers now, or
-    carriers in more than ``fraction`` of the remembered blocks.
+    Two memories, both exponential: the last ``memory_s`` seconds (a carrier that fades
+    for a few minutes stays masked), and each UTC hour of the day over ``days`` days
+    (short-wave broadcasters keep schedules, and the higher bands are open mostly by day,
+    so a channel busy every evening need not be masked at night; common practice). A
+    channel is masked in a block when it is a carrier now, or was one in more than
+    ``fraction`` of the recent blocks or of that hour's blocks. Memory: 25 floats per
+    channel, however long the station runs. ``state()`` and ``load()`` carry what was
+    learned across restarts of the logger.
     """
 
-    def __init__(self, n_chan: int, block_s: float, memory_s: float, fraction: float):
+    def __init__(self, n_chan: int, block_s: float, memory_s: float, fraction: float, days: float):
         self.alpha = min(1.0, block_s / max(memory_s, block_s))
+        # each hour of the day sees 3600 / block_s blocks a day
+        self.alpha_hour = min(1.0, block_s / max(days * 3600.0, block_s))
         self.fraction = fraction
-        self.state = np.zeros(n_chan, dtype=np.float64)
+        self.recent = np.zeros(n_chan, dtype=np.float64)
+        self.by_hour = np.zeros((24, n_chan), dtype=np.float64)
 
-    def update(self, is_carrier: np.ndarray) -> np.ndarray:
-        self.state += self.alpha * (is_carrier.astype(np.float64) - self.state)
-        return is_carrier | (self.state > self.fraction)
+    def update(self, is_carrier: np.ndarray, t_block: float) -> np.ndarray:
+        """Age both memories by one block starting at ``t_block`` (POSIX s) and return the
+        channels to mask in it."""
+        x = is_carrier.astype(np.float64)
+        h = int(t_block // 3600.0) % 24
+        self.recent += self.alpha * (x - self.recent)
+        self.by_hour[h] += self.alpha_hour * (x - self.by_hour[h])
+        return is_carrier | (self.recent > self.fraction) | (self.by_hour[h] > self.fraction)
+
+    def state(self) -> dict:
+        return {"recent": self.recent.round(4).tolist(), "by_hour": self.by_hour.round(4).tolist()}
+
+    def load(self, state: dict) -> None:
+        """Take up a ``state()`` of the same channel grid (ignored when its shape differs)."""
+        recent = np.asarray(state.get("recent", ()), dtype=np.float64)
+        by_hour = np.asarray(state.get("by_hour", ()), dtype=np.float64)
+        if recent.shape == self.recent.shape and by_hour.shape == self.by_hour.shape:
+            self.recent, self.by_hour = np.clip(recent, 0, 1), np.clip(by_hour, 0, 1)
+
+
+def new_occupancy(n_chan: int, block_s: float, s: Settings) -> Occupancy:
+    return Occupancy(n_chan, block_s, s.carrier_memory_s, s.carrier_fraction, s.occupancy_days)
 
 
 def _run_sums(y: np.ndarray, m: int, axis: int) -> np.ndarray:
@@ -229,14 +258,14 @@ class SegmentMask:
     for a whole block (carriers, persistent kurtosis), SumThreshold on the narrowband
     residual, and the hourly count of masked cells."""
 
-    def __init__(self, grid: Grid, s: Settings):
+    def __init__(self, grid: Grid, s: Settings, occupancy: Occupancy | None = None):
         self.s = s
         self.freq, self.always, self.cadence = grid.freq, grid.always, grid.cadence
         self.timed = [r for r in s.static_ranges if r.get("hours_utc") is not None]
         self.cw = max(1, int(round(s.carrier_width_mhz / grid.chan_mhz)))
         self.st_f = max(1, int(s.sumthreshold_max_mhz / grid.chan_mhz))
         self.st_t = max(1, int(s.sumthreshold_max_s / grid.cadence))
-        self.carriers = CarrierMemory(grid.n_chan, grid.block_s, s.carrier_memory_s, s.carrier_fraction)
+        self.carriers = occupancy if occupancy is not None else new_occupancy(grid.n_chan, grid.block_s, s)
         self.chan_mask: dict[int, np.ndarray] = {}
         self.quality: dict[float, list[float]] = {}
 
@@ -248,7 +277,7 @@ class SegmentMask:
         times = t0 + self.cadence * np.arange(n)
         return self.always[None, :] | static_mask(self.timed, self.freq, times)
 
-    def block_channels(self, j: int, level: np.ndarray, sigma: np.ndarray, valid: np.ndarray,
+    def block_channels(self, j: int, t_block: float, level: np.ndarray, sigma: np.ndarray, valid: np.ndarray,
                        sk: np.ndarray | None) -> np.ndarray:
         """(C,) channels masked for all of block j: carriers (from the block's ``level`` and
         ``sigma`` over its ``valid`` cells) and channels whose spectral kurtosis departs
@@ -258,7 +287,7 @@ class SegmentMask:
         nvalid = np.maximum(valid.sum(axis=0), 1)
         lvl_sigma = 1.2533 * sigma / np.sqrt(nvalid)
         car = carrier_channels(level, lvl_sigma, self.cw, self.s.carrier_sigma)
-        cmask = self.carriers.update(car)
+        cmask = self.carriers.update(car, t_block)
         if sk is not None:
             skf = kurtosis_flags(sk, valid, self.s.kurtosis_sigma)
             persistent = skf.sum(axis=0) > 0.5 * np.maximum(valid.sum(axis=0), 1)

@@ -37,12 +37,18 @@ from rxlog.detect.events import (
     feature_tags,
     sky_context,
 )
-from rxlog.detect.mask import add_hours
+from rxlog.detect.mask import Occupancy, add_hours, new_occupancy
 from rxlog.detect.segment import Segment
 from rxlog.detect.settings import Settings
 from rxlog.sky.tags import station_tags
 from rxlog.spectrum import DynamicSpectrum
 from rxlog.timeutil import iso
+
+
+def grid_key(freq_hz) -> tuple[int, float, float]:
+    """A channel grid's identity: channel count and its first and last centre (1 Hz)."""
+    f = np.asarray(freq_hz, dtype=np.float64)
+    return len(f), round(float(f[0]), 0), round(float(f[-1]), 0)
 
 
 def default_tags_fn(cfg) -> TagsFn:
@@ -74,6 +80,7 @@ class OnlineDetector:
         self.pieces = LongEventPieces(self.s.block_s, self.s.slow_window_s)
         self._quality: list[dict] = []
         self._hours: dict[float, list[float]] = {}
+        self.occupancy: dict[tuple, Occupancy] = {}    # what the mask learned, per channel grid
 
     # -- feeding -----------------------------------------------------------------------
     def feed(self, spec: DynamicSpectrum) -> list[dict]:
@@ -83,7 +90,7 @@ class OnlineDetector:
         if self.seg is not None and not self.seg.accepts(spec):
             out += self._end_segment()
         if self.seg is None:
-            self.seg = Segment(self.s, spec, self.mask_sink)
+            self.seg = Segment(self.s, spec, self.mask_sink, self._occupancy(spec))
         out += self._events(self.seg.add(spec))
         self._collect_quality(final=False)
         return out
@@ -101,6 +108,26 @@ class OnlineDetector:
         add_hours(self._hours, self.seg.mask.hours_before(math.inf))
         self.seg = None
         return out
+
+    def _occupancy(self, spec: DynamicSpectrum) -> Occupancy:
+        """The learned carriers of this channel grid, kept across segments (a retune or a
+        gap does not make the mask forget the station's broadcasters)."""
+        key = grid_key(spec.freq_hz)
+        if key not in self.occupancy:
+            self.occupancy[key] = new_occupancy(len(spec.freq_hz), self.s.block_s, self.s)
+        return self.occupancy[key]
+
+    def occupancy_state(self) -> list[dict]:
+        """What the mask has learned, per channel grid, to hand to ``load_occupancy`` after
+        a restart: dicts of channels, fmin_hz, fmax_hz, recent (C,) and by_hour (24, C)."""
+        return [{"channels": k[0], "fmin_hz": k[1], "fmax_hz": k[2], **o.state()} for k, o in self.occupancy.items()]
+
+    def load_occupancy(self, states: list[dict]) -> None:
+        for st in states:
+            key = (int(st["channels"]), float(st["fmin_hz"]), float(st["fmax_hz"]))
+            occ = new_occupancy(key[0], self.s.block_s, self.s)
+            occ.load(st)
+            self.occupancy[key] = occ
 
     def pop_episodes(self) -> list[dict]:
         return self.episodes.pop()

@@ -72,14 +72,14 @@ class BlockExcess:
 class Segment:
     """The detector's state for one segment; see the module docstring for the stages."""
 
-    def __init__(self, s: Settings, spec: DynamicSpectrum, mask_sink=None):
+    def __init__(self, s: Settings, spec: DynamicSpectrum, mask_sink=None, occupancy=None):
         self.s = s
         self.name = spec.segment
         freq = np.asarray(spec.freq_hz, dtype=np.float64)
         self.grid = g = segment_grid(spec, s.block_s, always_masked(s.static_ranges, freq),
                                      coarse_groups(freq, s.slow_freq_mhz))
         self.background = Background(g, s)
-        self.mask = SegmentMask(g, s)
+        self.mask = SegmentMask(g, s, occupancy)
         self.impulses = Impulses(g, s)
         self.fine = FinePath(g, s)
         self.lines = LinePath(g, s)
@@ -190,7 +190,7 @@ class Segment:
         self.covered |= good.any(axis=0)
         valid = good & ~self.mask.static(b.t0, n)
         level, sigma = block_stats(b.power, valid)
-        cmask = self.mask.block_channels(j, level, sigma, valid, b.sk)
+        cmask = self.mask.block_channels(j, b.t0, level, sigma, valid, b.sk)
         self.background.add_block(j, level, sigma, cmask)
 
     def _excess(self, j: int, n: int) -> BlockExcess:

@@ -13,11 +13,19 @@ from dataclasses import dataclass
 
 # -- static interference ranges ([rfi] static_ranges) -----------------------------------
 # Frequency ranges masked always, or only between two UTC hours (``hours_utc = [a, b]``).
-# The defaults are the ITU Radio Regulations Article 5 allocations of the broadcasting,
-# amateur, maritime mobile and standard-frequency services in and near 16-24 MHz (values
-# from memory; check them against the current Article 5 table for your region and edit
-# the list).
+# The default masks only what a station always needs masked: the standard-frequency and
+# time-signal allocation at 20 MHz (ITU Radio Regulations Article 5, 19.99-20.01 MHz;
+# value from memory), whose carriers never leave. Everything else is learned from the
+# data (rxlog.detect.mask: carriers now, over the last hour, and by hour of day), so the
+# quiet channels between broadcasters stay in the sky a station records.
 DEFAULT_STATIC_RANGES = [
+    {"fmin_mhz": 19.99, "fmax_mhz": 20.01, "note": "standard frequency and time signals"},
+]
+# The Article 5 allocations of the broadcasting, amateur, maritime mobile and
+# standard-frequency services in and near 16-24 MHz (values from memory: check them
+# against the current table for your region). Masking them all throws away 40-45 % of the
+# band; config/station.example.toml shows them as an example to opt in to.
+ALLOCATION_RANGES = [
     {"fmin_mhz": 15.10, "fmax_mhz": 15.80, "note": "broadcasting (15 MHz band)"},
     {"fmin_mhz": 16.36, "fmax_mhz": 17.41, "note": "maritime mobile"},
     {"fmin_mhz": 17.48, "fmax_mhz": 17.90, "note": "broadcasting (16 m band)"},
@@ -57,7 +65,43 @@ def check_static_ranges(value) -> list[str]:
                                 f"e.g. [18, 23] (or [22, 6] across midnight), got {hours!r}")
         if "note" in r and not isinstance(r["note"], str):
             problems.append(f"{where}: note must be a string")
+    if not problems:
+        problems += _overlaps(value)
     return problems
+
+
+def _hours_meet(a, b) -> bool:
+    """Whether two ``hours_utc`` settings (None: all day) share an hour of the day."""
+    if a is None or b is None:
+        return True
+    def hours(h):
+        lo, hi = float(h[0]), float(h[1])
+        return {x for x in range(24) if (lo <= x < hi if lo <= hi else (x >= lo or x < hi))}
+    return bool(hours(a) & hours(b))
+
+
+def _overlaps(ranges) -> list[str]:
+    """Entries that cover the same frequencies at the same hours: one of them is a
+    mistake (a typo in an edge, or the same service listed twice)."""
+    out = []
+    for i, a in enumerate(ranges):
+        for k in range(i + 1, len(ranges)):
+            b = ranges[k]
+            if (a["fmin_mhz"] < b["fmax_mhz"] and b["fmin_mhz"] < a["fmax_mhz"]
+                    and _hours_meet(a.get("hours_utc"), b.get("hours_utc"))):
+                out.append(f"entry {k + 1} ({b['fmin_mhz']}-{b['fmax_mhz']} MHz) overlaps entry {i + 1} "
+                           f"({a['fmin_mhz']}-{a['fmax_mhz']} MHz) at the same hours; merge them or fix an edge")
+    return out
+
+
+def band_problems(ranges, fmin_mhz: float, fmax_mhz: float) -> list[str]:
+    """Static ranges that miss the station's band entirely (a typo, or kHz for MHz)."""
+    return [f"entry {i + 1} ({r['fmin_mhz']}-{r['fmax_mhz']} MHz) lies outside the band "
+            f"{fmin_mhz:g}-{fmax_mhz:g} MHz ([spectra]); it would mask nothing"
+            for i, r in enumerate(ranges)
+            if isinstance(r, dict) and isinstance(r.get("fmin_mhz"), (int, float))
+            and isinstance(r.get("fmax_mhz"), (int, float))
+            and (r["fmax_mhz"] <= fmin_mhz or r["fmin_mhz"] >= fmax_mhz)]
 
 
 # -- fixed thresholds of the rules --------------------------------------------------------
@@ -119,6 +163,7 @@ class Settings:
     carrier_sigma: float = 6.0
     carrier_memory_s: float = 3600.0
     carrier_fraction: float = 0.5
+    occupancy_days: float = 7.0
     sumthreshold_chi1: float = 7.0
     sumthreshold_max_mhz: float = 0.05
     sumthreshold_max_s: float = 8.0
