@@ -98,7 +98,7 @@ def _bare(raw: np.ndarray) -> list:
 _MEMORY_CHILD = textwrap.dedent("""
     import resource, sys
     from rxlog.archive.ingest import ingest_recording
-    from rxlog.config import config_from_text
+    from rxlog.station.config import config_from_text
     folder, path = sys.argv[1], sys.argv[2]
     cfg = config_from_text("[station]\\nname='bench'\\nlatitude_deg=47.5\\nlongitude_deg=8.7\\n"
                            "[storage]\\nroot='data'\\n[sweep]\\nmode='single'\\n", folder + "/station.toml")

@@ -61,11 +61,11 @@ import numpy as np
 
 from benchmarks import episode_scoring as es
 from benchmarks.realistic_days import Scenario, realistic_days, require_every_kind
-from rxlog.config import load_config
 from rxlog.detect.online import OnlineDetector, latest
 from rxlog.errors import RxlogError
 from rxlog.sim.spectra import iter_spectra
 from rxlog.sim.truth import interference_share
+from rxlog.station.config import load_config
 from rxlog.timeutil import parse_iso
 
 PEAKS = (0.5, 1.0, 2.0, 4.0, 8.0)

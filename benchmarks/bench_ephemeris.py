@@ -20,7 +20,7 @@ import time
 
 import numpy as np
 
-from rxlog.forecast import forecast_windows
+from rxlog.sky.forecast import forecast_windows
 from rxlog.sky.tags import compute_tags
 
 SITE = (47.5, 8.7, 450.0)

@@ -27,12 +27,12 @@ from zoneinfo import ZoneInfo
 import numpy as np
 
 from rxlog.archive.write import ArchiveWriter
-from rxlog.config import config_from_text
 from rxlog.review.night import night_starting
 from rxlog.review.page import event_image_name
 from rxlog.review.report import build_report
 from rxlog.review.server import ReviewServer
 from rxlog.spectrum import DynamicSpectrum, channel_grid
+from rxlog.station.config import config_from_text
 from rxlog.store import EventStore, make_event_id
 from rxlog.timeutil import iso, parse_iso
 

@@ -56,7 +56,7 @@ log_level = "warning"
 
 SPECTRA_RUN = textwrap.dedent("""
     import sys
-    from rxlog.config import load_config
+    from rxlog.station.config import load_config
     from rxlog.station import journal, supervise
     journal.setup_logging("warning")
     summary = supervise.run(load_config(sys.argv[1]), sim_hours=float(sys.argv[2]))

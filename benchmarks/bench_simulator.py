@@ -17,11 +17,11 @@ import tempfile
 import time
 from pathlib import Path
 
-from rxlog.config import config_from_text
 from rxlog.sim.cells import system_psd_per_kelvin
 from rxlog.sim.iq import IQGenerator, SimulatedReceiver
 from rxlog.sim.model import SkyModel
 from rxlog.sim.spectra import iter_spectra, simulate_spectra
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 NIGHT = parse_iso("2026-12-01T18:00:00Z")

@@ -16,7 +16,18 @@ from zoneinfo import ZoneInfo
 
 import click
 
-from rxlog.config import Config, config_from_text
+from rxlog.archive.write import ArchiveWriter
+from rxlog.detect.rerun import detect_range
+from rxlog.exchange.compare import compare_stations
+from rxlog.exchange.export import export_events
+from rxlog.exchange.voevent import write_voevents
+from rxlog.review.report import build_report
+from rxlog.sim.spectra import iter_spectra
+from rxlog.sim.truth import write_truth_csv
+from rxlog.sky.forecast import forecast_windows, make_forecast
+from rxlog.station.config import Config, config_from_text
+from rxlog.store import EventStore
+from rxlog.timeutil import parse_iso
 
 CLUB = "Birchwater Radio Sky Circle"
 
@@ -86,7 +97,6 @@ def local_noon_before(t_unix: float, tz: str) -> float:
 def pick_night(cfg) -> tuple[float, dict]:
     """The scenario's night: the first forecast window in an Io-controlled region that lasts an
     hour with Jupiter well up. Returns (local noon starting that night, the window)."""
-    from rxlog.forecast import forecast_windows
 
     windows = forecast_windows(cfg, SCENARIO_START.timestamp(), SCENARIO_DAYS)
     good = [w for w in windows if w["region"].startswith("Io-") and w["duration_min"] >= 60
@@ -122,8 +132,6 @@ def simulate_into_archive(cfg, start: float, hours: float, inject: list[dict],
     ``clock_error_s`` shifts the station's time stamps as a wrong clock would: the sky is
     the same, the station writes it down late (positive) or early (negative).
     """
-    from rxlog.archive.write import ArchiveWriter
-    from rxlog.sim.spectra import iter_spectra
 
     run = iter_spectra(cfg, start, hours, inject=inject)
     # A batch that can simply be re-run needs no minute-by-minute crash safety: hour-long
@@ -141,7 +149,6 @@ def simulate_into_archive(cfg, start: float, hours: float, inject: list[dict],
 
 def score_against_truth(truth: list[dict], events: list[dict]) -> tuple[int, int]:
     """How many injected sky bursts (not interference) a detected event overlaps in time and frequency."""
-    from rxlog.timeutil import parse_iso
 
     sky = [t for t in truth if t["class"] != "rfi"]
     boxes = [(parse_iso(e["start_utc"]), parse_iso(e["end_utc"]), e["fmin_mhz"], e["fmax_mhz"])
@@ -155,7 +162,6 @@ def score_against_truth(truth: list[dict], events: list[dict]) -> tuple[int, int
 
 
 def detect_quietly(cfg, label: str) -> dict:
-    from rxlog.detect.rerun import detect_range
 
     with click.progressbar(length=100, label=f"  {label}", file=sys.stderr) as bar:
         done = [0]
@@ -170,13 +176,6 @@ def detect_quietly(cfg, label: str) -> dict:
 
 def run_demo(out: str | Path, echo=click.echo) -> dict:
     """Run the demo under ``out``; return the paths it wrote (also printed through ``echo``)."""
-    from rxlog.exchange.compare import compare_stations
-    from rxlog.exchange.export import export_events
-    from rxlog.exchange.voevent import write_voevents
-    from rxlog.forecast import make_forecast
-    from rxlog.review.report import build_report
-    from rxlog.sim.truth import write_truth_csv
-    from rxlog.store import EventStore
 
     out = Path(out).resolve()
     out.mkdir(parents=True, exist_ok=True)

@@ -3,10 +3,10 @@ from one invented sky as several stations would report it, and Type III dynamic 
 
 import numpy as np
 
-from rxlog.config import config_from_text
 from rxlog.exchange.columns import FORMAT_NAME, FORMAT_VERSION
 from rxlog.exchange.importer import EventList
 from rxlog.spectrum import DynamicSpectrum, channel_grid
+from rxlog.station.config import config_from_text
 from rxlog.store import make_event_id
 from rxlog.timeutil import iso
 

@@ -13,7 +13,7 @@ from archive_helpers import T_NIGHT, noisy_spectrum
 from astropy.io import fits
 
 from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
-from rxlog.config import config_from_text
+from rxlog.station.config import config_from_text
 from rxlog.store import EventStore
 from rxlog.timeutil import iso
 

@@ -10,7 +10,7 @@ from rxlog.archive.prune import prune
 from rxlog.archive.read import read_archive
 from rxlog.archive.write import ArchiveWriter
 from rxlog.cli import main
-from rxlog.config import config_from_text
+from rxlog.station.config import config_from_text
 
 DAY = 86400.0
 

@@ -8,7 +8,6 @@ window and overlap (K from window bin correlation and Welch's overlap formula).
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.receive.channelizer import (
     Channelizer,
     bin_correlation,
@@ -16,6 +15,7 @@ from rxlog.receive.channelizer import (
     independent_bins,
 )
 from rxlog.spectrum import channel_grid
+from rxlog.station.config import config_from_text
 
 RATE = 2_400_000
 CENTER = 20e6

@@ -6,7 +6,7 @@ import pytest
 from click.testing import CliRunner
 
 from rxlog.cli import main
-from rxlog.config import ConfigError, load_config
+from rxlog.station.config import ConfigError, load_config
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "config" / "station.example.toml"
 

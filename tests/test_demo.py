@@ -7,7 +7,7 @@ import pytest
 from click.testing import CliRunner
 
 from rxlog.cli import main
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 from rxlog.store import EventStore
 
 

@@ -6,7 +6,7 @@ from detector_helpers import Sky
 
 from rxlog.archive.write import ArchiveWriter
 from rxlog.cli import main
-from rxlog.config import config_from_text
+from rxlog.station.config import config_from_text
 from rxlog.store import EventStore
 
 CONFIG = """

@@ -51,7 +51,7 @@ def test_csv_rows_match_the_library(config):
     assert list(rows[0]) == COLUMNS and len(rows) == 5
     t = np.array([parse_iso(x["time_utc"]) for x in rows])
     assert np.allclose(np.diff(t), 1800.0)
-    from rxlog.config import load_config
+    from rxlog.station.config import load_config
     ref = station_tags(load_config(config), t)
     for key in COLUMNS[1:-1]:
         assert np.allclose([float(x[key]) for x in rows], ref[key], atol=6e-4), key

@@ -3,7 +3,6 @@
 import numpy as np
 import pytest
 
-from rxlog.config import ConfigError, load_config
 from rxlog.errors import RxlogError
 from rxlog.sky.regions import (
     DEFAULT_REGION_BOXES,
@@ -12,6 +11,7 @@ from rxlog.sky.regions import (
     regions_from_config,
     source_region,
 )
+from rxlog.station.config import ConfigError, load_config
 
 DEFAULTS = regions_from_boxes(DEFAULT_REGION_BOXES)
 

@@ -13,9 +13,9 @@ from rxlog.archive.ingest import ingest_fits
 from rxlog.archive.read import read_archive
 from rxlog.archive.write import ArchiveWriter, write_spectrum_fits
 from rxlog.cli import main
-from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.spectrum import FLAG_GAP, FLAG_UNCOVERED
+from rxlog.station.config import config_from_text
 
 REF = Time("2026-12-01T21:55:00", scale="utc")      # astropy.time gives the expected epoch
 N_TIME, N_CHAN, CADENCE = 1200, 24, 0.5             # 10 minutes across 22:00 UTC

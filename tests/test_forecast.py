@@ -9,9 +9,8 @@ import zoneinfo
 import numpy as np
 import pytest
 
-from rxlog.config import SCHEMA
 from rxlog.errors import RxlogError
-from rxlog.forecast import (
+from rxlog.sky.forecast import (
     MIN_WINDOW_MIN,
     REGION_COLOURS,
     TOUCH_S,
@@ -26,6 +25,7 @@ from rxlog.forecast import (
 )
 from rxlog.sky.regions import DEFAULT_REGION_BOXES
 from rxlog.sky.tags import body_up_intervals, station_tags
+from rxlog.station.config import SCHEMA
 
 START = 1_796_083_200.0          # 2026-12-01T00:00Z: Jupiter is a morning/evening object
 CFG = {"station": {"name": "test-site", "latitude_deg": 47.5, "longitude_deg": 8.7, "elevation_m": 450.0,

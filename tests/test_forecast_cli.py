@@ -8,8 +8,8 @@ import pytest
 from click.testing import CliRunner
 
 from rxlog.cli import main
-from rxlog.config import load_config
-from rxlog.forecast import make_forecast
+from rxlog.sky.forecast import make_forecast
+from rxlog.station.config import load_config
 
 STATION = """[station]
 name = "cli-site"

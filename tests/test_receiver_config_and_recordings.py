@@ -4,10 +4,10 @@ raw recordings (cu8, ci8, ci16_le, cf32_le with explicit format, rate, centre an
 import numpy as np
 import pytest
 
-from rxlog.config import ConfigError, config_from_text, load_config
 from rxlog.errors import RxlogError
 from rxlog.receive.blocks import EndOfStream, to_complex64
 from rxlog.receive.recordings import RecordingSource, open_recording
+from rxlog.station.config import ConfigError, config_from_text, load_config
 from rxlog.station.sources import open_source
 from rxlog.timeutil import parse_iso
 

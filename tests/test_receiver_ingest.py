@@ -10,7 +10,7 @@ from click.testing import CliRunner
 
 from rxlog.archive.read import read_archive
 from rxlog.cli import main
-from rxlog.config import config_from_text
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 RATE = 2_400_000

@@ -12,12 +12,12 @@ import sys
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.receive.blocks import ReceiverLost
 from rxlog.receive.channelizer import Channelizer
 from rxlog.receive.devices import RtlSdrSource
 from rxlog.spectrum import channel_grid
+from rxlog.station.config import config_from_text
 from rxlog.station.sources import open_source
 
 R820T_GAINS = [0, 9, 14, 27, 37, 77, 87, 125, 144, 157, 166, 197, 207, 229, 254, 280, 297, 328, 338, 364, 372,

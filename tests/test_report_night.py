@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 
 from rxlog.archive.write import ArchiveWriter
-from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.review.data import default_night
 from rxlog.review.night import night_events, night_of, night_starting, parse_night
 from rxlog.spectrum import DynamicSpectrum, channel_grid
+from rxlog.station.config import config_from_text
 from rxlog.store import EventStore, make_event_id
 from rxlog.timeutil import iso
 

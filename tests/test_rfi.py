@@ -4,9 +4,9 @@ import math
 
 import numpy as np
 
-from rxlog.config import validate
 from rxlog.detect import mask
 from rxlog.detect.settings import DEFAULT_STATIC_RANGES, check_static_ranges
+from rxlog.station.config import validate
 
 
 def _sumthreshold_reference(x, chi1, max_run, rho=1.5):

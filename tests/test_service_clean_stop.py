@@ -14,7 +14,7 @@ from service_helpers import (
     write_config,
 )
 
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 
 # The spectral feed hands out a chunk once its last row has passed (1 s), and a flush
 # happens every chunk_s (1 s): data older than that must be on disk at the stop.

@@ -12,7 +12,7 @@ import time
 
 from service_helpers import Run, archive_rows, health_rows, integrity, write_config
 
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 from rxlog.timeutil import parse_iso
 
 FORWARD, BACK = 3.0, -2.0

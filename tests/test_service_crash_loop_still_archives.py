@@ -8,7 +8,7 @@ import time
 
 from service_helpers import Run, archive_rows, health_rows, integrity, write_config
 
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 
 RUNS = 2
 KILL_AFTER_S = 4.5        # after the first spectra: the first flush is due 2 s in (FIRST_FLUSH_S)

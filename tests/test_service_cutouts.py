@@ -7,10 +7,10 @@ import numpy as np
 from service_helpers import write_config
 
 from rxlog.archive.read import read_spectrum_fits
-from rxlog.config import load_config
 from rxlog.receive.ring import Ring
 from rxlog.review.cutouts import cutout_file
 from rxlog.spectrum import channel_grid
+from rxlog.station.config import load_config
 from rxlog.station.cutouts import cutout_relpath, prune_cutouts, save_cutout
 from rxlog.station.supervise import Logger
 from rxlog.store import EventStore

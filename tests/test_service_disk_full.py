@@ -18,7 +18,7 @@ from service_helpers import (
     write_config,
 )
 
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 from rxlog.timeutil import parse_iso
 
 SIZE_MB = 16

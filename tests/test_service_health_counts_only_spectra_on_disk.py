@@ -7,7 +7,7 @@ import time
 
 from service_helpers import Run, archive_rows, health_rows, write_config
 
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 
 CHUNK_S = 30          # long: between flushes the writer holds many seconds of spectra
 

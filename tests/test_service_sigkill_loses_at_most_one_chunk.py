@@ -17,7 +17,7 @@ from service_helpers import (
 )
 
 from rxlog.archive.write import ArchiveWriter
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 from rxlog.timeutil import parse_iso
 
 KILLS = 10

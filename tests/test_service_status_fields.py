@@ -10,7 +10,7 @@ from archive_helpers import noisy_spectrum
 from service_helpers import write_config
 
 from rxlog.archive.write import ArchiveWriter
-from rxlog.config import load_config
+from rxlog.station.config import load_config
 from rxlog.station.health import RunLock
 from rxlog.station.status import disk_outlook, station_status
 from rxlog.store import EventStore

@@ -13,7 +13,7 @@ from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.export import export_events, write_event_list
 from rxlog.exchange.voevent import write_voevents
 from rxlog.fileio import write_atomic
-from rxlog.forecast import forecast_windows, write_ics
+from rxlog.sky.forecast import forecast_windows, write_ics
 from rxlog.store import EventStore
 
 

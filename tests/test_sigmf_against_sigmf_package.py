@@ -12,11 +12,11 @@ import numpy as np
 import pytest
 import sigmf
 
-from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.receive.blocks import EndOfStream
 from rxlog.receive.recordings import open_recording
 from rxlog.receive.replay import spectra_from_recording
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 DTYPES = {"cu8": np.uint8, "ci8": np.int8, "ci16_le": "<i2", "cf32_le": "<f4"}

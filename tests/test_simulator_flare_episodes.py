@@ -7,11 +7,11 @@ one episode; an unknown episode kind refused."""
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.sim.events import EPISODE_KINDS
 from rxlog.sim.render import render
 from rxlog.sim.spectra import SpectralRun, simulate_spectra
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 NOON = parse_iso("2027-01-19T10:00:00Z")       # the Sun ~20 deg up at 47.5 N

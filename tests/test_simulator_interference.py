@@ -9,13 +9,13 @@ import math
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.sim.events import RFI_KINDS, Site
 from rxlog.sim.interference import switched_noise
 from rxlog.sim.interference_plan import plan_site_day
 from rxlog.sim.render import render
 from rxlog.sim.spectra import SpectralRun
 from rxlog.sim.truth import interference_share
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 DAY = parse_iso("2027-01-19T00:00:00Z")

@@ -6,10 +6,10 @@ import csv
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
 from rxlog.sim.spectra import iter_spectra, simulate_spectra
 from rxlog.sim.truth import TRUTH_FIELDS, write_truth_csv
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 NIGHT = parse_iso("2026-12-01T22:00:00Z")

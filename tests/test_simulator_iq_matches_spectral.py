@@ -5,12 +5,12 @@ predicts. Also: the SimulatedReceiver source contract and seeded reproducibility
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.receive import channelizer
 from rxlog.receive.blocks import EndOfStream
 from rxlog.sim.cells import cell_layout
 from rxlog.sim.iq import SimulatedReceiver, simulate_iq
 from rxlog.sim.spectra import simulate_spectra
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 T0 = parse_iso("2026-12-01T23:00:00Z")

@@ -6,10 +6,10 @@ carrier lines are steady tones, so their spectral kurtosis falls below the Gauss
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.receive import channelizer
 from rxlog.sim.iq import SimulatedReceiver, simulate_iq
 from rxlog.sim.spectra import SpectralRun
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 T = parse_iso("2026-12-02T04:00:00Z")      # Jupiter high over 47.5 N before dawn

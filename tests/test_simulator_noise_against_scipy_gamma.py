@@ -9,10 +9,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from rxlog.config import config_from_text
 from rxlog.receive import sweep
 from rxlog.sim.cells import cell_layout
 from rxlog.sim.spectra import simulate_spectra
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 START = parse_iso("2026-12-01T22:00:00Z")

@@ -11,10 +11,10 @@ from astropy import units as u
 from astropy.time import Time
 from astropy.utils import iers
 
-from rxlog.config import config_from_text
 from rxlog.sim.galaxy import icrs_to_galactic_deg, local_sidereal_deg
 from rxlog.sim.model import SkyModel
 from rxlog.sim.render import Grid, render
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 T0 = parse_iso("2026-09-01T20:00:00Z")     # a night when LST 19 h -> 2 h: the Galaxy sets

@@ -8,8 +8,8 @@ channel is sampled at the row time.
 
 import numpy as np
 
-from rxlog.config import config_from_text
 from rxlog.sim.spectra import simulate_spectra
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 T_BURST = parse_iso("2026-12-02T11:00:05Z")

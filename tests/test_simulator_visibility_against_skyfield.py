@@ -12,9 +12,9 @@ import warnings
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.sim.spectra import iter_spectra
 from rxlog.sky.tags import station_tags
+from rxlog.station.config import config_from_text
 from rxlog.timeutil import parse_iso
 
 with warnings.catch_warnings():

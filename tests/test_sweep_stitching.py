@@ -12,11 +12,11 @@ queued buffers do.
 import numpy as np
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.receive.blocks import SampleBlock
 from rxlog.receive.channelizer import Channelizer
 from rxlog.receive.sweep import Sweeper, SweepPlan
 from rxlog.spectrum import FLAG_UNCOVERED
+from rxlog.station.config import config_from_text
 
 RATE = 2_400_000
 T0 = 1_796_000_000.123

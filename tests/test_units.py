@@ -15,8 +15,8 @@ from zoneinfo import ZoneInfo
 
 import pytest
 
-from rxlog.config import config_from_text
 from rxlog.errors import RxlogError
+from rxlog.station.config import config_from_text
 from rxlog.station.units import default_units, units_for_config, write_units
 
 REPO = Path(__file__).resolve().parents[1]

@@ -25,12 +25,12 @@ from hypothesis import strategies as st
 from rxlog import validate
 from rxlog.archive.ingest import ingest_fits, ingest_recording
 from rxlog.archive.read import read_spectrum_fits
-from rxlog.config import SCHEMA, ConfigError, load_config
 from rxlog.errors import RxlogError
 from rxlog.exchange.columns import COLUMN_NAMES, HEADER
 from rxlog.exchange.importer import read_event_list
 from rxlog.receive.channelizer import Channelizer
 from rxlog.receive.sweep import SweepPlan
+from rxlog.station.config import SCHEMA, ConfigError, load_config
 from rxlog.timeutil import parse_iso
 
 SETTINGS = dict(deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])

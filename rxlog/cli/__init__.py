@@ -1,4 +1,12 @@
-"""rxlog's command line: one module per concern, each adding its commands to ``main``."""
+"""rxlog's command line: thin click commands over the library, one module per concern,
+each adding its commands to ``main``: ``base`` (the group, shared options, errors),
+``station`` (config check, demo), ``simulate``, ``ingest``, ``archive`` (prune),
+``detect``, ``ephem`` (ephem, forecast), ``review`` (review, events, label),
+``exchange`` (export, compare), ``service`` (run, status, service).
+
+The commands import the stage they drive when they run, not here, so ``rxlog --help``
+and every command start without loading the stages the others need.
+"""
 
 from rxlog.cli import (
     archive,  # noqa: F401  (prune)

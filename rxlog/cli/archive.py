@@ -19,6 +19,7 @@ def prune_command(cfg):
     Example:
       rxlog prune --config station.toml
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.archive.prune import prune
 
     days = cfg["storage"]["retention_days"]

@@ -18,8 +18,8 @@ import zoneinfo
 import click
 
 from rxlog import __version__
-from rxlog.config import ConfigError, load_config
 from rxlog.errors import RxlogError
+from rxlog.station.config import ConfigError, load_config
 
 
 class UserError(click.ClickException):

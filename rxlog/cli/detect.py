@@ -7,6 +7,7 @@ import sys
 import click
 
 from rxlog.cli.base import TIME_HELP, parse_time_option, station_command
+from rxlog.timeutil import iso
 
 
 @station_command("detect")
@@ -29,8 +30,8 @@ def detect_command(cfg, start, end):
       rxlog detect --config station.toml --start 2026-12-01T18:00Z --end 2026-12-02T06:00Z
       rxlog detect --config station.toml --start 2026-12-01 --end 2026-12-08
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.detect.rerun import detect_range
-    from rxlog.timeutil import iso
 
     t0 = parse_time_option(start, "--start", cfg)
     t1 = parse_time_option(end, "--end", cfg)

@@ -11,14 +11,13 @@ import sys
 import click
 
 from rxlog.cli.base import TIME_HELP, parse_time_option, station_command
+from rxlog.timeutil import iso
 
 COLUMNS = ("time_utc", "cml3_deg", "io_phase_deg", "jupiter_alt_deg", "jupiter_az_deg",
            "sun_alt_deg", "sun_az_deg", "source_region")
 
 
 def _rows(table) -> list[dict]:
-    from rxlog.timeutil import iso
-
     out = []
     for i, t in enumerate(table["time_unix"]):
         row = {"time_utc": iso(t)}
@@ -66,6 +65,7 @@ def ephem(cfg, start, end, step, fmt, refraction):
       rxlog ephem --config station.toml --start 2026-12-01T20:00Z
       rxlog ephem --config station.toml --start 2026-12-01T18:00Z --end 2026-12-02T06:00Z --step 900 --format csv
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.sky.tags import tag_table
 
     t0 = parse_time_option(start, "--start", cfg)
@@ -103,7 +103,8 @@ def forecast(cfg, start, days, min_window, ics_path, plot_path, min_jupiter_alt,
       rxlog forecast --config station.toml --days 7
       rxlog forecast --config station.toml --start 2026-12-01 --days 30 --ics jupiter.ics --plot nights.png
     """
-    from rxlog.forecast import make_forecast
+    # imported on use: `rxlog --help` and the other commands start without this stage
+    from rxlog.sky.forecast import make_forecast
 
     t0 = parse_time_option(start or "now", "--start", cfg)
     args = dict(ics_path=ics_path, plot_path=plot_path, min_window_min=min_window)

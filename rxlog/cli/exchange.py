@@ -40,6 +40,7 @@ def export_cmd(cfg, fmt, out, start, end, include_rfi, labelled_only, voevent_di
       rxlog export --config station.toml --format votable --labelled-only --out labelled.vot
       rxlog export --config station.toml --voevent notices/ birchwater-20270203T141502.0-20.000
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.exchange.columns import SUFFIX
     from rxlog.exchange.export import export_events
     from rxlog.exchange.voevent import write_voevents
@@ -93,6 +94,7 @@ def compare_cmd(files, window_s, outdir, spectra):
       rxlog compare birchwater.csv kestrel-ridge.json saltmarsh-point.vot --out compare/
       rxlog compare a.csv b.csv --window 5 --spectra a=a-fits/ --spectra b=b-fits/
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.exchange.compare import compare_stations
 
     def progress(stage: str):

@@ -22,6 +22,7 @@ FITS_SUFFIXES = (".fits", ".fit", ".fits.gz", ".fit.gz")
 
 def _kind(path: Path, raw_format: str | None) -> str:
     """'fits', 'sigmf', 'raw', or a UserError saying what the file should have been."""
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.receive.recordings import sigmf_paths
 
     if not path.is_file():
@@ -98,6 +99,7 @@ def ingest(cfg, paths, fmt, rate_msps, center_mhz, start):
                         "a centre frequency in MHz")
     for path, kind in kinds:
         if kind == "fits":
+            # imported on use: `rxlog --help` and the other commands start without this stage
             from rxlog.archive.ingest import ingest_fits
 
             for s in ingest_fits(cfg, path):
@@ -105,6 +107,7 @@ def ingest(cfg, paths, fmt, rate_msps, center_mhz, start):
                            f"every {s.cadence_s:g} s, {s.n_chan} channels {s.fmin_hz / 1e6:.3f}-"
                            f"{s.fmax_hz / 1e6:.3f} MHz")
             continue
+        # imported on use: `rxlog --help` and the other commands start without this stage
         from rxlog.archive.ingest import ingest_recording
 
         with click.progressbar(length=1, label=path.name, file=sys.stderr) as bar:

@@ -59,6 +59,7 @@ def review(cfg, night, serve, port, host, allow_remote, access_token):
       rxlog review --config station.toml
       rxlog review --config station.toml --night 2027-02-03 --serve --port 8765
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.review.data import default_night
     from rxlog.review.night import parse_night
     from rxlog.review.report import build_report
@@ -90,6 +91,7 @@ def events(cfg, night, cls, unlabelled):
     Example:
       rxlog events --config station.toml --night 2027-02-03 --class jovian_l --unlabelled
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.review.listing import event_table
 
     click.echo(event_table(cfg, night=night, cls=cls, unlabelled=unlabelled))
@@ -107,6 +109,7 @@ def label(cfg, event_id, label, note, who):
     Example:
       rxlog label --config station.toml birchwater-20270202T170756.1-19.543 jovian_l --note "clear arc"
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.store import EventStore
 
     if who is None:

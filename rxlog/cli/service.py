@@ -21,6 +21,7 @@ def run_command(cfg, duration):
     Example (a simulated receiver, for two minutes):
       rxlog run --config station.toml --duration 120
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.station import journal, supervise
 
     journal.setup_logging(cfg["service"]["log_level"])
@@ -45,6 +46,7 @@ def status_command(cfg):
     Example:
       rxlog status --config station.toml
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.station.status import describe_disk, format_duration, station_status
 
     st = station_status(cfg)
@@ -97,6 +99,7 @@ def service_command(cfg, out_dir):
       sudo cp /tmp/units/rxlog* /etc/systemd/system/
       sudo cp /tmp/units/60-rxlog-rtlsdr.rules /etc/udev/rules.d/
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.station.units import units_for_config, write_units
 
     units = units_for_config(cfg)

@@ -36,6 +36,7 @@ def simulate_command(cfg, start, hours, out, iq, seed, rfi, center_mhz):
       rxlog simulate --config station.toml --start 2026-12-01T22:00:00Z --hours 0.005 --iq \\
           --center-mhz 20.1 --out iq/test
     """
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.sim.write import write_simulation
 
     t0 = parse_time_option(start, "--start", cfg)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from rxlog.cli.base import main
+from rxlog.cli.base import UserError, friendly_errors, main
 
 
 @main.group("config")
@@ -22,8 +22,8 @@ def config_check(config_path):
     Example:
       rxlog config check --config config/station.example.toml
     """
-    from rxlog.cli.base import UserError
-    from rxlog.config import ConfigError, load_config
+    # imported on use: `rxlog --help` and the other commands start without this stage
+    from rxlog.station.config import ConfigError, load_config
 
     try:
         cfg = load_config(config_path)
@@ -50,7 +50,7 @@ def demo(out):
       rxlog demo --out rxlog-demo
       rxlog review --config rxlog-demo/birchwater/station.toml --serve
     """
-    from rxlog.cli.base import friendly_errors
+    # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.demo import run_demo
 
     friendly_errors(run_demo)(out)

@@ -69,6 +69,7 @@ def colour(cls: str) -> str:
 
 def outline(linewidth: float) -> list:
     """matplotlib path effects drawing a line of ``linewidth`` points over a light halo and a dark edge."""
+    # matplotlib is imported when a line is drawn: the page's CSS comes from this module without it
     import matplotlib.patheffects as pe
 
     return [pe.Stroke(linewidth=linewidth + 2.0 * (HALO_PT + EDGE_PT), foreground=EDGE),

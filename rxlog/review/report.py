@@ -26,7 +26,6 @@ from pathlib import Path
 import numpy as np
 
 from rxlog.fileio import write_atomic
-from rxlog.forecast import forecast_windows
 from rxlog.review.cutouts import read_cutout
 from rxlog.review.data import default_night, freq_bins, read_night
 from rxlog.review.night import (
@@ -40,6 +39,7 @@ from rxlog.review.page import event_image_name, render_page
 from rxlog.review.plots import plot_cml_io, plot_overview
 from rxlog.review.summary import JOVIAN, format_summary, night_summary
 from rxlog.review.zoom import ZoomPlotter
+from rxlog.sky.forecast import forecast_windows
 from rxlog.sky.tags import body_up_intervals, station_tags
 from rxlog.store import EventStore
 

@@ -13,5 +13,7 @@ with astropy (package ``astropy-iers-data``); nothing is ever fetched.
   the Sun at a site, optical refraction;
 - ``regions``: the Io source regions, their boxes and the checks of a box table;
 - ``tags``: all of the above for many times (``compute_tags``, ``station_tags``,
-  ``tag_table``) and the intervals a body is up (``body_up_intervals``).
+  ``tag_table``) and the intervals a body is up (``body_up_intervals``);
+- ``forecast``: the watches ahead (Jupiter up, the Sun low, CML / Io phase in a region),
+  as text, an iCalendar file and a plot.
 """

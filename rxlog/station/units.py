@@ -20,8 +20,8 @@ import re
 import sys
 from pathlib import Path
 
-from rxlog.config import SCHEMA
 from rxlog.errors import RxlogError
+from rxlog.station.config import SCHEMA
 
 # Install layout assumed by the units shipped in systemd/ (README "Running a station").
 DEFAULT_PYTHON = "/opt/rxlog/venv/bin/python"

@@ -336,6 +336,7 @@ def plot_forecast(cfg, start_unix: float, days: float, path, windows: list[dict]
 
 
 def _new_figure(width: float, height: float, dpi: int):
+    # matplotlib is imported when a plot is drawn: the forecast's text and calendar file do without it
     import matplotlib
     matplotlib.use("Agg", force=False)
     from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -351,6 +352,7 @@ def _region_colours(cfg) -> dict[str, str]:
 
 
 def _plane(cfg, t, tags, ok, windows, dpi):
+    # matplotlib is imported when a plot is drawn: the forecast's text and calendar file do without it
     from matplotlib import colormaps
     from matplotlib.patches import Rectangle
 
@@ -442,6 +444,7 @@ def _true_runs(t: np.ndarray, ok: np.ndarray) -> list[tuple[float, float]]:
 
 
 def _calendar(cfg, t, tags, ok, windows, dpi):
+    # matplotlib is imported when a plot is drawn: the forecast's text and calendar file do without it
     from matplotlib.patches import Patch
 
     tz_name = cfg["station"].get("timezone", "UTC")
