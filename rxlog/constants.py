@@ -19,6 +19,7 @@ EARTH_RADIUS_KM = 6371.0
 # --- time scales -------------------------------------------------------------------------
 
 TT_MINUS_TAI_S = 32.184             # IAU 1991 Resolution A4 (exact)
+UNIX_EPOCH_JD = 2440587.5           # Julian date of 1970-01-01T00:00 UTC, the POSIX epoch (exact)
 GPS_MINUS_TAI_S = -19.0             # GPS time = TAI - 19 s (IERS Conventions 2010, ch. 1; exact)
 
 # --- robust statistics -------------------------------------------------------------------

@@ -40,6 +40,7 @@ import re
 import warnings
 from pathlib import Path
 
+import erfa
 import numpy as np
 from astropy.io import fits
 
@@ -90,15 +91,10 @@ def _site(station: dict, meta: dict) -> tuple[float, float, float] | None:
 
 
 def _geocentric(lat: float, lon: float, h: float) -> tuple[float, float, float]:
-    """WGS84 geodetic -> geocentric metres (NIMA TR8350.2 ellipsoid a = 6378137 m,
-    1/f = 298.257223563). Written as OBSGEO-X/Y/Z beside OBSGEO-B/L/H so WCS readers
-    need not derive them."""
-    a, f = 6378137.0, 1 / 298.257223563
-    e2 = f * (2 - f)
-    phi, lam = math.radians(lat), math.radians(lon)
-    n = a / math.sqrt(1 - e2 * math.sin(phi) ** 2)
-    return ((n + h) * math.cos(phi) * math.cos(lam), (n + h) * math.cos(phi) * math.sin(lam),
-            (n * (1 - e2) + h) * math.sin(phi))
+    """WGS84 geodetic -> geocentric metres (``erfa.gd2gc`` with the WGS84 ellipsoid).
+    Written as OBSGEO-X/Y/Z beside OBSGEO-B/L/H so WCS readers need not derive them."""
+    xyz = erfa.gd2gc(1, math.radians(lon), math.radians(lat), h)
+    return float(xyz[0]), float(xyz[1]), float(xyz[2])
 
 
 def _wcs_cards(spec: DynamicSpectrum, site) -> list[tuple]:

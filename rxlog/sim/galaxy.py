@@ -7,11 +7,16 @@ from __future__ import annotations
 
 import functools
 
+import erfa
 import numpy as np
 
+from rxlog.constants import TT_MINUS_TAI_S, UNIX_EPOCH_JD
 from rxlog.sim.antenna import dipole_beam, p372_temperature
 from rxlog.sim.ionosphere import d_absorption_db, f2_transmission, sec_layer
-from rxlog.sky.timescales import J2000_UNIX
+
+# TT - UTC since 2017-01-01: 37 leap seconds (IERS Bulletin C) + TT - TAI. Only the
+# precession term of GMST uses TT, where a second's error is microarcseconds.
+TT_MINUS_UTC_S = 37.0 + TT_MINUS_TAI_S
 
 # ITU-R P.372 (Radio noise), median Galactic noise Fa = 52 - 23 log10(f/MHz) in dB above
 # k T0 b. Constants from memory of P.372-14.
@@ -19,19 +24,14 @@ GALACTIC_P372 = (52.0, 23.0)
 
 
 def local_sidereal_deg(t_unix, lon_deg: float):
-    """Local mean sidereal time in degrees.
-
-    GMST from the Earth rotation angle (IERS Conventions 2010, eq. 5.15) plus the
-    polynomial of eq. 5.32 to first order, with UT1 taken as UTC (|UT1-UTC| < 0.9 s,
-    i.e. < 0.004 deg) -- plenty for a background that changes over hours.
+    """Local mean sidereal time in degrees: ERFA's GMST (IAU 2006, ``erfa.gmst06``) plus
+    the longitude, with UT1 taken as UTC (|UT1-UTC| < 0.9 s, i.e. < 0.004 deg) and TT as
+    UTC + 69.184 s --
+    plenty for a background that changes over hours.
     """
-    t = np.asarray(t_unix, dtype=np.float64)
-    du = (t - J2000_UNIX) / 86400.0                       # days of UT1 from J2000.0
-    frac = np.mod(du, 1.0)
-    era = 360.0 * np.mod(0.7790572732640 + 0.00273781191135448 * du + frac, 1.0)
-    tc = du / 36525.0
-    gmst = era + (0.014506 + 4612.156534 * tc) / 3600.0
-    return np.mod(gmst + lon_deg, 360.0)
+    days = np.asarray(t_unix, dtype=np.float64) / 86400.0
+    gmst = erfa.gmst06(UNIX_EPOCH_JD, days, UNIX_EPOCH_JD, days + TT_MINUS_UTC_S / 86400.0)
+    return np.mod(np.degrees(gmst) + lon_deg, 360.0)
 
 
 # The Galactic sky at ~20 MHz as a two-component sketch: a smooth halo brighter toward
@@ -47,18 +47,11 @@ def _galactic_relative(l_deg, b_deg):
 
 N_RINGS = 18   # zenith-angle rings of 5 degrees
 
-# ICRS -> Galactic rotation (the Hipparcos definition, ESA 1997 vol. 1 sec. 1.5.3, as astropy
-# uses it; matrix from memory, checked against astropy in the tests).
-_GALACTIC = np.array([[-0.0548755604162154, -0.8734370902348850, -0.4838350155487132],
-                      [+0.4941094278755837, -0.4448296299600112, +0.7469822444972189],
-                      [-0.8676661490190047, -0.1980763734312015, +0.4559837761750669]])
-
-
 def icrs_to_galactic_deg(ra_deg, dec_deg):
-    """Galactic longitude and latitude (degrees) of ICRS directions."""
-    ra, dec = np.radians(ra_deg), np.radians(dec_deg)
-    g = _GALACTIC @ np.stack([np.cos(dec) * np.cos(ra), np.cos(dec) * np.sin(ra), np.sin(dec)])
-    return np.mod(np.degrees(np.arctan2(g[1], g[0])), 360.0), np.degrees(np.arcsin(np.clip(g[2], -1, 1)))
+    """Galactic longitude and latitude (degrees) of ICRS directions (``erfa.icrs2g``, the
+    Hipparcos definition of the Galactic frame, as astropy uses it)."""
+    l, b = erfa.icrs2g(np.radians(ra_deg), np.radians(dec_deg))
+    return np.mod(np.degrees(l), 360.0), np.degrees(b)
 
 
 @functools.lru_cache(maxsize=8)

@@ -383,9 +383,10 @@ CROSS_CHECKS.append(_service_checks)
 
 
 def _static_range_checks(cfg: dict, at) -> list[str]:
-    """Static ranges must reach the station's band."""
+    """Static ranges the station wrote must reach its band (the default list is left
+    alone: a station outside 16-24 MHz simply has no time signal to mask)."""
     sp, ranges = cfg.get("spectra", {}), cfg.get("rfi", {}).get("static_ranges")
-    if not ranges or not {"fmin_mhz", "fmax_mhz"} <= sp.keys():
+    if not ranges or ranges == DEFAULT_STATIC_RANGES or not {"fmin_mhz", "fmax_mhz"} <= sp.keys():
         return []
     return [f"{at('rfi', 'static_ranges')}: {p}" for p in band_problems(ranges, sp["fmin_mhz"], sp["fmax_mhz"])]
 
