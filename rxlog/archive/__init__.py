@@ -1,4 +1,4 @@
-"""Stage 4 of rxlog: dynamic spectra on disk as FITS files with standard WCS.
+"""rxlog's archive stage: dynamic spectra on disk as FITS files with standard WCS.
 
 One module per concern, lowest first; each imports only from those above it, from
 rxlog's core and, for ingest, from ``rxlog.receive``:

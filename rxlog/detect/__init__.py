@@ -1,4 +1,4 @@
-"""Stage 6 of rxlog: bursts and long events found in dynamic spectra.
+"""rxlog's detect stage: bursts and long events found in dynamic spectra.
 
 One module per step of the path a block of spectra takes; each imports only from
 those above it:

@@ -1,4 +1,4 @@
-"""Stage 8 of rxlog: sharing events with partner stations.
+"""rxlog's exchange stage: sharing events with partner stations.
 
 One module per concern; each imports only from those above it (and from lower stages):
 

@@ -1,4 +1,4 @@
-"""Stage 2 of rxlog: samples in, dynamic spectra out.
+"""rxlog's receive stage: samples in, dynamic spectra out.
 
 One module per concern, lowest first; each imports only from those above it and from
 rxlog's core (errors, timeutil, validate, spectrum):

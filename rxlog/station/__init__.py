@@ -1,4 +1,4 @@
-"""Stage 9 of rxlog: the station -- its config, and the logger behind ``rxlog run``.
+"""rxlog's station stage: the station -- its config, and the logger behind ``rxlog run``.
 
 The config is read here, once; the stages below take the values they use. One module
 per concern:
