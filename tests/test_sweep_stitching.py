@@ -16,7 +16,7 @@ from rxlog.receive.blocks import SampleBlock
 from rxlog.receive.channelizer import Channelizer
 from rxlog.receive.sweep import Sweeper, SweepPlan
 from rxlog.spectrum import FLAG_UNCOVERED
-from rxlog.station.config import config_from_text
+from rxlog.station.config import ConfigError, config_from_text
 
 RATE = 2_400_000
 T0 = 1_796_000_000.123
@@ -229,3 +229,13 @@ def test_single_mode_gives_cutouts_of_millisecond_spectra(tmp_path):
     level = np.nanmedian(cut.power_db, axis=1)
     loud = cut.times[level > np.median(level) + 6]
     assert loud.min() >= a - cut.cadence_s and loud.max() < a + 0.005
+
+
+def test_a_step_in_the_wrong_unit_is_refused_before_any_table_is_built(tmp_path):
+    """step_hz = 1 over 8 MHz would be 8 million tunings (and a tuning x channel table of
+    tens of GB); the config check names the key and the expected unit instead."""
+    text = ('[station]\nname = "s"\nlatitude_deg = 1\nlongitude_deg = 2\n'
+            '[sweep]\nmode = "sweep"\nstep_hz = 1\n')
+    with pytest.raises(ConfigError) as e:
+        config_from_text(text, tmp_path / "s.toml")
+    assert "[sweep]" in str(e.value) and "tunings" in str(e.value) and "in Hz" in str(e.value)

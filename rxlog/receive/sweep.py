@@ -120,6 +120,11 @@ class SweepPlan:
                         discard_s=sw["discard_s"], buffer_samples=sw["buffer_samples"])
 
 
+# More tunings than any sweep cycle could dwell on: a smaller step is a slip of units
+# (kHz or MHz written as Hz), refused before a tuning x channel table is built for it.
+MAX_TUNINGS = 1024
+
+
 def plan_for(grid: np.ndarray, rate_hz: float, ch: Channelizer, *, mode: str = "sweep", tunings_hz=(),
              step_hz: float = 0.0, center_hz: float = 0.0, cycle_s: float = 1.0, cadence_s: float = 1.0,
              discard_s: float = 0.01, buffer_samples: int = 16384) -> SweepPlan:
@@ -132,6 +137,9 @@ def plan_for(grid: np.ndarray, rate_hz: float, ch: Channelizer, *, mode: str = "
         tunings = np.array(sorted(float(f) for f in tunings_hz))
     elif step_hz:
         n = max(1, int(math.ceil((hi - lo) / step_hz - 1e-9)))
+        if n > MAX_TUNINGS:
+            raise RxlogError(f"step_hz = {step_hz:g} Hz gives {n} tunings across {(hi - lo) / 1e6:g} MHz; "
+                             f"expected at most {MAX_TUNINGS} (the step is in Hz, e.g. 2e6)")
         tunings = lo + step_hz / 2 + step_hz * np.arange(n)
     else:
         # as few evenly spaced windows as cover every channel
