@@ -160,7 +160,7 @@ def _episode_facts(ep: dict, night: Night, a: float, b: float, zoom_source: str 
              ("duration", _duration(b - a)),
              ("band", f"{ep['fmin_mhz']:.3f}–{ep['fmax_mhz']:.3f} MHz"),
              ("peak excess", fmt_num(ep.get("peak_excess_db"), "{:.1f}", " dB"))]
-    if ep["class"] in JOVIAN or ep.get("source_region"):
+    if ep["class"] in JOVIAN or ep["class"] == "unknown":
         rng = lambda k: (f"{fmt_num(ep.get(k + '_start_deg'), '{:.0f}', '°')} → "  # noqa: E731
                          f"{fmt_num(ep.get(k + '_end_deg'), '{:.0f}', '°')}")
         facts.append(("CML III · Io phase", f"{rng('cml3')} · {rng('io_phase')}"
