@@ -1,12 +1,12 @@
 """The event store: one SQLite file (WAL mode) through sqlite-utils.
 
 Tables: stations, segments, events, episodes, labels, episode_labels, quality (hourly
-masked fraction and gaps), health, and schema_version. Detections and human labels are kept apart: a
-label belongs to the event it was given to (by event id) for as long as that event
-exists. Only when re-running detection replaced the event (a change of thresholds, and
-thus of event ids) does the label move, to the new event whose time-frequency box
-matches the label's own box best (intersection over union), and only to an event that
-carries no label of its own. A label that finds no such event stays in the store as an
+masked fraction and gaps), health, and schema_version. Detections and human labels are
+kept apart: a label belongs to the event it was given to (by event id) for as long as
+that event exists. Only when re-running detection replaced the event (a change of
+thresholds, and thus of event ids) does the label move, to the new event whose
+time-frequency box matches the label's own box best (intersection over union), and only
+to an event that carries no label of its own. A label that finds no such event stays in the store as an
 orphan, listed by ``orphan_labels`` and tried again at the next re-detection: labels
 are never lost and never land on an event a reviewer did not mean.
 

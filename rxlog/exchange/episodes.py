@@ -5,14 +5,17 @@ Episodes last minutes to hours, so they are matched by overlap, not by a time
 difference: each station's episode times are first put on the common clock with the
 offsets the comparison measured from bursts (rxlog.exchange.clocks: station time minus
 true time), then two episodes of different stations are one phenomenon when their time
-spans, widened by EPISODE_SLACK_S, overlap and their bands share some frequency. Overlapping episodes link into groups (a Type IV seen whole at one station
-and in two pieces at another is one group); an episode is confirmed when its group
-holds at least two stations.
+spans, widened by EPISODE_SLACK_S, overlap and their bands share some frequency.
+Overlapping episodes link into groups (a Type IV seen whole at one station and in two
+pieces at another is one group); an episode is confirmed when its group holds at least
+two stations.
 """
 
 from __future__ import annotations
 
 import numpy as np
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
 
 from rxlog import boxes
 from rxlog.timeutil import parse_iso
@@ -32,19 +35,8 @@ EPISODE_ROW_COLUMNS = ("episode_match_id", "n_stations", "stations", "station", 
 
 def _groups(n: int, ia, ib) -> np.ndarray:
     """Connected components of n items linked by the pairs (ia, ib): a label per item."""
-    parent = np.arange(n)
-
-    def root(i):
-        while parent[i] != i:
-            parent[i] = parent[parent[i]]
-            i = parent[i]
-        return i
-
-    for a, b in zip(ia.tolist(), ib.tolist()):
-        ra, rb = root(a), root(b)
-        if ra != rb:
-            parent[max(ra, rb)] = min(ra, rb)
-    return np.array([root(i) for i in range(n)], dtype=np.int64)
+    links = coo_matrix((np.ones(len(ia)), (ia, ib)), shape=(n, n))
+    return connected_components(links, directed=False)[1]
 
 
 def confirm_episodes(episode_lists, offsets: dict[str, float], slack_s: float = EPISODE_SLACK_S):

@@ -1,6 +1,7 @@
 """The review server's requests: the page (with this session's label token and script
 nonce), files of the report folder, the night's events and episodes with their labels,
-label histories, and label writes (of an event, or of an episode and so of its bursts). The rules each request is held to are listed in ``rxlog.review.server``.
+label histories, and label writes (of an event, or of an episode and so of its bursts).
+The rules each request is held to are listed in ``rxlog.review.server``.
 """
 
 from __future__ import annotations
