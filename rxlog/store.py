@@ -389,11 +389,12 @@ class EventStore:
 
     # -- episodes -------------------------------------------------------------------------
     def episodes(self, t0: float | None = None, t1: float | None = None, station: str | None = None,
-                 episode_id: str | None = None) -> list[dict]:
-        """Stored episodes overlapping [t0, t1) (oldest first), as the detector wrote them."""
+                 episode_id: str | None = None, starting: bool = False) -> list[dict]:
+        """Stored episodes overlapping [t0, t1) (``starting``: starting in it), oldest first,
+        as the detector wrote them."""
         where, args = [], []
         if t0 is not None:
-            where.append("end_utc >= ?"); args.append(iso(t0))
+            where.append("start_utc >= ?" if starting else "end_utc >= ?"); args.append(iso(t0))
         if t1 is not None:
             where.append("start_utc < ?"); args.append(iso(t1))
         if station is not None:
@@ -411,10 +412,7 @@ class EventStore:
         its context from its member events (rxlog.store.episode_context), ``n_bursts``,
         confidence and reason (from its bursts where the detector gave none) and its latest
         label as label/label_note/label_who/label_utc."""
-        rows = self.episodes(None if starting else t0, None if starting else t1, station, episode_id)
-        if starting:
-            rows = [r for r in rows if (t0 is None or r["start_utc"] >= iso(t0))
-                    and (t1 is None or r["start_utc"] < iso(t1))]
+        rows = self.episodes(t0, t1, station, episode_id, starting)
         if not include_rfi:
             rows = [r for r in rows if r["class"] != "rfi"]
         members = self._members([r["episode_id"] for r in rows])
