@@ -221,6 +221,9 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
     exchange_dir = out / "exchange"
     lists = [exchange_dir / f"{name}-events.csv"]
     export_events(cfg, lists[0], "csv")
+    # Episode lists beside the event lists: the comparison confirms episodes across stations.
+    home_episodes = exchange_dir / f"{name}-episodes.csv"
+    with_episodes = [home_episodes] if export_events(cfg, home_episodes, "csv", level="episodes") else []
     # The partners log from an hour before the forecast window to the night's end: the
     # storm and the morning's solar bursts, in less time than a whole night.
     p_start = max(night_start, window["start"] - 3600.0)
@@ -234,15 +237,18 @@ def run_demo(out: str | Path, echo=click.echo) -> dict:
         path = exchange_dir / f"{spec[0]}-events.csv"
         export_events(pcfg, path, "csv")
         lists.append(path)
+        episode_list = exchange_dir / f"{spec[0]}-episodes.csv"
+        if export_events(pcfg, episode_list, "csv", level="episodes"):    # an empty list has nothing to confirm
+            with_episodes.append(episode_list)
     export_events(cfg, exchange_dir / f"{name}-events.xml", "votable")
     export_events(cfg, exchange_dir / f"{name}-events.json", "json")
     notable = sorted((e for e in events if e["class"] != "rfi"), key=lambda e: -(e["snr"] or 0))[:3]
     write_voevents(cfg, exchange_dir / "voevent", [e["event_id"] for e in notable])
-    result = compare_stations(lists, window_s=10.0, outdir=exchange_dir / "comparison")
+    result = compare_stations(lists + with_episodes, window_s=10.0, outdir=exchange_dir / "comparison")
     wrote["comparison"] = exchange_dir / "comparison"
-    echo(f"  exchange      {exchange_dir} (CSV, VOTable, JSON, VOEvent); comparison:")
+    echo(f"  exchange      {exchange_dir} (event and episode lists in CSV, VOTable, JSON, VOEvent); comparison:")
     for line in result.summary_lines():
         echo("    " + line)
     echo(f"done in {time.monotonic() - started:.0f} s. Next: open {report}")
-    echo(f"  or label events in a browser: rxlog review --config {cfg.path} --serve")
+    echo(f"  or label episodes and events in a browser: rxlog review --config {cfg.path} --serve")
     return wrote

@@ -1,14 +1,19 @@
 """The event store: one SQLite file (WAL mode) through sqlite-utils.
 
-Tables: stations, segments, events, episodes, labels, quality (hourly masked fraction
-and gaps), health, and schema_version. Detections and human labels are kept apart: a
-label belongs to the event it was given to (by event id) for as long as that event
-exists. Only when re-running detection replaced the event (a change of thresholds, and
-thus of event ids) does the label move, to the new event whose time-frequency box
-matches the label's own box best (intersection over union), and only to an event that
-carries no label of its own. A label that finds no such event stays in the store as an
+Tables: stations, segments, events, episodes, labels, episode_labels, quality (hourly
+masked fraction and gaps), health, and schema_version. Detections and human labels are
+kept apart: a label belongs to the event it was given to (by event id) for as long as
+that event exists. Only when re-running detection replaced the event (a change of
+thresholds, and thus of event ids) does the label move, to the new event whose
+time-frequency box matches the label's own box best (intersection over union), and only
+to an event that carries no label of its own. A label that finds no such event stays in the store as an
 orphan, listed by ``orphan_labels`` and tried again at the next re-detection: labels
 are never lost and never land on an event a reviewer did not mean.
+
+Episodes (a Jovian storm, a Type III group, a Type IV: one phenomenon, many bursts) are
+labelled the same way: an episode label is bound to the episode and moves by the same
+rule to the episode that replaced it. An episode's label is its bursts' label too,
+except for a burst that carries a label of its own: the burst's own label wins.
 """
 
 from __future__ import annotations
@@ -22,10 +27,10 @@ from pathlib import Path
 import sqlite_utils
 
 from rxlog import boxes
+from rxlog.episode_context import episode_context
 from rxlog.errors import RxlogError
 from rxlog.timeutil import iso, parse_iso
 
-SCHEMA_VERSION = 3
 
 CLASSES = ("jovian_l", "jovian_s", "solar_iii", "solar_ii", "solar_iv", "fadeout", "rfi", "unknown")
 LABELS = CLASSES + ("noise", "unsure")
@@ -46,6 +51,9 @@ EVENT_COLUMNS = {
     "cutout_path": str,
     "detected_utc": str,
 }
+
+# Episode columns added in version 5 (the detector hands them out; older stores lack them).
+EPISODE_EXTRA_COLUMNS = {"confidence": float, "reason": str, "sequence_id": str, "peak_excess_db": float}
 
 # A label whose event was replaced by re-detection moves to the new event whose box
 # matches the label's box best, if their intersection over union is at least this. A
@@ -116,7 +124,27 @@ def _v3(db: sqlite_utils.Database):
     reattach_orphans(db)
 
 
-MIGRATIONS = {1: _v1, 2: _v2, 3: _v3}  # version -> function bringing the store from version-1 to it
+def _v5(db: sqlite_utils.Database):
+    """Version 5 makes episodes the unit of review: their class confidence, one-line reason,
+    flare sequence and peak excess are kept beside the span and band, the bursts of an
+    episode are found by an index, and reviewers' episode labels get their own table
+    (bound to the episode, with its box for reattachment, as event labels are)."""
+    have = db["episodes"].columns_dict
+    for col, kind in EPISODE_EXTRA_COLUMNS.items():
+        if col not in have:
+            db["episodes"].add_column(col, kind)
+    db["events"].create_index(["episode_id"], if_not_exists=True)
+    db["episodes"].create_index(["station", "start_utc"], if_not_exists=True)
+    db["episode_labels"].create({"label_id": int, "station": str, "episode_id": str, "given_episode_id": str,
+                                 "label": str, "note": str, "who": str, "created_utc": str,
+                                 "start_utc": str, "end_utc": str, "fmin_mhz": float, "fmax_mhz": float,
+                                 "reattached_utc": str}, pk="label_id", if_not_exists=True)
+    db["episode_labels"].create_index(["episode_id"], if_not_exists=True)
+
+
+# Version -> function bringing the store to that version, applied in increasing order.
+MIGRATIONS = {1: _v1, 2: _v2, 3: _v3, 5: _v5}
+SCHEMA_VERSION = max(MIGRATIONS)
 
 
 class EventStore:
@@ -148,7 +176,7 @@ class EventStore:
         if current > SCHEMA_VERSION:
             raise RxlogError(f"{self.path}: event store schema version {current} is newer than this "
                              f"rxlog understands ({SCHEMA_VERSION}); upgrade rxlog")
-        for v in range(current + 1, SCHEMA_VERSION + 1):
+        for v in sorted(v for v in MIGRATIONS if v > current):
             with self.db.conn:
                 MIGRATIONS[v](self.db)
                 self.db["schema_version"].insert({"version": v, "applied_utc": iso(time.time())},
@@ -198,17 +226,22 @@ class EventStore:
                 self.db["events"].upsert_all(rows, pk="event_id")
 
     def upsert_episodes(self, episodes: list[dict]):
+        """Insert or update episodes by episode_id; episode labels whose episode is gone try
+        the stored episodes again."""
         if episodes:
             with self.db.conn:
                 self.db["episodes"].upsert_all(episodes, pk="episode_id", alter=True)
+                reattach_episode_orphans(self.db, episodes[0]["station"])
 
     def replace_events(self, station: str, t0: float, t1: float, events: list[dict],
                        episodes: list[dict] = ()) -> dict:
         """Replace, in one transaction, the detections of ``station`` peaking in [t0, t1).
 
         Labels of events that keep their id stay where they are; labels of replaced
-        events move to the best-matching new event (see the module's docstring). Returns
-        ``{"reattached": [(label_id, from_id, to_id)...], "orphans": [label rows]}``.
+        events move to the best-matching new event (see the module's docstring), and
+        episode labels to the best-matching new episode. Returns ``{"reattached":
+        [(label_id, from_id, to_id)...], "orphans": [label rows], "episodes_reattached":
+        [...], "episode_orphans": [...]}``.
         """
         a, b = iso(t0), iso(t1)
         rows = [self._event_row(e) for e in events]
@@ -222,8 +255,11 @@ class EventStore:
             if episodes:
                 self.db["episodes"].insert_all(list(episodes), pk="episode_id", replace=True, alter=True)
             moved = reattach_orphans(self.db, station)
+            moved_episodes = reattach_episode_orphans(self.db, station)
         orphans = [o for o in self.orphan_labels(station) if o["end_utc"] >= a and o["start_utc"] < b]
-        return {"reattached": moved, "orphans": orphans}
+        episode_orphans = [o for o in self.orphan_episode_labels(station) if o["end_utc"] >= a and o["start_utc"] < b]
+        return {"reattached": moved, "orphans": orphans,
+                "episodes_reattached": moved_episodes, "episode_orphans": episode_orphans}
 
     def get_event(self, event_id: str) -> dict:
         rows = self.events(event_id=event_id)
@@ -258,18 +294,33 @@ class EventStore:
         return rows
 
     def _attach_labels(self, events: list[dict]):
-        """Give each event the latest label that belongs to it (bound by event id)."""
-        by_id = {}
+        """Give each event the latest label that belongs to it (bound by event id); an event
+        without one takes its episode's latest label. ``label_source`` says which it is."""
+        by_id, by_episode = {}, {}
         for e in events:
-            e.update(label=None, label_note=None, label_who=None, label_utc=None)
+            e.update(label=None, label_note=None, label_who=None, label_utc=None, label_source=None)
             by_id[e["event_id"]] = e
-        ids = list(by_id)
+            if e.get("episode_id"):
+                by_episode.setdefault(e["episode_id"], []).append(e)
+        for event_id, label, note, who, created in self._latest_labels("labels", "event_id", list(by_id)):
+            by_id[event_id].update(label=label, label_note=note, label_who=who, label_utc=created,
+                                   label_source="event")
+        for episode_id, label, note, who, created in self._latest_labels("episode_labels", "episode_id",
+                                                                         list(by_episode)):
+            for e in by_episode[episode_id]:
+                if e["label_source"] != "event":
+                    e.update(label=label, label_note=note, label_who=who, label_utc=created,
+                             label_source="episode")
+
+    def _latest_labels(self, table: str, key: str, ids: list[str]) -> list[tuple]:
+        """(id, label, note, who, created_utc) of ``table``'s labels owned by ``ids``, oldest
+        first: a caller applying them in order keeps the latest."""
+        out = []
         for i in range(0, len(ids), 500):
             part = ids[i:i + 500]
-            rows = self.db.execute("select event_id, label, note, who, created_utc from labels where event_id in ("
-                                   + ",".join("?" * len(part)) + ") order by label_id", part).fetchall()
-            for event_id, label, note, who, created in rows:   # later labels overwrite: the latest wins
-                by_id[event_id].update(label=label, label_note=note, label_who=who, label_utc=created)
+            out.extend(self.db.execute(f"select {key}, label, note, who, created_utc from {table} where {key} in ("
+                                       + ",".join("?" * len(part)) + ") order by label_id", part).fetchall())
+        return out
 
     # -- labels ---------------------------------------------------------------------------
     def add_label(self, event_id: str, label: str, note: str = "", who: str = "") -> dict:
@@ -336,14 +387,99 @@ class EventStore:
         sql = "select * from health" + (" where " + " and ".join(where) if where else "") + " order by time_utc"
         return [dict(r) for r in self.db.query(sql, args)]
 
-    def episodes(self, t0: float | None = None, t1: float | None = None) -> list[dict]:
+    # -- episodes -------------------------------------------------------------------------
+    def episodes(self, t0: float | None = None, t1: float | None = None, station: str | None = None,
+                 episode_id: str | None = None, starting: bool = False) -> list[dict]:
+        """Stored episodes overlapping [t0, t1) (``starting``: starting in it), oldest first,
+        as the detector wrote them."""
         where, args = [], []
         if t0 is not None:
-            where.append("end_utc >= ?"); args.append(iso(t0))
+            where.append("start_utc >= ?" if starting else "end_utc >= ?"); args.append(iso(t0))
         if t1 is not None:
             where.append("start_utc < ?"); args.append(iso(t1))
+        if station is not None:
+            where.append("station = ?"); args.append(station)
+        if episode_id is not None:
+            where.append("episode_id = ?"); args.append(episode_id)
         sql = "select * from episodes" + (" where " + " and ".join(where) if where else "") + " order by start_utc"
         return [dict(r) for r in self.db.query(sql, args)]
+
+    def episodes_with_context(self, t0: float | None = None, t1: float | None = None,
+                              station: str | None = None, include_rfi: bool = True,
+                              labelled_only: bool = False, starting: bool = False,
+                              episode_id: str | None = None) -> list[dict]:
+        """Episodes overlapping [t0, t1) (``starting``: starting in it), oldest first, each with
+        its context from its member events (rxlog.store.episode_context), ``n_bursts``,
+        confidence and reason (from its bursts where the detector gave none) and its latest
+        label as label/label_note/label_who/label_utc."""
+        rows = self.episodes(t0, t1, station, episode_id, starting)
+        if not include_rfi:
+            rows = [r for r in rows if r["class"] != "rfi"]
+        members = self._members([r["episode_id"] for r in rows])
+        labels = {eid: (label, note, who, created) for eid, label, note, who, created
+                  in self._latest_labels("episode_labels", "episode_id", [r["episode_id"] for r in rows])}
+        for r in rows:
+            r.update(episode_context(r, members.get(r["episode_id"], [])))
+            label, note, who, created = labels.get(r["episode_id"], (None,) * 4)
+            r.update(label=label, label_note=note, label_who=who, label_utc=created)
+        if labelled_only:
+            rows = [r for r in rows if r["label"] is not None]
+        return rows
+
+    def _members(self, episode_ids: list[str]) -> dict[str, list[dict]]:
+        """The member events of episodes (the columns their context is made from), by episode."""
+        cols = ("episode_id", "class", "confidence", "reason", "start_utc", "end_utc", "cml3_deg", "io_phase_deg",
+                "cml3_start_deg", "cml3_end_deg", "io_phase_start_deg", "io_phase_end_deg", "source_region",
+                "sun_alt_deg", "jupiter_alt_deg")
+        out: dict[str, list[dict]] = {}
+        select = ", ".join(f'"{c}"' for c in cols)
+        for i in range(0, len(episode_ids), 500):
+            part = episode_ids[i:i + 500]
+            for row in self.db.execute(f"select {select} from events where episode_id in ("
+                                       + ",".join("?" * len(part)) + ")", part).fetchall():
+                out.setdefault(row[0], []).append(dict(zip(cols, row)))
+        return out
+
+    def get_episode(self, episode_id: str) -> dict:
+        rows = self.episodes_with_context(episode_id=episode_id)
+        if not rows:
+            raise RxlogError(f"no episode {episode_id!r} in {self.path}")
+        return rows[0]
+
+    def episode_bursts(self, episode_id: str) -> list[dict]:
+        """The episode's bursts (oldest first), each with its label (its own, or the episode's)."""
+        rows = [dict(r) for r in self.db.query("select * from events where episode_id = ? order by peak_utc",
+                                                [episode_id])]
+        self._attach_labels(rows)
+        return rows
+
+    def add_episode_label(self, episode_id: str, label: str, note: str = "", who: str = "") -> dict:
+        """Label an episode, and with it those of its bursts that carry no label of their own.
+        The label keeps the episode's box, so that re-detection can find its successor."""
+        if label not in LABELS:
+            raise RxlogError(f"unknown label {label!r}; expected one of {', '.join(LABELS)}")
+        ep = self.get_episode(episode_id)
+        row = {"station": ep["station"], "episode_id": episode_id, "given_episode_id": episode_id,
+               "label": label, "note": note or "", "who": who or "", "created_utc": iso(time.time()),
+               "start_utc": ep["start_utc"], "end_utc": ep["end_utc"], "fmin_mhz": ep["fmin_mhz"],
+               "fmax_mhz": ep["fmax_mhz"], "reattached_utc": None}
+        with self.db.conn:
+            self.db["episode_labels"].insert(row, pk="label_id")
+        return row
+
+    def episode_label_history(self, episode_id: str) -> list[dict]:
+        """Every label (oldest first) that belongs to this episode now."""
+        self.get_episode(episode_id)
+        return [dict(r) for r in self.db.query("select * from episode_labels where episode_id = ? "
+                                                "order by label_id", [episode_id])]
+
+    def orphan_episode_labels(self, station: str | None = None) -> list[dict]:
+        """Episode labels whose episode was replaced by re-detection and that found no successor yet."""
+        sql = "select * from episode_labels where episode_id not in (select episode_id from episodes)"
+        args = []
+        if station is not None:
+            sql += " and station = ?"; args.append(station)
+        return [dict(r) for r in self.db.query(sql + " order by label_id", args)]
 
 
 @functools.lru_cache(maxsize=65536)
@@ -371,28 +507,40 @@ def reattach_orphans(db: sqlite_utils.Database, station: str | None = None) -> l
     each vanished event gets at most one successor and no successor two predecessors.
     Runs inside the caller's transaction; returns (label_id, from_event, to_event).
     """
-    sql = "select * from labels where event_id not in (select event_id from events)"
+    return _reattach(db, station, "labels", "events", "event_id")
+
+
+def reattach_episode_orphans(db: sqlite_utils.Database, station: str | None = None) -> list[tuple[int, str, str]]:
+    """Move episode labels whose episode no longer exists to the episode that replaced it,
+    by the rule of ``reattach_orphans`` (ties by the nearer start). Runs inside the
+    caller's transaction; returns (label_id, from_episode, to_episode)."""
+    return _reattach(db, station, "episode_labels", "episodes", "episode_id")
+
+
+def _reattach(db, station, labels: str, owners: str, key: str) -> list[tuple[int, str, str]]:
+    """``reattach_orphans`` for labels in table ``labels`` bound by ``key`` to rows of ``owners``."""
+    sql = f"select * from {labels} where {key} not in (select {key} from {owners})"
     args = []
     if station is not None:
         sql += " and station = ?"; args.append(station)
     groups: dict[str, list[dict]] = {}
     for r in db.query(sql + " order by label_id", args):
-        groups.setdefault(r["event_id"], []).append(dict(r))
+        groups.setdefault(r[key], []).append(dict(r))
     if not groups:
         return []
+    tie = "peak_utc" if owners == "events" else "start_utc"   # events: the nearer peak; episodes: start
     pairs = []
-    for old_id, labels in groups.items():
-        lab = labels[-1]
+    for old_id, group in groups.items():
+        lab = group[-1]
         near = db.query(
-            "select event_id, station, start_utc, end_utc, peak_utc, fmin_mhz, fmax_mhz from events "
-            "where station = ? and start_utc <= ? and end_utc >= ? "
-            "and event_id not in (select event_id from labels)",
+            f"select {key}, start_utc, end_utc, {tie} as tie, fmin_mhz, fmax_mhz from {owners} "
+            f"where station = ? and start_utc <= ? and end_utc >= ? and {key} not in (select {key} from {labels})",
             [lab["station"], iso(_box(lab)[1]), lab["start_utc"]])
         for e in near:
             iou = box_iou(lab, e)
             if iou >= LABEL_MIN_IOU:
-                dpeak = abs(_t(e["peak_utc"]) - _t(lab["peak_utc"])) if lab.get("peak_utc") else math.inf
-                pairs.append((-iou, dpeak, e["event_id"], old_id))
+                d = abs(_t(e["tie"]) - _t(lab[tie])) if lab.get(tie) else math.inf
+                pairs.append((-iou, d, e[key], old_id))
     moved, taken, done = [], set(), set()
     now = iso(time.time())
     for _, _, new_id, old_id in sorted(pairs):
@@ -401,7 +549,7 @@ def reattach_orphans(db: sqlite_utils.Database, station: str | None = None) -> l
         taken.add(new_id)
         done.add(old_id)
         for lab in groups[old_id]:
-            db.execute("update labels set event_id = ?, reattached_utc = ? where label_id = ?",
+            db.execute(f"update {labels} set {key} = ?, reattached_utc = ? where label_id = ?",
                        [new_id, now, lab["label_id"]])
             moved.append((lab["label_id"], old_id, new_id))
     return moved

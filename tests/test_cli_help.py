@@ -66,7 +66,7 @@ def test_review_help_lists_every_key_the_page_handles():
     (["ephem"], "--start"),
     (["forecast"], "--days"),
     (["simulate", "--start", "now", "--hours", "1"], "--out"),
-    (["label"], "EVENT_ID"),
+    (["label"], "ID"),
     (["label", "birchwater-20270202T170756.1-19.543"], "LABEL"),
     (["ingest"], "PATH"),
     (["compare"], "FILE"),

@@ -2,6 +2,7 @@
 config it writes is a working station config for the other commands."""
 
 import csv
+import re
 
 import pytest
 from click.testing import CliRunner
@@ -32,6 +33,10 @@ def test_demo_writes_config_archive_store_and_report(demo):
     assert sum(e["event_id"] in html for e in events) == len(events)
     truth = list(csv.DictReader(open(cfg.storage_root / "truth.csv")))
     assert truth and {"class", "start_utc", "peak_excess_db"} <= truth[0].keys()
+    # The night reads as a handful of items: a storm is one, not its hundreds of bursts.
+    summary = (report.parent / "summary.txt").read_text()
+    n_items = int(re.search(r"to review: (\d+) items", summary).group(1))
+    assert 0 < n_items <= 20, summary
 
 
 def test_demo_forecast_and_exchange(demo):
@@ -41,7 +46,8 @@ def test_demo_forecast_and_exchange(demo):
     assert (fc / "birchwater-next-week.png").stat().st_size > 10_000
     ex = out / "exchange"
     for name in ("birchwater", "kestrel-ridge", "saltmarsh-point"):
-        assert (ex / f"{name}-events.csv").exists()
+        assert (ex / f"{name}-events.csv").exists() and (ex / f"{name}-episodes.csv").exists()
+    assert (ex / "comparison" / "matched_episodes.csv").exists() and "episodes confirmed" in output
     assert (ex / "comparison" / "timeline.png").exists()
     assert "offset" in output
 

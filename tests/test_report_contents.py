@@ -29,7 +29,7 @@ class PageParser(HTMLParser):
 
     def __init__(self):
         super().__init__()
-        self.links, self.ids, self.cards, self.card_images = [], set(), [], {}
+        self.links, self.ids, self.cards, self.card_images, self.episodes = [], set(), [], {}, []
         self._card = None
 
     def handle_starttag(self, tag, attrs):
@@ -42,6 +42,9 @@ class PageParser(HTMLParser):
         if tag == "section" and "event" in (a.get("class") or "").split():
             self._card = a["data-event-id"]
             self.cards.append(self._card)
+        elif tag == "section" and "episode" in (a.get("class") or "").split():
+            self._card = a["data-episode-id"]
+            self.episodes.append(self._card)
         if tag == "img" and self._card is not None:
             self.card_images[self._card] = a["src"]
 
@@ -76,7 +79,11 @@ def test_every_event_has_a_card_and_its_zoom(built):
     page = parse(index)
     classes = {e["class"] for e in events}
     assert {"solar_iii", "jovian_l"} <= classes, "the simulated bursts were not detected"
-    assert page.cards == [e["event_id"] for e in events]
+    # Each event once: inside its episode's card, or a card of its own.
+    assert sorted(page.cards) == sorted(e["event_id"] for e in events)
+    assert page.episodes and {e["episode_id"] for e in events} >= set(page.episodes)
+    for ep in page.episodes:
+        assert page.card_images[ep] == f"events/{ep}.png" and (index.parent / page.card_images[ep]).is_file()
     for e in events:
         src = page.card_images[e["event_id"]]
         assert src == event_image_name(e) and (index.parent / src).is_file()

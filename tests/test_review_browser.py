@@ -1,6 +1,7 @@
 """The review page in a real headless browser (Debian's chromium driven by Playwright):
 step through events with the keyboard, label one, reload, and the label is still there
-and in the event store; the page shows the class palette and names the zone of its times."""
+and in the event store; label an episode with the keyboard and its bursts follow, except
+one given its own label; the page shows the class palette and names the zone of its times."""
 
 import os
 import re
@@ -8,6 +9,7 @@ import shutil
 
 import pytest
 from test_report_night import make_night
+from test_review_episodes import STORM, make_episode_night
 
 from rxlog.review import palette
 from rxlog.review.night import report_dir
@@ -140,8 +142,9 @@ def test_cards_and_chips_show_the_palette_and_every_time_names_its_zone(served, 
         cls: c.dataset.class, edge: getComputedStyle(c).borderLeftColor,
         chip: getComputedStyle(c.querySelector('h3 .chip')).backgroundColor,
         chipText: c.querySelector('h3 .chip').textContent, when: c.querySelector('h3 .when').textContent}))""")
-    assert [c["cls"] for c in cards] == [e["class"] for e in events]
-    for c, e in zip(cards, events):
+    shown = sorted(events, key=lambda e: e["class"] == "rfi")     # interference after what is to review
+    assert [c["cls"] for c in cards] == [e["class"] for e in shown]
+    for c, e in zip(cards, shown):
         assert c["edge"] == c["chip"] == _css_rgb(palette.colour(c["cls"])), c
         assert c["chipText"].endswith(f"confidence {e['confidence']:.2f}")
         assert re.fullmatch(r"\d\d:\d\d:\d\d EST", c["when"]), c["when"]
@@ -166,3 +169,61 @@ def test_cards_and_chips_show_the_palette_and_every_time_names_its_zone(served, 
     assert m_status and m_history, (status, history)
     assert m_status.group(0) == m_history.group(0)
     assert errors == []
+
+
+@pytest.fixture(scope="module")
+def served_episodes(tmp_path_factory):
+    _browser_or_skip()
+    cfg, night, events = make_episode_night(tmp_path_factory.mktemp("browser-episodes"))
+    build_report(cfg, night)
+    srv = ReviewServer(cfg, night, port=0)
+    srv.start_background()
+    yield cfg, night, events, srv
+    srv.shutdown()
+    srv.server_close()
+
+
+def test_label_an_episode_with_the_keyboard_and_its_bursts_follow(served_episodes, browser):
+    cfg, night, events, srv = served_episodes
+    bursts = [e for e in events if e.get("episode_id") == STORM]
+    page = browser.new_page()
+    errors = []
+    page.on("pageerror", lambda e: errors.append(str(e)))
+    page.goto(srv.url)
+    page.fill("#who", "ana")
+    page.locator("#who").press("Tab")
+    page.locator("body").click(position={"x": 5, "y": 5})
+    for _ in range(len(events)):                 # step through the items to the storm
+        page.keyboard.press("j")
+        if page.locator("section.current").get_attribute("data-episode-id") == STORM:
+            break
+    assert page.locator("section.current").get_attribute("data-episode-id") == STORM
+    page.keyboard.press("1")                     # key 1: jovian_l, for the episode
+    head = f'section.episode[data-episode-id="{STORM}"]'
+    page.locator(f"{head} > .body .status").filter(has_text="saved").wait_for(timeout=5000)
+    assert "Jupiter L-burst" in page.locator(f"{head} > h3 .current-label").inner_text()
+    # Its bursts show the label at once, as coming from their episode.
+    first = f'section.burst[data-event-id="{bursts[0]["event_id"]}"]'
+    assert "from its episode" in page.locator(f"{first} .current-label").text_content()
+    page.keyboard.press("o")                     # open the bursts, step to the first
+    page.keyboard.press("j")
+    assert page.locator("section.current").get_attribute("data-event-id") == bursts[0]["event_id"]
+    page.keyboard.press("7")                     # key 7: rfi, the burst's own label
+    page.locator(f"{first} .status").filter(has_text="saved").wait_for(timeout=5000)
+    page.keyboard.press("o")                     # close again: back on the episode
+    assert page.locator("section.current").get_attribute("data-episode-id") == STORM
+
+    page.reload()
+    page.wait_for_function(
+        "sel => document.querySelector(sel + ' > h3 .current-label').textContent.includes('Jupiter')",
+        arg=head, timeout=5000)
+    assert "ana" in page.locator(f"{head} > h3 .current-label").inner_text()
+    assert "Interference" in page.locator(f"{first} .current-label").text_content()
+    assert errors == []
+    store = EventStore(cfg.store_path)
+    try:
+        got = {e["event_id"]: (e["label"], e["label_source"]) for e in store.episode_bursts(STORM)}
+        assert store.get_episode(STORM)["label"] == "jovian_l"
+    finally:
+        store.close()
+    assert got == {e["event_id"]: ("rfi", "event") if e is bursts[0] else ("jovian_l", "episode") for e in bursts}

@@ -21,24 +21,32 @@ from rxlog.cli.base import (
 @renamed("-o", "--output", to="--out", dest="out")
 @click.option("--format", "fmt", type=click.Choice(["csv", "json", "votable"]), default="csv",
               show_default=True, help="Open format of the event list.")
+@click.option("--level", type=click.Choice(["bursts", "episodes"]), default="bursts", show_default=True,
+              help="One row per detected burst, or one per episode (a storm, a Type III group, a Type IV) "
+                   "with its class, confidence, number of bursts and context.")
 @click.option("--out", type=click.Path(dir_okay=False), metavar="FILE",
-              help="Where to write the list. Default: STATION-events.csv|.json|.vot here.")
-@click.option("--start", metavar="TIME", help=f"First peak time to include: {TIME_HELP}.")
-@click.option("--end", metavar="TIME", help="Peak times before this, read like --start.")
+              help="Where to write the list. Default: STATION-events.csv|.json|.vot here "
+                   "(STATION-episodes.* with --level episodes).")
+@click.option("--start", metavar="TIME", help=f"First peak time (episodes: start time) to include: {TIME_HELP}.")
+@click.option("--end", metavar="TIME", help="Peak times (episodes: start times) before this, read like --start.")
 @click.option("--include-rfi", is_flag=True, help="Also list events classed as interference.")
 @click.option("--labelled-only", is_flag=True, help="Only events a reviewer has labelled.")
 @click.option("--voevent", "voevent_dir", type=click.Path(file_okay=False), metavar="DIR",
-              help="Instead of a list, write one IVOA VOEvent 2.0 notice per EVENT_ID into DIR.")
+              help="Instead of a list, write one IVOA VOEvent 2.0 notice per EVENT_ID (per episode id "
+                   "with --level episodes) into DIR.")
 @click.argument("event_ids", nargs=-1, metavar="[EVENT_ID]...")
-def export_cmd(cfg, fmt, out, start, end, include_rfi, labelled_only, voevent_dir, event_ids):
+def export_cmd(cfg, fmt, level, out, start, end, include_rfi, labelled_only, voevent_dir, event_ids):
     """Export this station's events for partner stations (CSV, JSON or VOTable), with the
-    station's metadata in the header, or VOEvent 2.0 notices for single events.
+    station's metadata in the header, or VOEvent 2.0 notices for single events; with
+    --level episodes, one row (or notice) per episode instead of per burst.
 
     \b
     Examples:
       rxlog export --config station.toml --start 2027-02-01 --end 2027-02-08 --out week.csv
       rxlog export --config station.toml --format votable --labelled-only --out labelled.vot
+      rxlog export --config station.toml --level episodes --start 2027-02-01 --out episodes.csv
       rxlog export --config station.toml --voevent notices/ birchwater-20270203T141502.0-20.000
+      rxlog export --config station.toml --level episodes --voevent notices/ ep-birchwater-20270203T141502.0-20.000
     """
     # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.exchange.columns import SUFFIX
@@ -47,8 +55,9 @@ def export_cmd(cfg, fmt, out, start, end, include_rfi, labelled_only, voevent_di
 
     if voevent_dir is not None:
         if not event_ids:
-            raise UserError("--voevent DIR needs one or more EVENT_IDs (see `rxlog events`)")
-        paths = write_voevents(cfg, voevent_dir, list(event_ids))
+            raise UserError("--voevent DIR needs one or more EVENT_IDs (see `rxlog events`"
+                            + (" --episodes)" if level == "episodes" else ")"))
+        paths = write_voevents(cfg, voevent_dir, list(event_ids), level=level)
         for p in paths:
             click.echo(f"wrote {p}")
         return
@@ -58,9 +67,11 @@ def export_cmd(cfg, fmt, out, start, end, include_rfi, labelled_only, voevent_di
     t1 = parse_time_option(end, "--end", cfg)
     if t0 is not None and t1 is not None and t1 <= t0:
         raise UserError("--end must be after --start")
-    out = Path(out) if out else Path(f"{cfg['station']['name']}-events{SUFFIX[fmt]}")
-    n = export_events(cfg, out, fmt, t0=t0, t1=t1, include_rfi=include_rfi, labelled_only=labelled_only)
-    click.echo(f"wrote {n} events to {out} ({fmt})")
+    noun = "episodes" if level == "episodes" else "events"
+    out = Path(out) if out else Path(f"{cfg['station']['name']}-{noun}{SUFFIX[fmt]}")
+    n = export_events(cfg, out, fmt, t0=t0, t1=t1, include_rfi=include_rfi, labelled_only=labelled_only,
+                      level=level)
+    click.echo(f"wrote {n} {noun} to {out} ({fmt})")
 
 
 def _spectra_option(values: tuple[str, ...]) -> dict[str, list[str]]:
@@ -80,18 +91,22 @@ def _spectra_option(values: tuple[str, ...]) -> dict[str, list[str]]:
 @click.option("--window", "window_s", type=float, default=10.0, show_default=True, metavar="SECONDS",
               help="How far apart (beyond their overlap) two stations' events may be and still match.")
 @click.option("--out", "outdir", type=click.Path(file_okay=False), metavar="DIR",
-              help="Write matched_events.csv, stations.csv, summary.txt and timeline.png here.")
+              help="Write matched_events.csv, matched_episodes.csv (with episode lists), stations.csv, "
+                   "summary.txt and timeline.png here.")
 @click.option("--spectra", multiple=True, metavar="STATION=PATH",
               help="A station's FITS dynamic spectra (file or folder), to refine clock offsets from "
                    "Type III light curves. Repeat per station.")
 @friendly_errors
 def compare_cmd(files, window_s, outdir, spectra):
     """Compare event lists from several stations: which events others saw too, and each
-    station's clock offset. Reads CSV, JSON or VOTable lists written by `rxlog export`.
+    station's clock offset. Reads CSV, JSON or VOTable lists written by `rxlog export`;
+    episode lists (`rxlog export --level episodes`) given beside them are confirmed across
+    stations (seen at two or more) on the clocks the events give.
 
     \b
     Examples:
       rxlog compare birchwater.csv kestrel-ridge.json saltmarsh-point.vot --out compare/
+      rxlog compare a.csv b.csv a-episodes.csv b-episodes.csv --out compare/
       rxlog compare a.csv b.csv --window 5 --spectra a=a-fits/ --spectra b=b-fits/
     """
     # imported on use: `rxlog --help` and the other commands start without this stage

@@ -42,15 +42,19 @@ def review(cfg, night, serve, port, host, allow_remote, access_token):
     """Write the morning report of one night and print its summary; --serve to label events.
 
     The report folder (under the storage root's reports/) holds index.html with the
-    plots beside it; it opens from disk and can be copied elsewhere. With --serve the
-    page on http://127.0.0.1:PORT/ saves labels to the event store as you choose them.
+    plots beside it; it opens from disk and can be copied elsewhere. The page lists the
+    night's episodes (a Jovian storm, a Type III group, a Type IV: one card each, its
+    bursts folded inside) and the bursts of no episode. With --serve the page on
+    http://127.0.0.1:PORT/ saves labels to the event store as you choose them; a label
+    given to an episode is its bursts' label too, unless a burst carries its own.
 
     \b
     Keys on the page:
-      j or Down              next event
-      k or Up                previous event
-      u                      next unlabelled event
-      1 2 3 4 5 6 7 8 9 0    label the event (each label button shows its key)
+      j or Down              next item (or burst of an open episode)
+      k or Up                previous item
+      u                      next unlabelled item
+      o                      open or close the bursts of the episode
+      1 2 3 4 5 6 7 8 9 0    label the item (each label button shows its key)
       n                      type a note, saved with the next label (Enter or Escape ends the note)
       ?                      jump to the list of keys
 
@@ -84,30 +88,37 @@ def review(cfg, night, serve, port, host, allow_remote, access_token):
 @click.option("--night", metavar="YYYY-MM-DD", help="Only this night (local noon to noon). Default: all events.")
 @click.option("--class", "cls", type=click.Choice(CLASSES), help="Only events of this detected class.")
 @click.option("--unlabelled", is_flag=True, help="Only events nobody has labelled yet.")
-def events(cfg, night, cls, unlabelled):
-    """List stored events as a table (local times), oldest first.
+@click.option("--episodes", is_flag=True, help="List episodes (one row per storm, group or long event) "
+              "instead of events.")
+def events(cfg, night, cls, unlabelled, episodes):
+    """List stored events (or, with --episodes, episodes) as a table (local times), oldest first.
 
     \b
-    Example:
+    Examples:
       rxlog events --config station.toml --night 2027-02-03 --class jovian_l --unlabelled
+      rxlog events --config station.toml --night 2027-02-03 --episodes
     """
     # imported on use: `rxlog --help` and the other commands start without this stage
-    from rxlog.review.listing import event_table
+    from rxlog.review.listing import episode_table, event_table
 
-    click.echo(event_table(cfg, night=night, cls=cls, unlabelled=unlabelled))
+    table = episode_table if episodes else event_table
+    click.echo(table(cfg, night=night, cls=cls, unlabelled=unlabelled))
 
 
 @station_command("label")
-@click.argument("event_id")
+@click.argument("event_id", metavar="ID")
 @click.argument("label", metavar="LABEL", type=click.Choice(LABELS))
 @click.option("--note", default="", help="Free text kept with the label.")
 @click.option("--who", default=None, help="Who labels (default: your login name).")
 def label(cfg, event_id, label, note, who):
-    """Label one event (a class, 'noise' for nothing real, or 'unsure'); earlier labels stay in its history.
+    """Label one event or episode (a class, 'noise' for nothing real, or 'unsure'); earlier
+    labels stay in its history. ID is an event id or an episode id (`rxlog events
+    --episodes`); an episode's label is its bursts' label too, unless a burst has its own.
 
     \b
-    Example:
+    Examples:
       rxlog label --config station.toml birchwater-20270202T170756.1-19.543 jovian_l --note "clear arc"
+      rxlog label --config station.toml ep-birchwater-20270203T053012.4-18.250 jovian_l --note "Io-B storm"
     """
     # imported on use: `rxlog --help` and the other commands start without this stage
     from rxlog.store import EventStore
@@ -119,7 +130,14 @@ def label(cfg, event_id, label, note, who):
             who = ""
     store = EventStore(cfg.store_path)
     try:
-        store.add_label(event_id, label, note=note, who=who)
+        if store.events(event_id=event_id) or not store.episodes(episode_id=event_id):
+            store.add_label(event_id, label, note=note, who=who)
+            what = ""
+        else:
+            store.add_episode_label(event_id, label, note=note, who=who)
+            n = len(store.episode_bursts(event_id))
+            what = f" (an episode: its {n} burst{'s' if n != 1 else ''} take the label unless they carry their own)"
     finally:
         store.close()
-    click.echo(f"{event_id}: labelled {label}" + (f" by {who}" if who else "") + (f" — {note}" if note else ""))
+    click.echo(f"{event_id}: labelled {label}" + (f" by {who}" if who else "") + (f" — {note}" if note else "")
+               + what)

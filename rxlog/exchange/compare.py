@@ -25,8 +25,14 @@ is not. ``compare_stations`` reads event lists from any number of stations and
 3. when partners share dynamic spectra, refines the offsets by cross-correlating Type III
    light curves channel by channel on a fine time grid, each channel at its true
    sampling time (row time plus the per-channel sweep offset). (rxlog.exchange.lightcurves)
-4. writes a matched-events table (CSV), a per-station summary (CSV and text) and a
-   timeline plot (rxlog.exchange.outputs, rxlog.exchange.timeline).
+4. when episode lists are given beside the event lists (``rxlog export --level
+   episodes``), confirms episodes across stations: put on the common clock with the
+   offsets from step 2 or 3, episodes that overlap in time and band at two or more
+   stations are one phenomenon seen twice (rxlog.exchange.episodes). Clock offsets come
+   from bursts only: an episode's edges are minutes wide, no clock.
+5. writes a matched-events table (CSV), a matched-episodes table when there are
+   episodes, a per-station summary (CSV and text) and a timeline plot
+   (rxlog.exchange.outputs, rxlog.exchange.timeline).
 """
 
 from __future__ import annotations
@@ -45,6 +51,7 @@ from rxlog.exchange.clocks import (
     reference_stations,
     relative_to,
 )
+from rxlog.exchange.episodes import confirm_episodes
 from rxlog.exchange.importer import EventList, read_event_list
 from rxlog.exchange.lightcurves import load_spectra, refine_lags
 from rxlog.exchange.matching import candidates, group_events, pair_offsets
@@ -69,6 +76,8 @@ class StationResult:
     event_offset_err_s: float | None = None
     in_reference: bool = False      # part of the group of agreeing clocks the offsets refer to
     flagged: bool = False
+    n_episodes: int = 0             # episodes in its episode lists
+    n_episodes_confirmed: int = 0   # of which seen by at least one other station
 
     @property
     def clock_sync(self) -> str:
@@ -86,6 +95,8 @@ class CompareResult:
     window_s: float
     notices: list[str] = field(default_factory=list)
     files: dict[str, Path] = field(default_factory=dict)
+    episode_rows: list[dict] = field(default_factory=list)        # one per episode (rxlog.exchange.episodes)
+    episode_group_sizes: dict[int, int] = field(default_factory=dict)
 
     def summary_lines(self) -> list[str]:
         """The comparison for a person: counts, then one line per station with its clock offset."""
@@ -93,6 +104,11 @@ class CompareResult:
         multi = [(k, v) for k, v in sorted(self.group_sizes.items()) if k >= 2]
         seen = ", ".join(f"{v} at {k} stations" for k, v in multi) or "none at two or more stations"
         lines = [f"{len(self.stations)} stations, {n_events} events; seen within {self.window_s:g} s: {seen}"]
+        if self.episode_rows:
+            n_groups = sum(self.episode_group_sizes.values())
+            multi = sum(v for k, v in self.episode_group_sizes.items() if k >= 2)
+            lines.append(f"{len(self.episode_rows)} episodes, {n_groups} phenomena; "
+                         f"{multi} confirmed (seen at two or more stations)")
         if self.reference:
             lines.append(f"Clock offsets against the mean of {', '.join(self.reference)} "
                          "(positive: the station's clock is ahead):")
@@ -107,7 +123,9 @@ class CompareResult:
             if s.n_lightcurves:
                 how += f" and {s.n_lightcurves} Type III light curves"
             line = (head + f"offset {s.offset_s:+.{nd}f} ± {s.offset_err_s:.{nd}f} s from {how}; "
-                    f"{s.n_confirmed}/{s.n_events} events confirmed; clock sync {s.clock_sync}")
+                    f"{s.n_confirmed}/{s.n_events} events confirmed; "
+                    + (f"{s.n_episodes_confirmed}/{s.n_episodes} episodes confirmed; " if s.n_episodes else "")
+                    + f"clock sync {s.clock_sync}")
             if s.flagged:
                 line += " -- LARGE OFFSET: check this station's time sync"
             lines.append(line)
@@ -120,16 +138,20 @@ class CompareResult:
 
 # -- reading --------------------------------------------------------------------------------
 
-def _load(paths) -> tuple[list[EventList], list[str]]:
-    """The lists of ``paths`` (files or EventLists), one per station (lists of one station
-    merged), and the notices of reading them."""
+def _load(paths) -> tuple[list[EventList], list[EventList], list[str]]:
+    """The event lists of ``paths`` (files or EventLists), one per station (lists of one
+    station merged), the episode lists among them, and the notices of reading them."""
     lists: dict[str, EventList] = {}
+    episode_lists: list[EventList] = []
     notices: list[str] = []
     for p in paths:
         el = p if isinstance(p, EventList) else read_event_list(p)
         if not el.events:
             raise RxlogError(f"{el.path or el.name}: no events to compare")
         notices.extend(el.notices)
+        if el.level == "episodes":
+            episode_lists.append(el)
+            continue
         if el.name in lists:
             have = lists[el.name]
             ids = {e["event_id"] for e in have.events}
@@ -140,9 +162,9 @@ def _load(paths) -> tuple[list[EventList], list[str]]:
         else:
             lists[el.name] = EventList(dict(el.station), list(el.events), [], el.path, el.format)
     if len(lists) < 2:
-        raise RxlogError("need event lists from at least two stations to compare; got "
-                         + (", ".join(lists) or "none"))
-    return list(lists.values()), notices
+        raise RxlogError("need event lists (of bursts: they set the clocks) from at least two stations "
+                         "to compare; got " + (", ".join(lists) or "none"))
+    return list(lists.values()), episode_lists, notices
 
 
 # -- the comparison ------------------------------------------------------------------------
@@ -151,16 +173,18 @@ def compare_stations(paths, window_s: float = 10.0, outdir=None, spectra=None, p
     """Match events across stations, count confirmations, estimate clock offsets.
 
     ``paths``: event-list files (CSV, JSON, VOTable) or ``EventList`` objects, one or more
-    per station. ``spectra``: optional {station name: [DynamicSpectrum or FITS path or
+    per station, and optionally their episode lists (confirmed across stations on the
+    clocks the events give). ``spectra``: optional {station name: [DynamicSpectrum or FITS path or
     folder, ...]} for the Type III light-curve refinement. With ``outdir``, writes
-    matched_events.csv, stations.csv, summary.txt and timeline.png there. ``progress``,
+    matched_events.csv, matched_episodes.csv (with episode lists), stations.csv, summary.txt
+    and timeline.png there. ``progress``,
     if given, is called with the name of each stage as it starts.
     """
     step = progress or (lambda stage: None)
     if not (isinstance(window_s, (int, float)) and 0 < window_s <= 3600):
         raise RxlogError(f"window {window_s!r}: expected seconds between 0 and 3600")
     step(f"reading {len(paths)} event lists")
-    lists, notices = _load(paths)
+    lists, episode_lists, notices = _load(paths)
     names = [el.name for el in lists]
     n_st = len(lists)
     E = event_arrays(lists)
@@ -193,10 +217,24 @@ def compare_stations(paths, window_s: float = 10.0, outdir=None, spectra=None, p
     size_count = {int(k): int(v) for k, v in zip(*np.unique(sizes[sizes > 0], return_counts=True))}
     result = CompareResult(stations=stations, rows=rows, group_sizes=size_count,
                            reference=[names[r] for r in ref], window_s=float(window_s), notices=notices)
+    if episode_lists:
+        step("confirming episodes across stations")
+        _episodes(result, episode_lists, {names[k]: float(off[k]) for k in range(n_st) if np.isfinite(off[k])})
     if outdir is not None:
         step(f"writing tables and the timeline plot to {outdir}")
         result.files = write_outputs(result, E, grp, n_at, names, Path(outdir))
     return result
+
+
+def _episodes(result: CompareResult, episode_lists: list[EventList], offsets: dict[str, float]):
+    """Confirm the episodes across stations on the clocks of ``offsets``; fill ``result``."""
+    rows, per_station, sizes = confirm_episodes(episode_lists, offsets)
+    result.episode_rows, result.episode_group_sizes = rows, sizes
+    for s in result.stations:
+        s.n_episodes, s.n_episodes_confirmed = per_station.get(s.name, (0, 0))
+    for name in sorted(set(per_station) - set(offsets)):
+        result.notices.append(f"{name}: no clock offset from bursts (no matched event list); its episodes "
+                              "are compared as if its clock were right")
 
 
 def _match(E: Events, n_st: int, window_s: float):

@@ -1,10 +1,12 @@
-"""Event lists from partner stations, read strictly and safely (CSV, JSON or VOTable).
+"""Event lists and episode lists from partner stations, read strictly and safely (CSV,
+JSON or VOTable).
 
 Imports take files from anyone: nothing is evaluated or unpickled, XML with a DOCTYPE
 or entity declarations is refused (by defusedxml) before astropy's VOTable parser sees
 it, each bad row is reported with file and line and skipped, and a file with nothing
-usable left is refused with an ``RxlogError``. The layout read is
-rxlog.exchange.columns, in any ``format_version`` up to this rxlog's.
+usable left is refused with an ``RxlogError``. The layouts read are
+rxlog.exchange.columns' (an event list or an episode list, told apart by the header's
+``format``, else by the columns), each in any ``format_version`` up to this rxlog's.
 """
 
 from __future__ import annotations
@@ -26,7 +28,7 @@ import numpy as np
 
 from rxlog import validate
 from rxlog.errors import RxlogError
-from rxlog.exchange.columns import FORMAT_VERSION, HEADER, KIND, REQUIRED
+from rxlog.exchange.columns import BURSTS, EPISODES, Layout
 from rxlog.store import CLASSES, LABELS
 from rxlog.timeutil import iso, parse_iso
 
@@ -46,6 +48,9 @@ COLUMN_RANGES = {
     "io_phase_deg": (0.0, 360.0),
     "jupiter_alt_deg": (-90.0, 90.0),
     "sun_alt_deg": (-90.0, 90.0),
+    **{k: (0.0, 360.0) for k in ("cml3_start_deg", "cml3_end_deg", "io_phase_start_deg", "io_phase_end_deg")},
+    **{k: (-90.0, 90.0) for k in ("jupiter_alt_min_deg", "jupiter_alt_max_deg", "sun_alt_min_deg", "sun_alt_max_deg")},
+    "n_bursts": (0, 1 << 40),
 }
 HEADER_RANGES = {
     "latitude_deg": (-90.0, 90.0),
@@ -56,6 +61,7 @@ HEADER_RANGES = {
     "channels": (1, 1 << 20),
     "cadence_s": (validate.MIN_CADENCE_S, validate.MAX_CADENCE_S),
     "n_events": (0, 1 << 40),
+    "n_episodes": (0, 1 << 40),
     "format_version": (1, 1 << 20),
 }
 
@@ -68,13 +74,14 @@ MAX_ROW_NOTICES = 20  # problem rows reported one by one per file; the rest are 
 
 @dataclass
 class EventList:
-    """One station's events as read from a file: header, events, and what was wrong."""
+    """One station's events (or episodes) as read from a file: header, rows, and what was wrong."""
 
     station: dict                       # header values (station, latitude_deg, ..., format_version)
-    events: list[dict]                  # COLUMN_NAMES fields; times as ISO strings, floats or None
+    events: list[dict]                  # the layout's fields; times as ISO strings, numbers or None
     notices: list[str] = field(default_factory=list)
     path: str = ""
     format: str = ""
+    level: str = "bursts"               # "episodes" for an episode list (rows are episodes)
 
     @property
     def name(self) -> str:
@@ -102,7 +109,7 @@ class _Problems:
 
 
 def read_event_list(path) -> EventList:
-    """Read an event list (CSV, JSON or VOTable, any format_version of ours) strictly.
+    """Read an event list or an episode list (CSV, JSON or VOTable, any format_version of ours) strictly.
 
     Bad rows are skipped and reported in ``notices`` with file and line; raises
     RxlogError when the file is unreadable or nothing usable is left.
@@ -118,14 +125,26 @@ def read_event_list(path) -> EventList:
         raise RxlogError(f"{p}: cannot read ({e.strerror or e})") from None
     fmt = _sniff(p, data)
     if fmt == "json":
-        header, rows, problems, unknown = _read_json(p, data)
+        layout, header, rows, problems, unknown = _read_json(p, data)
     elif fmt == "votable":
-        header, rows, problems, unknown = _read_votable(p, data)
+        layout, header, rows, problems, unknown = _read_votable(p, data)
     else:
-        header, rows, problems, unknown = _read_csv(p, data)
+        layout, header, rows, problems, unknown = _read_csv(p, data)
     # Records in the file: rows read plus rows already refused while reading.
     n_records = len(rows) + problems.skipped
-    return _finish(p, fmt, header, rows, problems, unknown, n_records)
+    return _finish(p, fmt, layout, header, rows, problems, unknown, n_records)
+
+
+def _layout_of(format_name, names) -> Layout:
+    """The layout a file declares in its header's ``format``; without one, the episode list
+    when its columns name episodes and not events."""
+    name = str(format_name or "").strip()
+    if name == EPISODES.name:
+        return EPISODES
+    if name == BURSTS.name:
+        return BURSTS
+    names = set(names)
+    return EPISODES if "episode_id" in names and "event_id" not in names else BURSTS
 
 
 def _sniff(p: Path, data: bytes) -> str:
@@ -239,24 +258,26 @@ def _era_text() -> tuple[str, str]:
     return iso(validate.ERA_START), iso(validate.era_end())
 
 
-def _event(cells: dict, era: tuple[str, str]) -> dict:
-    """Typed, checked event from raw cells of the known columns; ValueError names the problem.
+def _event(cells: dict, era: tuple[str, str], layout: Layout = BURSTS) -> dict:
+    """Typed, checked event (or episode) from raw cells of the known columns; ValueError
+    names the problem.
 
     ``era``: ``_era_text()``, the first and last times accepted."""
     ev = {}
-    for name, kind in KIND.items():
+    kinds = layout.kind
+    for name, kind in kinds.items():
         try:
             ev[name] = _cell(cells.get(name), kind)
         except ValueError as e:
             raise ValueError(f"{name}: {e}") from None
-    for name in REQUIRED:
+    for name in layout.required:
         if ev[name] is None:
             raise ValueError(f"{name}: empty; a value is required")
     for name, (lo, hi) in COLUMN_RANGES.items():
-        v = ev[name]
+        v = ev.get(name)
         if v is not None and not lo <= v <= hi:
             raise ValueError(f"{name} {v:g}: expected {lo:g} to {hi:g}")
-    for name in ("start_utc", "end_utc", "peak_utc"):
+    for name in ("start_utc", "end_utc", "peak_utc") if "peak_utc" in kinds else ("start_utc", "end_utc"):
         t = ev[name]
         if not (CANONICAL_TIME.fullmatch(t) and era[0] <= t <= era[1]):   # in-era years have 4 digits
             raise ValueError(f"{name} {t}: outside the receiver era, {era[0][:10]} to {era[1][:10]} "
@@ -265,11 +286,11 @@ def _event(cells: dict, era: tuple[str, str]) -> dict:
         raise ValueError(f"class: unknown class {_short(ev['class'])}; expected one of {', '.join(CLASSES)}")
     if ev["label"] is not None and ev["label"] not in LABELS:
         raise ValueError(f"label: unknown label {_short(ev['label'])}; expected one of {', '.join(LABELS)}")
-    t0, t1, tp = (ev[k] for k in ("start_utc", "end_utc", "peak_utc"))
+    t0, t1, tp = (ev.get(k) for k in ("start_utc", "end_utc", "peak_utc"))
     # Canonical times (same width, zero-padded) sort as text in time order.
     if t1 < t0:
         raise ValueError(f"end_utc {ev['end_utc']} is before start_utc {ev['start_utc']}")
-    if not t0 <= tp <= t1:
+    if tp is not None and not t0 <= tp <= t1:
         raise ValueError(f"peak_utc {ev['peak_utc']} is outside start_utc..end_utc")
     if not 0 < ev["fmin_mhz"] <= ev["fmax_mhz"]:
         raise ValueError(f"fmin_mhz {ev['fmin_mhz']} and fmax_mhz {ev['fmax_mhz']}: expected 0 < fmin <= fmax")
@@ -278,20 +299,20 @@ def _event(cells: dict, era: tuple[str, str]) -> dict:
     return ev
 
 
-def _header(raw: dict, where: str, notices: list[str]) -> dict:
+def _header(raw: dict, where: str, notices: list[str], layout: Layout = BURSTS) -> dict:
     """Typed header values; a value of the wrong type becomes None with a notice."""
     out = {}
-    for key, (kind, *_rest) in HEADER.items():
+    for key, (kind, *_rest) in layout.header.items():
         if key not in raw:
             continue
         try:
-            out[key] = _header_value(key, _convert(raw[key], kind))
+            out[key] = _header_value(key, kind, _convert(raw[key], kind))
         except ValueError as e:
             notices.append(f"{where}: header {key}: {e}; ignored")
     return out
 
 
-def _header_value(key: str, v):
+def _header_value(key: str, kind: str, v):
     """A typed header value checked against HEADER_RANGES and the receiver era; ValueError if outside."""
     if v is None:
         return v
@@ -299,7 +320,7 @@ def _header_value(key: str, v):
         lo, hi = HEADER_RANGES[key]
         if not lo <= v <= hi:
             raise ValueError(f"{v:g} is out of range, expected {lo:g} to {hi:g}")
-    elif HEADER[key][0] == "time":
+    elif kind == "time":
         problem = validate.era_problem(parse_iso(v))
         if problem:
             raise ValueError(f"{v}: {problem}")
@@ -337,7 +358,7 @@ def _read_csv(p: Path, data: bytes):
                 continue
             if line.startswith("#"):
                 m = re.match(r"#\s*([A-Za-z_][A-Za-z0-9_]*)\s*:\s?(.*)$", line)
-                if m and m.group(1) in HEADER:
+                if m and (m.group(1) in BURSTS.header or m.group(1) in EPISODES.header):
                     header_raw[m.group(1)] = m.group(2).strip()
                 continue
             try:
@@ -345,10 +366,11 @@ def _read_csv(p: Path, data: bytes):
             except csv.Error as e:
                 raise RxlogError(f"{p}:{n}: unreadable column row ({e}); expected the column names") from None
             header_line = n
-            missing = [c for c in REQUIRED if c not in columns]
+            layout = _layout_of(header_raw.get("format"), columns)
+            missing = [c for c in layout.required if c not in columns]
             if missing:
                 raise RxlogError(f"{p}:{n}: missing required column(s) {', '.join(missing)}; expected a "
-                                 f"column row with at least {', '.join(REQUIRED)}")
+                                 f"column row with at least {', '.join(layout.required)}")
             dup = sorted({c for c in columns if columns.count(c) > 1})
             if dup:
                 raise RxlogError(f"{p}:{n}: column(s) {', '.join(dup)} appear more than once")
@@ -367,9 +389,9 @@ def _read_csv(p: Path, data: bytes):
         rows.append((loc, dict(zip(columns, cells))))
     if columns is None:
         raise RxlogError(f"{p}: no column row found; expected '# key: value' header lines, then a "
-                         f"row of column names ({', '.join(REQUIRED)}, ...)")
-    unknown = [c for c in columns if c not in KIND]
-    return header_raw, rows, problems, unknown
+                         f"row of column names ({', '.join(BURSTS.required)}, ...)")
+    unknown = [c for c in columns if c not in layout.kind]
+    return layout, header_raw, rows, problems, unknown
 
 
 def _read_json(p: Path, data: bytes):
@@ -383,11 +405,13 @@ def _read_json(p: Path, data: bytes):
                          "expected {\"header\": {...}, \"events\": [...]}") from None
     except (RecursionError, ValueError) as e:
         raise RxlogError(f"{p}: unreadable JSON ({str(e)[:80]}); expected an event list") from None
+    header_raw = doc.get("header") if isinstance(doc, dict) and isinstance(doc.get("header"), dict) else {}
+    layout = EPISODES if isinstance(doc, dict) and (header_raw.get("format") == EPISODES.name or (
+        "events" not in doc and "episodes" in doc)) else BURSTS
     if isinstance(doc, list):
-        header_raw, events = {}, doc
-    elif isinstance(doc, dict) and isinstance(doc.get("events"), list):
-        header_raw = doc.get("header") if isinstance(doc.get("header"), dict) else {}
-        events = doc["events"]
+        events = doc
+    elif isinstance(doc, dict) and isinstance(doc.get(layout.noun), list):
+        events = doc[layout.noun]
     else:
         raise RxlogError(f"{p}: JSON without an \"events\" list; expected "
                          "{\"header\": {...}, \"events\": [{...}, ...]}")
@@ -397,9 +421,9 @@ def _read_json(p: Path, data: bytes):
         if not isinstance(ev, dict):
             problems.row(loc, f"expected an object of column values, got {type(ev).__name__}")
             continue
-        unknown.update(k for k in ev if k not in KIND)
+        unknown.update(k for k in ev if k not in layout.kind)
         rows.append((loc, ev))
-    return header_raw, rows, problems, sorted(map(str, unknown))
+    return layout, header_raw, rows, problems, sorted(map(str, unknown))
 
 
 def check_xml_safe(data: bytes, where: str):
@@ -434,37 +458,39 @@ def _read_votable(p: Path, data: bytes):
     except Exception as e:  # any failure of the VOTable parser on untrusted input
         raise RxlogError(f"{p}: not a readable VOTable ({str(e)[:120]})") from None
     header_raw = {}
+    keys = set(BURSTS.header) | set(EPISODES.header)
     for info in list(vot.iter_info()) + list(getattr(table, "infos", [])):
-        if info.name in HEADER:
+        if info.name in keys:
             header_raw[info.name] = info.value
     for param in table.params:
-        if param.name in HEADER:
+        if param.name in keys:
             v = param.value
             header_raw[param.name] = v.item() if isinstance(v, np.generic) else (
                 None if np.ma.is_masked(v) else v)
     names = [f.name for f in table.fields]
-    missing = [c for c in REQUIRED if c not in names]
+    layout = _layout_of(header_raw.get("format"), names)
+    missing = [c for c in layout.required if c not in names]
     if missing:
         raise RxlogError(f"{p}: VOTable without required column(s) {', '.join(missing)}; expected FIELDs "
-                         f"{', '.join(REQUIRED)}, ...")
+                         f"{', '.join(layout.required)}, ...")
     arr = table.array
     cols = {n: (arr[n].tolist() if not np.ma.isMaskedArray(arr[n]) else
                 [None if m else v for v, m in zip(arr[n].data.tolist(), np.ma.getmaskarray(arr[n]).tolist())])
-            for n in names if n in KIND}
+            for n in names if n in layout.kind}
     rows = [(f"row {i + 1}", {n: cols[n][i] for n in cols}) for i in range(len(arr))]
-    unknown = [n for n in names if n not in KIND]
-    return header_raw, rows, problems, unknown
+    unknown = [n for n in names if n not in layout.kind]
+    return layout, header_raw, rows, problems, unknown
 
 
-def _finish(p: Path, fmt: str, header_raw: dict, rows: list[tuple[str, dict]], problems: _Problems,
-            unknown: list[str], n_records: int) -> EventList:
+def _finish(p: Path, fmt: str, layout: Layout, header_raw: dict, rows: list[tuple[str, dict]],
+            problems: _Problems, unknown: list[str], n_records: int) -> EventList:
     where = str(p)
     notices: list[str] = []
-    header = _header(header_raw, where, notices)
+    header = _header(header_raw, where, notices, layout)
     version = header.get("format_version")
-    if version is not None and version > FORMAT_VERSION:
+    if version is not None and version > layout.version:
         notices.append(f"{where}: format_version {version} is newer than this rxlog reads "
-                       f"({FORMAT_VERSION}); reading the columns it knows")
+                       f"({layout.version}); reading the columns it knows")
     if unknown:
         notices.append(f"{where}: ignoring unknown column(s) {', '.join(unknown[:12])}"
                        + (f" and {len(unknown) - 12} more" if len(unknown) > 12 else ""))
@@ -476,7 +502,7 @@ def _finish(p: Path, fmt: str, header_raw: dict, rows: list[tuple[str, dict]], p
     era = _era_text()
     for loc, cells in rows:
         try:
-            ev = _event(cells, era)
+            ev = _event(cells, era, layout)
         except ValueError as e:
             problems.row(loc, str(e))
             continue
@@ -490,19 +516,20 @@ def _finish(p: Path, fmt: str, header_raw: dict, rows: list[tuple[str, dict]], p
         elif ev["station"] != station:
             problems.row(loc, f"station {ev['station']!r} differs from the file's station {station!r}")
             continue
-        if ev["event_id"] in seen:
-            problems.row(loc, f"duplicate event_id {ev['event_id']!r} (first at {seen[ev['event_id']]})")
+        key = ev[layout.id_key]
+        if key in seen:
+            problems.row(loc, f"duplicate {layout.id_key} {key!r} (first at {seen[key]})")
             continue
-        seen[ev["event_id"]] = loc
+        seen[key] = loc
         events.append(ev)
-    n_expected = header.get("n_events")
+    n_expected = header.get(layout.count_key)
     if n_expected is not None and n_expected != n_records:
-        notices.append(f"{where}: header says {n_expected} events but the file holds {n_records} rows "
+        notices.append(f"{where}: header says {n_expected} {layout.noun} but the file holds {n_records} rows "
                        "(truncated or edited?)")
     notices = problems.summary() + notices
     if not events:
         detail = ("; " + "; ".join(problems.lines[:3])) if problems.lines else ""
-        raise RxlogError(f"{where}: no usable events ({n_records} rows, {problems.skipped} skipped){detail}")
+        raise RxlogError(f"{where}: no usable {layout.noun} ({n_records} rows, {problems.skipped} skipped){detail}")
     header["station"] = station
     header.setdefault("format_version", None)
-    return EventList(station=header, events=events, notices=notices, path=where, format=fmt)
+    return EventList(station=header, events=events, notices=notices, path=where, format=fmt, level=layout.level)

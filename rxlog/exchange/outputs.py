@@ -1,4 +1,5 @@
-"""What a comparison writes: matched_events.csv, stations.csv, summary.txt and the timeline."""
+"""What a comparison writes: matched_events.csv, matched_episodes.csv (when episode lists
+were compared), stations.csv, summary.txt and the timeline."""
 
 from __future__ import annotations
 
@@ -9,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rxlog.exchange.episodes import EPISODE_ROW_COLUMNS
 from rxlog.exchange.timeline import plot_timeline
 from rxlog.exchange.timing import Events
 from rxlog.fileio import write_atomic
@@ -19,7 +21,8 @@ ROW_COLUMNS = ("match_id", "n_stations", "stations", "station", "event_id", "cla
                "peak_utc", "end_utc", "fmin_mhz", "fmax_mhz", "snr", "used_for_clock", "clock_residual_s")
 STATION_COLUMNS = ("station", "n_events", "n_confirmed", "n_clock_events", "n_type3", "n_lightcurves",
                    "offset_s", "offset_err_s", "event_offset_s", "event_offset_err_s", "in_reference",
-                   "flagged", "clock_sync", "latitude_deg", "longitude_deg", "cadence_s")
+                   "flagged", "clock_sync", "latitude_deg", "longitude_deg", "cadence_s", "n_episodes",
+                   "n_episodes_confirmed")
 
 
 def match_rows(E: Events, grp, n_at, names, used, resid) -> list[dict]:
@@ -61,16 +64,20 @@ def _csv_text(columns, rows) -> bytes:
 
 def write_outputs(result, E: Events, grp, n_at, names, outdir: Path) -> dict[str, Path]:
     """Write a comparison's ``result`` (rxlog.exchange.compare.CompareResult) to ``outdir``:
-    matched_events.csv, stations.csv, summary.txt and timeline.png."""
+    matched_events.csv, matched_episodes.csv (with episodes), stations.csv, summary.txt and timeline.png."""
     outdir.mkdir(parents=True, exist_ok=True)
     files = {"matched": write_atomic(outdir / "matched_events.csv", _csv_text(ROW_COLUMNS, result.rows))}
+    if result.episode_rows:
+        files["episodes"] = write_atomic(outdir / "matched_episodes.csv",
+                                         _csv_text(EPISODE_ROW_COLUMNS, result.episode_rows))
     srows = [{"station": s.name, "n_events": s.n_events, "n_confirmed": s.n_confirmed,
               "n_clock_events": s.n_clock, "n_type3": s.n_type3, "n_lightcurves": s.n_lightcurves,
               "offset_s": s.offset_s, "offset_err_s": s.offset_err_s, "event_offset_s": s.event_offset_s,
               "event_offset_err_s": s.event_offset_err_s, "in_reference": int(s.in_reference),
               "flagged": int(s.flagged), "clock_sync": s.clock_sync,
               "latitude_deg": s.header.get("latitude_deg"), "longitude_deg": s.header.get("longitude_deg"),
-              "cadence_s": s.header.get("cadence_s")} for s in result.stations]
+              "cadence_s": s.header.get("cadence_s"), "n_episodes": s.n_episodes,
+              "n_episodes_confirmed": s.n_episodes_confirmed} for s in result.stations]
     files["stations"] = write_atomic(outdir / "stations.csv", _csv_text(STATION_COLUMNS, srows))
     text = "\n".join(result.summary_lines() + [""] + result.notices) + "\n"
     files["summary"] = write_atomic(outdir / "summary.txt", text.encode("utf-8"))

@@ -1,8 +1,9 @@
-"""Single notable events as IVOA VOEvent 2.0 notices (IVOA Recommendation 2011-07-11).
+"""Single notable events or episodes as IVOA VOEvent 2.0 notices (IVOA Recommendation
+2011-07-11).
 
-A notice carries the event's columns as Params (rxlog.exchange.columns), the station as
-a Group and as the observatory location, the peak time, how the event was found, and
-what the detector or reviewer took it for.
+A notice carries the event's (or episode's) columns as Params (rxlog.exchange.columns),
+the station as a Group and as the observatory location, the peak time (an episode's
+start), how it was found, and what the detector or reviewer took it for.
 """
 
 from __future__ import annotations
@@ -14,8 +15,10 @@ from pathlib import Path
 
 from rxlog.errors import RxlogError
 from rxlog.exchange.columns import (
-    COLUMNS,
+    BURSTS,
+    EPISODES,
     HEADER,
+    Layout,
     cell_text,
     export_row,
     one_line,
@@ -39,18 +42,22 @@ STATION_KEYS = ("station", "latitude_deg", "longitude_deg", "elevation_m", "ante
                 "clock_sync", "band_fmin_mhz", "band_fmax_mhz", "cadence_s")
 
 
-def write_voevents(cfg, outdir, event_ids: list[str]) -> list[Path]:
-    """Write one IVOA VOEvent 2.0 notice per event id to ``outdir``/<event_id>.xml.
+def write_voevents(cfg, outdir, event_ids: list[str], level: str = "bursts") -> list[Path]:
+    """Write one IVOA VOEvent 2.0 notice per event id to ``outdir``/<event_id>.xml (with
+    ``level="episodes"``: per episode id, ``outdir``/<episode_id>.xml).
 
     Every id is looked up before anything is written; an unknown id writes nothing.
     """
+    layout = EPISODES if level == "episodes" else BURSTS
     if not event_ids:
-        raise RxlogError("no event ids given; expected one or more ids from the event list")
-    events, clock = events_from_store(cfg, lambda store: [store.get_event(eid) for eid in event_ids])
-    header = station_header(cfg, clock_sync=clock, n_events=len(events))
+        raise RxlogError(f"no {layout.noun[:-1]} ids given; expected one or more ids from the "
+                         f"{layout.noun[:-1]} list")
+    get = (lambda store, i: store.get_episode(i)) if layout is EPISODES else (lambda store, i: store.get_event(i))
+    events, clock = events_from_store(cfg, lambda store: [get(store, eid) for eid in event_ids])
+    header = station_header(cfg, clock_sync=clock, n_events=len(events), layout=layout)
     header["operator_contact"] = cfg["station"].get("operator_contact", "")
     out = Path(outdir)
-    return [write_atomic(out / (_safe_name(ev["event_id"]) + ".xml"), voevent_bytes(header, ev))
+    return [write_atomic(out / (_safe_name(ev[layout.id_key]) + ".xml"), voevent_bytes(header, ev, layout))
             for ev in events]
 
 
@@ -64,21 +71,21 @@ def _voe_time(t_iso: str) -> str:
     return iso(parse_iso(t_iso))[:-1]
 
 
-def voevent_bytes(header: dict, ev: dict) -> bytes:
-    """One event as a VOEvent 2.0 notice (IVOA Recommendation 2011-07-11)."""
+def voevent_bytes(header: dict, ev: dict, layout: Layout = BURSTS) -> bytes:
+    """One event (or episode) as a VOEvent 2.0 notice (IVOA Recommendation 2011-07-11)."""
     ET.register_namespace("voe", VOEVENT_NS)
     ET.register_namespace("xsi", XSI_NS)
     station = header["station"]
     root = ET.Element(f"{{{VOEVENT_NS}}}VOEvent", {
         "version": "2.0", "role": "observation",
         # rxlog stations have no registered IVOA authority; the id is ours, unregistered.
-        "ivorn": f"ivo://rxlog/{_safe_name(station)}#{_safe_name(ev['event_id'])}",
+        "ivorn": f"ivo://rxlog/{_safe_name(station)}#{_safe_name(ev[layout.id_key])}",
         f"{{{XSI_NS}}}schemaLocation": f"{VOEVENT_NS} http://www.ivoa.net/xml/VOEvent/VOEvent-v2.0.xsd",
     })
-    row = export_row(ev)
+    row = export_row(ev, layout)
     _who(root, header)
-    _what(root, header, row)
-    _where_when(root, header, row)
+    _what(root, header, row, layout)
+    _where_when(root, header, row, layout)
     _how(root, header)
     _why(root, station, row)
     ET.indent(root)
@@ -96,14 +103,14 @@ def _who(root: ET.Element, header: dict):
         ET.SubElement(author, "contactName").text = one_line(header["operator_contact"])
 
 
-def _what(root: ET.Element, header: dict, row: dict):
-    """The event's columns as Params, then the station as a Group of Params."""
+def _what(root: ET.Element, header: dict, row: dict, layout: Layout):
+    """The event's (or episode's) columns as Params, then the station as a Group of Params."""
     what = ET.SubElement(root, "What")
-    for name, kind, unit, ucd, desc in COLUMNS:
+    for name, kind, unit, ucd, desc in layout.columns:
         if name == "station" or row[name] is None:
             continue
         attrs = {"name": name, "ucd": ucd, "value": cell_text(row[name]),
-                 "dataType": "float" if kind == "float" else "string"}
+                 "dataType": {"float": "float", "int": "int"}.get(kind, "string")}
         if unit:
             attrs["unit"] = unit
         p = ET.SubElement(what, "Param", attrs)
@@ -118,7 +125,7 @@ def _what(root: ET.Element, header: dict, row: dict):
         ET.SubElement(group, "Param", attrs)
 
 
-def _where_when(root: ET.Element, header: dict, row: dict):
+def _where_when(root: ET.Element, header: dict, row: dict, layout: Layout):
     station = header["station"]
     ww = ET.SubElement(root, "WhereWhen")
     odl = ET.SubElement(ww, "ObsDataLocation")
@@ -140,12 +147,13 @@ def _where_when(root: ET.Element, header: dict, row: dict):
     c2 = ET.SubElement(loc, "AstroCoords", {"coord_system_id": "UTC-ICRS-TOPO"})
     tm = ET.SubElement(c2, "Time", {"unit": "s"})
     ti = ET.SubElement(tm, "TimeInstant")
-    ET.SubElement(ti, "ISOTime").text = _voe_time(row["peak_utc"])
+    ET.SubElement(ti, "ISOTime").text = _voe_time(row["peak_utc"] if layout is BURSTS else row["start_utc"])
     cadence = header.get("cadence_s")
     if cadence:
         ET.SubElement(tm, "Error").text = cell_text(float(cadence))
+    what = "Peak time" if layout is BURSTS else "Start of the episode"
     ET.SubElement(ww, "Description").text = (
-        f"Peak time at station {station}, by its own clock (clock sync: {header.get('clock_sync')}).")
+        f"{what} at station {station}, by its own clock (clock sync: {header.get('clock_sync')}).")
 
 
 def _how(root: ET.Element, header: dict):

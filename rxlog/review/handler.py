@@ -1,6 +1,7 @@
 """The review server's requests: the page (with this session's label token and script
-nonce), files of the report folder, the night's events and label histories, and label
-writes. The rules each request is held to are listed in ``rxlog.review.server``.
+nonce), files of the report folder, the night's events and episodes with their labels,
+label histories, and label writes (of an event, or of an episode and so of its bursts).
+The rules each request is held to are listed in ``rxlog.review.server``.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from http.server import BaseHTTPRequestHandler
 from typing import TYPE_CHECKING
 
 from rxlog.review.connections import WRITE_CHUNK, DeadlineReader
-from rxlog.review.labels import LABEL_FIELDS, history_rows
+from rxlog.review.labels import EPISODE_LABEL_FIELDS, LABEL_FIELDS, history_rows
 from rxlog.store import LABELS, EventStore
 
 if TYPE_CHECKING:   # for annotations only: the server imports this module
@@ -131,6 +132,8 @@ class ReviewHandler(BaseHTTPRequestHandler):
             return self._events()
         if path == "/api/history":
             q = urllib.parse.parse_qs(parts.query)
+            if "episode" in q:
+                return self._episode_history((q.get("episode") or [""])[0])
             return self._history((q.get("event") or [""])[0])
         return self._static(path)
 
@@ -169,10 +172,23 @@ class ReviewHandler(BaseHTTPRequestHandler):
         store = srv.open_store()
         try:
             rows = srv.labels.all(store)
+            episodes = srv.labels.all_episodes(store)
         finally:
             store.close()
         rows.sort(key=lambda r: r["peak_utc"])
-        self._json(HTTPStatus.OK, {"events": [{k: r.get(k) for k in LABEL_FIELDS} for r in rows]})
+        episodes.sort(key=lambda r: r["start_utc"])
+        self._json(HTTPStatus.OK, {"events": [{k: r.get(k) for k in LABEL_FIELDS} for r in rows],
+                                   "episodes": [{k: r.get(k) for k in EPISODE_LABEL_FIELDS} for r in episodes]})
+
+    def _episode_history(self, episode_id: str):
+        store = self.server.open_store()
+        try:
+            if self.server.labels.get_episode(store, episode_id) is None:
+                return self._not_this_night(episode_id, "episode")
+            hist = store.episode_label_history(episode_id)
+        finally:
+            store.close()
+        self._json(HTTPStatus.OK, {"episode_id": episode_id, "history": history_rows(hist, self.server.night)})
 
     def _history(self, event_id: str):
         store = self.server.open_store()
@@ -192,8 +208,8 @@ class ReviewHandler(BaseHTTPRequestHandler):
             self._not_this_night(event_id)
         return ev
 
-    def _not_this_night(self, event_id: str):
-        self._error(HTTPStatus.NOT_FOUND, f"event {event_id!r} is not one of this night's events "
+    def _not_this_night(self, key: str, what: str = "event"):
+        self._error(HTTPStatus.NOT_FOUND, f"{what} {key!r} is not one of this night's {what}s "
                                           "(re-run rxlog review if detection was re-run)")
 
     # -- POST -------------------------------------------------------------------------
@@ -226,14 +242,19 @@ class ReviewHandler(BaseHTTPRequestHandler):
             return self._error(HTTPStatus.BAD_REQUEST, "body is not valid JSON")
         if not isinstance(body, dict):
             return self._error(HTTPStatus.BAD_REQUEST, "expected a JSON object")
-        event_id, label = body.get("event_id"), body.get("label")
+        episode_id = body.get("episode_id")
+        if episode_id is not None and "event_id" in body:
+            return self._error(HTTPStatus.BAD_REQUEST, "give event_id or episode_id, not both")
+        event_id, label = body.get("event_id") if episode_id is None else episode_id, body.get("label")
         note, who = body.get("note") or "", body.get("who") or ""
         if not all(isinstance(x, str) for x in (event_id, label, note, who)):
-            return self._error(HTTPStatus.BAD_REQUEST, "event_id, label, note and who must be strings")
+            return self._error(HTTPStatus.BAD_REQUEST, "event_id (or episode_id), label, note and who must be strings")
         if label not in LABELS:
             return self._error(HTTPStatus.BAD_REQUEST, f"label must be one of {', '.join(LABELS)}")
         if len(note) > MAX_NOTE or len(who) > MAX_WHO:
             return self._error(HTTPStatus.BAD_REQUEST, f"note at most {MAX_NOTE} and name at most {MAX_WHO} characters")
+        if episode_id is not None:
+            return self._label_episode(episode_id, label, note.strip(), who.strip())
         store = srv.open_store()
         try:
             ev = srv.labels.add_label(store, event_id, label, note.strip(), who.strip())
@@ -243,3 +264,19 @@ class ReviewHandler(BaseHTTPRequestHandler):
         finally:
             store.close()
         self._json(HTTPStatus.OK, {"event": {k: ev.get(k) for k in LABEL_FIELDS}, "history": history_rows(hist, self.server.night)})
+
+    def _label_episode(self, episode_id: str, label: str, note: str, who: str):
+        """Label an episode; answer with its row, its bursts' rows (their labels follow it,
+        except those with their own) and its history."""
+        store = self.server.open_store()
+        try:
+            saved = self.server.labels.add_episode_label(store, episode_id, label, note, who)
+            if saved is None:
+                return self._not_this_night(episode_id, "episode")
+            ep, bursts = saved
+            hist = store.episode_label_history(episode_id)
+        finally:
+            store.close()
+        self._json(HTTPStatus.OK, {"episode": {k: ep.get(k) for k in EPISODE_LABEL_FIELDS},
+                                   "bursts": [{k: b.get(k) for k in LABEL_FIELDS} for b in bursts],
+                                   "history": history_rows(hist, self.server.night)})

@@ -1,4 +1,5 @@
-"""Listings of stored events for the shell (``rxlog events``): by night, class, or still unlabelled."""
+"""Listings of stored events and episodes for the shell (``rxlog events``): by night,
+class, or still unlabelled."""
 
 from __future__ import annotations
 
@@ -43,3 +44,38 @@ def event_table(cfg, night: str | Night | None = None, cls: str | None = None, u
     line = lambda cells: "  ".join(str(c).ljust(w) for c, w in zip(cells, widths)).rstrip()
     return "\n".join([line(head), line(["-" * w for w in widths])] + [line(b) for b in body]
                      + [f"{len(rows)} event{'s' if len(rows) != 1 else ''} ({tz})"])
+
+
+def list_episodes(cfg, night: str | Night | None = None, cls: str | None = None,
+                  unlabelled: bool = False) -> list[dict]:
+    """This station's stored episodes (oldest first) with their context, optionally one
+    night's (starting in it), one class's, or only unlabelled ones."""
+    if isinstance(night, str):
+        night = parse_night(cfg, night)
+    t0, t1 = (night.t0, night.t1) if night is not None else (None, None)
+    store = EventStore(cfg.store_path)
+    try:
+        rows = store.episodes_with_context(t0, t1, station=cfg["station"]["name"], starting=True)
+    finally:
+        store.close()
+    return [r for r in rows if (cls is None or r["class"] == cls) and not (unlabelled and r["label"])]
+
+
+def episode_table(cfg, night: str | Night | None = None, cls: str | None = None, unlabelled: bool = False) -> str:
+    """``list_episodes`` as a plain-text table with local times, each with its zone."""
+    rows = list_episodes(cfg, night, cls, unlabelled)
+    if not rows:
+        return "no episodes match"
+    tz = ZoneInfo(cfg["station"]["timezone"])
+    head = ("episode_id", "span", "class", "confidence", "bursts", "MHz", "region", "label")
+    body = []
+    for r in rows:
+        a, b = (dt.datetime.fromtimestamp(parse_iso(r[k]), tz) for k in ("start_utc", "end_utc"))
+        when = f"{a:%Y-%m-%d %H:%M} {zone_name(a)}–{b:%H:%M} {zone_name(b)}"
+        body.append((r["episode_id"], when, r["class"], fmt_num(r.get("confidence"), "{:.2f}"), r["n_bursts"],
+                     f"{r['fmin_mhz']:.2f}-{r['fmax_mhz']:.2f}", r.get("source_region") or "-",
+                     (r["label"] + (f" ({r['label_who']})" if r.get("label_who") else "")) if r.get("label") else "-"))
+    widths = [max(len(str(x)) for x in col) for col in zip(head, *body)]
+    line = lambda cells: "  ".join(str(c).ljust(w) for c, w in zip(cells, widths)).rstrip()  # noqa: E731
+    return "\n".join([line(head), line(["-" * w for w in widths])] + [line(b) for b in body]
+                     + [f"{len(rows)} episode{'s' if len(rows) != 1 else ''} ({tz})"])

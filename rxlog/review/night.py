@@ -3,7 +3,7 @@
 A night runs from local noon to the next local noon in the station's ``timezone``, so an
 evening and the morning after are one night; it is named by the local date on which it
 begins. Here: the ``Night`` itself, how times in it are written (always with their
-zone), which night holds an instant or a date, the store's events of a night and where
+zone), which night holds an instant or a date, the store's events and episodes of a night and where
 its report folder is. (The default night, which depends on what the archive holds, is
 in ``data.py``: importing this module stays light for the server and the listings.)
 """
@@ -89,6 +89,16 @@ def night_events(cfg, night: Night) -> list[dict]:
     store = EventStore(cfg.store_path)
     try:
         return store.events(night.t0, night.t1, station=cfg["station"]["name"])
+    finally:
+        store.close()
+
+
+def night_episodes(cfg, night: Night) -> list[dict]:
+    """This station's stored episodes starting in the night, oldest first, with their
+    context and labels (rxlog.store.EventStore.episodes_with_context)."""
+    store = EventStore(cfg.store_path)
+    try:
+        return store.episodes_with_context(night.t0, night.t1, station=cfg["station"]["name"], starting=True)
     finally:
         store.close()
 

@@ -1,4 +1,8 @@
-"""The review page: one night's summary, plots and event cards with their label controls.
+"""The review page: one night's summary, plots and review items with their label controls.
+
+Items are the night's episodes (a storm, a Type III group, a Type IV: one card, its
+bursts folded inside it) and the bursts of no episode (rxlog.review.items). Labelling an
+episode labels those of its bursts that carry no label of their own.
 
 The page is rendered from jinja2 templates (``templates/``) with autoescaping on, so
 every value from the store or the config is escaped by construction. Its styles and
@@ -16,9 +20,10 @@ from importlib.resources import files
 
 import jinja2
 
+from rxlog.review.items import is_review_item, review_items, span
 from rxlog.review.night import Night, utc_stamp
 from rxlog.review.palette import CLASS_COLOURS, LABEL_NAMES, css_rules
-from rxlog.review.summary import fmt_clock, fmt_hours, fmt_num, fmt_span
+from rxlog.review.summary import JOVIAN, fmt_clock, fmt_hours, fmt_num, fmt_span
 from rxlog.store import LABELS
 from rxlog.timeutil import parse_iso
 
@@ -44,22 +49,30 @@ _ENV = jinja2.Environment(loader=jinja2.PackageLoader("rxlog.review", "templates
 
 
 def event_image_name(ev: dict) -> str:
-    """An event's zoom, relative to the report folder."""
+    """An event's zoom (or an episode's: rxlog.review.items.zoom_targets), relative to the report folder."""
     return f"events/{ev['event_id']}.png"
 
 
-def render_page(cfg, night: Night, summary: dict, events: list[dict], images: dict[str, str]) -> str:
+def episode_image_name(ep: dict) -> str:
+    """An episode's zoom over its whole span, relative to the report folder."""
+    return f"events/{ep['episode_id']}.png"
+
+
+def render_page(cfg, night: Night, summary: dict, events: list[dict], images: dict[str, str],
+                items: list[dict] | None = None) -> str:
     """The review page as one HTML string (inline CSS and script, relative image links).
 
     ``images`` maps the file names of the plots and zooms written to what each was drawn
-    from; a plot or zoom not in it is left out.
+    from; a plot or zoom not in it is left out. ``items``: the night's review items
+    (default: each event its own item).
     """
     s, st = summary, cfg["station"]
-    index = {e["event_id"]: i + 1 for i, e in enumerate(events)}
+    items = review_items(events, []) if items is None else items
+    index = {it["key"]: it["number"] for it in items}
     payload = {"night": night.name, "station": st["name"],
-               "events": [e["event_id"] for e in events],
                "labels": [{"key": LABEL_KEYS[lab], "label": lab} for lab in LABELS],
                "names": LABEL_NAMES}
+    cards = [item_card(it, night, images) for it in items]
     return _ENV.get_template("page.html.j2").render(
         station=st["name"], night=night.name,
         opens=f"{fmt_clock(night, night.t0)} {night.zone(night.t0)} {night.local(night.t0):%d %b}",
@@ -67,14 +80,15 @@ def render_page(cfg, night: Night, summary: dict, events: list[dict], images: di
         timezone=str(night.tz), where=f"{st['latitude_deg']:.3f}°, {st['longitude_deg']:.3f}°",
         made=utc_stamp(parse_iso(s["generated_utc"]), seconds=False),
         facts=_facts(s, night),
-        chips=[(c, LABEL_NAMES.get(c, c), n) for c, n in s["per_class"].items() if n],
+        chips=[(c, LABEL_NAMES.get(c, c), n) for c, n in s["items_per_class"].items() if n],
         overview="overview.png" in images, cml_io="cml_io.png" in images,
         windows=[{"region": w["region"], "span": fmt_span(night, w["start"], w["end"]),
                   "altitude": fmt_num(w.get("max_jupiter_alt_deg"), "{:.0f}", "°"),
                   "recorded": f"{100 * w['recorded_fraction']:.0f} %",
                   "seen": [index[x] for x in w["seen"]]} for w in s["forecast"]],
         outside=[index[x] for x in s["jovian_outside_forecast"]],
-        cards=[event_card(i, e, night, images.get(event_image_name(e))) for i, e in enumerate(events)],
+        review=[c for c, it in zip(cards, items) if is_review_item(it)],
+        interference=[c for c, it in zip(cards, items) if not is_review_item(it)],
         keys=[{"key": LABEL_KEYS[lab], "name": LABEL_NAMES[lab], "label": lab} for lab in LABELS],
         payload=payload, css=PAGE_CSS, js="\n" + PAGE_JS)
 
@@ -88,25 +102,91 @@ def _facts(s: dict, night: Night) -> list[tuple[str, str]]:
                   + (" …" if len(gaps) > MAX_GAPS_SHOWN else "")) if gaps else "none"),
         ("masked as interference", "not measured yet (rxlog detect)" if s["masked_fraction"] is None
          else f"{100 * s['masked_fraction']:.1f} % (from {s['masked_source']})"),
+        ("to review", f"{s['n_items']} items: {s['n_item_episodes']} episodes, "
+                      f"{s['n_items'] - s['n_item_episodes']} single bursts "
+                      f"({s['n_items_labelled']} labelled when this page was made)"),
         ("events", f"{s['n_events']} ({s['n_labelled']} labelled when this page was made)"),
         ("Jupiter up", ", ".join(fmt_span(night, a, b) for a, b in s["jupiter_up"]) or "not up"),
         ("Sun up", ", ".join(fmt_span(night, a, b) for a, b in s["sun_up"]) or "not up"),
     ]
 
 
-def event_card(i: int, ev: dict, night: Night, zoom_source: str | None) -> dict:
-    """What the card of the night's ``i``-th event shows, as plain values for the template
-    (``zoom_source``: what its zoom was drawn from, None when it has none)."""
+def item_card(item: dict, night: Night, images: dict[str, str]) -> dict:
+    """What the card of a review item shows: an episode with its bursts, or a single event."""
+    n = item["number"]
+    if item["kind"] == "event":
+        return {**event_card(n, item["row"], night, images.get(event_image_name(item["row"]))),
+                "kind": "event", "anchor": f"item-{n}"}
+    return episode_card(item, night, images)
+
+
+def _current(row: dict) -> str:
+    """The label a card shows: name, who, and whether it came from the episode."""
+    label = row.get("label")
+    if not label:
+        return "not labelled"
+    return (LABEL_NAMES[label] + (f" ({row['label_who']})" if row.get("label_who") else "")
+            + (" — from its episode" if row.get("label_source") == "episode" else ""))
+
+
+def episode_card(item: dict, night: Night, images: dict[str, str]) -> dict:
+    """An episode's card: its span, context and reason, its zoom, label buttons, and its
+    bursts' cards folded beneath."""
+    ep, n = item["row"], item["number"]
+    cls, label = ep["class"], ep.get("label")
+    a, b = span(item)
+    zoom = images.get(episode_image_name(ep))
+    return {
+        "kind": "episode", "anchor": f"item-{n}", "number": n, "episode_id": ep["episode_id"], "cls": cls,
+        "label": label or "", "when": f"{fmt_span(night, a, b)}",
+        "class_name": LABEL_NAMES.get(cls, cls), "confidence": fmt_num(ep.get("confidence"), "{:.2f}"),
+        "n_bursts": ep.get("n_bursts") or len(item["bursts"]), "current_label": _current(ep),
+        "image": urllib.parse.quote(episode_image_name(ep)) if zoom else None,
+        "facts": _episode_facts(ep, night, a, b, zoom),
+        "buttons": [{"label": lab, "key": LABEL_KEYS[lab], "name": LABEL_NAMES[lab],
+                     "classes": _button_class(lab, label)} for lab in LABELS],
+        "note": ep.get("label_note") or "",
+        "bursts": [{**event_card(f"{n}.{j}", e, night, images.get(event_image_name(e))), "anchor": f"item-{n}-{j}"}
+                   for j, e in enumerate(item["bursts"], start=1)],
+    }
+
+
+def _duration(s: float) -> str:
+    return f"{s:.0f} s" if s < 120 else (f"{s / 60:.0f} min" if s < 5400 else f"{s / 3600:.1f} h")
+
+
+def _episode_facts(ep: dict, night: Night, a: float, b: float, zoom_source: str | None) -> list[tuple[str, str]]:
+    facts = [("span", f"{night.stamp(a)} – {night.stamp(b)} · {utc_stamp(a)} – {utc_stamp(b)}"),
+             ("duration", _duration(b - a)),
+             ("band", f"{ep['fmin_mhz']:.3f}–{ep['fmax_mhz']:.3f} MHz"),
+             ("peak excess", fmt_num(ep.get("peak_excess_db"), "{:.1f}", " dB"))]
+    if ep["class"] in JOVIAN or ep["class"] == "unknown":
+        rng = lambda k: (f"{fmt_num(ep.get(k + '_start_deg'), '{:.0f}', '°')} → "  # noqa: E731
+                         f"{fmt_num(ep.get(k + '_end_deg'), '{:.0f}', '°')}")
+        facts.append(("CML III · Io phase", f"{rng('cml3')} · {rng('io_phase')}"
+                      + (f" · {ep['source_region']}" if ep.get("source_region") else "")))
+        facts.append(("Jupiter altitude", f"{fmt_num(ep.get('jupiter_alt_min_deg'), '{:.0f}', '°')} to "
+                                          f"{fmt_num(ep.get('jupiter_alt_max_deg'), '{:.0f}', '°')}"))
+    if ep["class"] not in JOVIAN:
+        facts.append(("Sun altitude", f"{fmt_num(ep.get('sun_alt_min_deg'), '{:.0f}', '°')} to "
+                                      f"{fmt_num(ep.get('sun_alt_max_deg'), '{:.0f}', '°')}"))
+    facts += [("why", ep.get("reason") or "—")]
+    if ep.get("sequence_id"):
+        facts.append(("flare sequence", ep["sequence_id"]))
+    return facts + [("zoom from", zoom_source or "—"), ("episode id", ep["episode_id"])]
+
+
+def event_card(number, ev: dict, night: Night, zoom_source: str | None) -> dict:
+    """What the card of an event numbered ``number`` on the page shows, as plain values for
+    the template (``zoom_source``: what its zoom was drawn from, None when it has none)."""
     peak = parse_iso(ev["peak_utc"])
     cls = ev["class"]
     label = ev.get("label")
-    current = (LABEL_NAMES[label] + (f" ({ev['label_who']})" if ev.get("label_who") else "")
-               if label else "not labelled")
     return {
-        "number": i + 1, "event_id": ev["event_id"], "cls": cls, "label": label or "",
+        "number": number, "event_id": ev["event_id"], "cls": cls, "label": label or "",
         "when": f"{fmt_clock(night, peak, True)} {night.zone(peak)}",
         "class_name": LABEL_NAMES.get(cls, cls), "confidence": fmt_num(ev.get("confidence"), "{:.2f}"),
-        "current_label": current,
+        "current_label": _current(ev), "label_source": ev.get("label_source") or "",
         "image": urllib.parse.quote(event_image_name(ev)) if zoom_source else None,
         "facts": _event_facts(ev, night, peak, zoom_source),
         "buttons": [{"label": lab, "key": LABEL_KEYS[lab], "name": LABEL_NAMES[lab],

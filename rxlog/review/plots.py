@@ -1,6 +1,7 @@
-"""The night's two big plots: the overview (the dynamic spectrum with event boxes, the
-Sun-up, Jupiter-up and forecast bands and the hourly masked fraction on one local-time
-axis) and the Jovian candidates on the CML III–Io-phase plane over the source regions.
+"""The night's two big plots: the overview (the dynamic spectrum with one outlined region
+per episode and a box per burst of no episode, the Sun-up, Jupiter-up and forecast bands
+and the hourly masked fraction on one local-time axis) and the Jovian candidates on the
+CML III–Io-phase plane over the source regions.
 
 Colours: the class palette for events (``rxlog.review.palette``), greys and ink for
 everything else, viridis for the spectra.
@@ -21,8 +22,10 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
 from rxlog.review.data import NightData, running_background
+from rxlog.review.items import review_items, span
 from rxlog.review.night import Night
 from rxlog.review.palette import BAND_GREY, CLASS_COLOURS, LABEL_NAMES, colour, outline
+from rxlog.review.summary import fmt_span
 from rxlog.sky.regions import regions_from_config, wrapped_spans
 from rxlog.store import CLASSES
 from rxlog.timeutil import parse_iso
@@ -64,30 +67,58 @@ def _excess_limits(excess: np.ndarray) -> tuple[float, float]:
 # -- the overview -----------------------------------------------------------------------
 
 def plot_overview(path: Path, night: Night, data: NightData, events: list[dict], summary: dict,
-                  dpi: int = 100) -> Path:
+                  dpi: int = 100, items: list[dict] | None = None) -> Path:
     """The night at a glance (``overview_figure``) as a PNG."""
-    overview_figure(night, data, events, summary, dpi).savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
+    overview_figure(night, data, events, summary, dpi, items).savefig(path, dpi=dpi,
+                                                                      pil_kwargs={"compress_level": 3})
     return path
 
 
-def overview_figure(night: Night, data: NightData, events: list[dict], summary: dict, dpi: int = 100):
-    """Sun/Jupiter/forecast bands, the dynamic spectrum with event boxes, hourly masking (a matplotlib Figure)."""
+MAX_LEGEND_EPISODES = 20    # episodes named in the legend; the page lists them all
+LEGEND_COLUMNS = 4
+LEGEND_ROW_IN = 0.2         # height of one legend row, inches (8-point text)
+
+
+def overview_figure(night: Night, data: NightData, events: list[dict], summary: dict, dpi: int = 100,
+                    items: list[dict] | None = None):
+    """Sun/Jupiter/forecast bands, the dynamic spectrum with an outlined region per episode
+    and a box per burst of no episode, hourly masking (a matplotlib Figure).
+
+    ``items``: the night's review items (rxlog.review.items; default: each event its own)."""
     load_matplotlib()
-    fig = Figure(figsize=(13.0, 7.0), dpi=dpi)
+    items = review_items(events, []) if items is None else items
+    loose = [(it["number"], it["row"]) for it in items if it["kind"] == "event"]
+    episodes = [it for it in items if it["kind"] == "episode"]
+    present = sorted({e["class"] for _, e in loose}, key=CLASSES.index)
+    handles = [Rectangle((0, 0), 1, 1, facecolor="none", edgecolor=colour(c), linewidth=1.5,
+                         path_effects=outline(1.5)) for c in present]
+    names = [f"{LABEL_NAMES[c]} ({c})" for c in present]
+    named = [it for it in episodes if it["row"]["class"] != "rfi"]
+    for it in named[:MAX_LEGEND_EPISODES]:
+        handles.append(_episode_patch(it["row"]["class"], (0, 0), 1, 1))
+        names.append(f"#{it['number']} {LABEL_NAMES.get(it['row']['class'], it['row']['class'])}, "
+                     f"{fmt_span(night, *span(it))}")
+    if len(named) > MAX_LEGEND_EPISODES:
+        handles.append(Rectangle((0, 0), 1, 1, facecolor="none", edgecolor="none"))
+        names.append(f"… and {len(named) - MAX_LEGEND_EPISODES} more episodes (see the page)")
+    # The figure grows below by the legend rows past the two its layout has room for.
+    extra = max(0, -(-len(handles) // LEGEND_COLUMNS) - 2) * LEGEND_ROW_IN
+    height = 7.0 + extra
+    y = lambda frac: (frac * 7.0 + extra) / height     # noqa: E731  (a layout in 7-inch fractions)
+    h = lambda frac: frac * 7.0 / height               # noqa: E731
+    fig = Figure(figsize=(13.0, height), dpi=dpi)
     left, width = 0.07, 0.83
-    ax_band = fig.add_axes((left, 0.81, width, 0.10))
-    ax = fig.add_axes((left, 0.31, width, 0.48), sharex=ax_band)
-    ax_q = fig.add_axes((left, 0.135, width, 0.13), sharex=ax_band)
-    cax = fig.add_axes((left + width + 0.012, 0.31, 0.015, 0.48))
+    ax_band = fig.add_axes((left, y(0.81), width, h(0.10)))
+    ax = fig.add_axes((left, y(0.31), width, h(0.48)), sharex=ax_band)
+    ax_q = fig.add_axes((left, y(0.135), width, h(0.13)), sharex=ax_band)
+    cax = fig.add_axes((left + width + 0.012, y(0.31), 0.015, h(0.48)))
     _draw_bands(ax_band, night, summary)
     _draw_spectrum(fig, ax, cax, night, data)
-    _draw_event_boxes(ax, night, data, events)
-    present = sorted({e["class"] for e in events}, key=CLASSES.index)
-    if present:
-        handles = [Rectangle((0, 0), 1, 1, facecolor="none", edgecolor=colour(c), linewidth=1.5,
-                             path_effects=outline(1.5)) for c in present]
-        fig.legend(handles, [f"{LABEL_NAMES[c]} ({c})" for c in present], loc="lower center",
-                   bbox_to_anchor=(left + width / 2, 0.0), fontsize=8, ncol=min(len(present), 4), frameon=False)
+    _draw_episodes(ax, night, data, episodes)
+    _draw_event_boxes(ax, night, data, loose)
+    if handles:
+        fig.legend(handles, names, loc="lower center", bbox_to_anchor=(left + width / 2, 0.0), fontsize=8,
+                   ncol=min(len(handles), LEGEND_COLUMNS), frameon=False)
     ax.set_ylabel("frequency (MHz)")
     ax.set_ylim(data.f_edges_mhz[0], data.f_edges_mhz[-1])
     ax.tick_params(axis="x", labelbottom=False)
@@ -110,7 +141,7 @@ def _draw_bands(ax_band, night: Night, summary: dict):
     ax_band.set_ylim(0, len(rows))
     ax_band.tick_params(axis="x", labelbottom=False)
     ax_band.set_title(f"{summary['station']} — night of {night.name}: dynamic spectrum, "
-                      f"{summary['n_events']} events", loc="left", fontsize=12)
+                      f"{summary['n_items']} items to review ({summary['n_events']} events)", loc="left", fontsize=12)
     utc = ax_band.secondary_xaxis("top")
     utc.xaxis.set_major_locator(mdates.HourLocator(interval=2, tz=dt.timezone.utc))
     utc.xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=dt.timezone.utc))
@@ -129,8 +160,41 @@ def _draw_spectrum(fig, ax, cax, night: Night, data: NightData):
     cb.set_label("excess over background (dB)")
 
 
-def _draw_event_boxes(ax, night: Night, data: NightData, events: list[dict]):
-    """A box per event, numbered as on the page where the numbers do not crowd each other.
+def _episode_patch(cls: str, xy, w, h) -> Rectangle:
+    """An episode's region: the class colour, lightly filled, a firm outline over a halo."""
+    if cls == "rfi":
+        return Rectangle(xy, w, h, facecolor="none", edgecolor=CLASS_COLOURS["rfi"], linewidth=0.6, alpha=0.6,
+                         linestyle=(0, (3, 2)))
+    # A light fill (8 % of the class colour) marks the region and leaves the spectrum readable under it.
+    return Rectangle(xy, w, h, facecolor=matplotlib.colors.to_rgba(colour(cls), 0.08), edgecolor=colour(cls),
+                     linewidth=1.8, path_effects=outline(1.8))
+
+
+def _draw_episodes(ax, night: Night, data: NightData, episodes: list[dict]):
+    """One outlined region per episode -- its span by its band, one bin wider on each side --
+    numbered as on the page where the numbers do not crowd each other (the legend names
+    them all): a storm of a hundred bursts reads as one shape. Interference episodes are
+    thin, dashed and unnumbered."""
+    x0, x1 = _dnum([night.t0, night.t1])
+    last = -np.inf
+    f0, f1 = data.f_edges_mhz[0], data.f_edges_mhz[-1]
+    bin_t = _dnum(data.t_edges[1]) - _dnum(data.t_edges[0])
+    bin_f = data.f_edges_mhz[1] - data.f_edges_mhz[0]
+    for it in sorted(episodes, key=lambda it: it["row"]["class"] != "rfi"):    # interference underneath
+        ep = it["row"]
+        t0, t1 = span(it)
+        a, b = _dnum(t0) - bin_t, _dnum(t1) + bin_t
+        lo, hi = max(ep["fmin_mhz"] - bin_f, f0), min(ep["fmax_mhz"] + bin_f, f1)
+        ax.add_patch(_episode_patch(ep["class"], (a, lo), b - a, hi - lo))
+        if ep["class"] != "rfi" and a - last >= 0.02 * (x1 - x0):
+            ax.annotate(f"#{it['number']}", (a, hi), fontsize=8, color="white", xytext=(1, 1),
+                        textcoords="offset points", annotation_clip=False,
+                        path_effects=[pe.withStroke(linewidth=2, foreground="black")])
+            last = a
+
+
+def _draw_event_boxes(ax, night: Night, data: NightData, events: list[tuple[int, dict]]):
+    """A box per (number, event), numbered as on the page where the numbers do not crowd each other.
 
     Boxes sit one bin outside each event so the burst itself stays visible, each over a
     light halo and a dark edge so it shows on every colour of the map. Interference boxes
@@ -142,7 +206,7 @@ def _draw_event_boxes(ax, night: Night, data: NightData, events: list[dict]):
     boxes, colours, faint = [], [], []
     bin_t = _dnum(data.t_edges[1]) - _dnum(data.t_edges[0])
     bin_f = data.f_edges_mhz[1] - data.f_edges_mhz[0]
-    for e in events:
+    for _, e in events:
         a, b = _dnum(parse_iso(e["start_utc"])) - bin_t, _dnum(parse_iso(e["end_utc"])) + bin_t
         lo, hi = max(e["fmin_mhz"] - bin_f, f0), min(e["fmax_mhz"] + bin_f, f1)
         if e["class"] == "rfi":
@@ -158,12 +222,12 @@ def _draw_event_boxes(ax, night: Night, data: NightData, events: list[dict]):
         pc.set_path_effects(outline(1.0))
         ax.add_collection(pc)
     last = -np.inf
-    for i, e in enumerate(events):
+    for number, e in events:
         if e["class"] == "rfi":
             continue
         a = _dnum(parse_iso(e["start_utc"])) - bin_t
         if a - last >= 0.012 * (x1 - x0):
-            ax.annotate(str(i + 1), (a, min(e["fmax_mhz"] + bin_f, f1)), fontsize=7, color="white",
+            ax.annotate(str(number), (a, min(e["fmax_mhz"] + bin_f, f1)), fontsize=7, color="white",
                         xytext=(1, 1), textcoords="offset points", annotation_clip=False,
                         path_effects=[pe.withStroke(linewidth=2, foreground="black")])
             last = a

@@ -2,19 +2,21 @@
 
 ``build_report`` writes ``<reports_dir>/<night>/``:
 
-- ``index.html``: the summary, the plots and one card per event with its label
-  control (``page.py``). Styles and script are inside the page, images sit beside it
+- ``index.html``: the summary, the plots and one card per review item -- an episode
+  with its bursts folded inside, or a burst of no episode -- with its label control
+  (``items.py``, ``page.py``). Styles and script are inside the page, images sit beside it
   and are linked by relative paths, nothing is fetched from the network, so the folder
   can be copied or mailed and still opens from disk. Labelling needs ``rxlog review
   --serve`` (``server.py``); from disk the page is read-only.
 - ``overview.png``: the night's dynamic spectrum (excess over a running background)
-  with event boxes, the Sun-up and Jupiter-up bands and the hourly masked fraction on
-  one local-time axis (``plots.py``).
+  with one outlined region per episode (and a box per burst of no episode), the Sun-up
+  and Jupiter-up bands and the hourly masked fraction on one local-time axis (``plots.py``).
 - ``cml_io.png``: the night's Jovian candidates on the CML III–Io-phase plane over the
   source regions (``plots.py``).
 - ``events/<event_id>.png``: per event, a zoom of the dynamic spectrum and its light
   curve (``zoom.py``), from the kept full-resolution cutout when there is one
-  (``cutouts.py``), else from the archive (``data.py``).
+  (``cutouts.py``), else from the archive (``data.py``); ``events/<episode_id>.png``
+  the same over an episode's whole span.
 - ``summary.txt``: the terminal summary (``summary.py``).
 """
 
@@ -28,8 +30,10 @@ import numpy as np
 from rxlog.fileio import write_atomic
 from rxlog.review.cutouts import read_cutout
 from rxlog.review.data import default_night, freq_bins, read_night
+from rxlog.review.items import review_items, zoom_numbers, zoom_targets
 from rxlog.review.night import (
     Night,
+    night_episodes,
     night_events,
     night_starting,
     parse_night,
@@ -55,6 +59,8 @@ def build_report(cfg, night: Night | str | dt.date | None = None, progress=None,
     out = report_dir(cfg, night)
     (out / "events").mkdir(parents=True, exist_ok=True)
     events = night_events(cfg, night)
+    items = review_items(events, night_episodes(cfg, night))
+    targets, numbers = zoom_targets(items), zoom_numbers(items)
     store = EventStore(cfg.store_path)
     try:
         quality = store.quality(night.t0, night.t1)
@@ -65,27 +71,27 @@ def build_report(cfg, night: Night | str | dt.date | None = None, progress=None,
     forecast = forecast_windows(cfg, night.t0, (night.t1 - night.t0) / 86400.0)
 
     images: dict[str, str] = {}   # file name -> what it was drawn from
-    from_archive = _zooms_from_cutouts(cfg, night, events, out, images)
+    from_archive = _zooms_from_cutouts(cfg, night, targets, numbers, out, images)
     zoomer = ZoomPlotter(night, freq_bins(cfg))
 
     def on_zoom(k, ev, t_edges, f_edges, power, bg):
         if np.isfinite(power).any():
-            zoomer.draw(out / event_image_name(ev), from_archive[k] + 1, ev, t_edges, power - bg[None, :], "archive")
+            zoomer.draw(out / event_image_name(ev), numbers[ev["event_id"]], ev, t_edges, power - bg[None, :],
+                        "archive")
             images[event_image_name(ev)] = "archive"
 
-    data = read_night(cfg, night, [events[i] for i in from_archive], on_zoom=on_zoom, progress=progress)
-    summary = night_summary(cfg, night, events, data, quality, jupiter_up, sun_up, forecast)
+    data = read_night(cfg, night, [targets[i] for i in from_archive], on_zoom=on_zoom, progress=progress)
+    summary = night_summary(cfg, night, events, data, quality, jupiter_up, sun_up, forecast, items=items)
     if data.covered:
-        plot_overview(out / "overview.png", night, data, events, summary)
+        plot_overview(out / "overview.png", night, data, events, summary, items=items)
         images["overview.png"] = "archive"
-    plot_cml_io(out / "cml_io.png", cfg, night, [(i, e) for i, e in enumerate(events) if e["class"] in JOVIAN],
-                track=jupiter_track(cfg, jupiter_up))
+    plot_cml_io(out / "cml_io.png", cfg, night, jovian_points(items), track=jupiter_track(cfg, jupiter_up))
     images["cml_io.png"] = "event store"
     # Drop zooms of events that are no longer in the store (re-detection changed the ids).
     for old in (out / "events").glob("*.png"):
         if f"events/{old.name}" not in images:
             old.unlink()
-    page = render_page(cfg, night, summary, events, images)
+    page = render_page(cfg, night, summary, events, images, items=items)
     write_atomic(out / "summary.txt", format_summary(summary, night) + "\n")
     write_atomic(out / "index.html", page)
     return out / "index.html"
@@ -102,7 +108,8 @@ def _as_night(cfg, night: Night | str | dt.date | None, now: float | None = None
     return night
 
 
-def _zooms_from_cutouts(cfg, night: Night, events: list[dict], out: Path, images: dict[str, str]) -> list[int]:
+def _zooms_from_cutouts(cfg, night: Night, events: list[dict], numbers: dict[str, str], out: Path,
+                        images: dict[str, str]) -> list[int]:
     """Draw the zoom of every event that kept a readable cutout (noting it in ``images``);
     return the indices of the others, whose zooms come from the archive."""
     plotters: dict[tuple, ZoomPlotter] = {}   # one per cutout band: a plotter's frame has one frequency axis
@@ -117,9 +124,23 @@ def _zooms_from_cutouts(cfg, night: Night, events: list[dict], out: Path, images
         if key not in plotters:
             plotters[key] = ZoomPlotter(night, f_edges)
         plotter = plotters[key]
-        plotter.draw(out / event_image_name(ev), i + 1, ev, t_edges, excess, "full-resolution cutout")
+        plotter.draw(out / event_image_name(ev), numbers[ev["event_id"]], ev, t_edges, excess, "full-resolution cutout")
         images[event_image_name(ev)] = "full-resolution cutout"
     return from_archive
+
+
+def jovian_points(items: list[dict]) -> list[tuple[int, dict]]:
+    """The Jovian review items for the CML III–Io-phase plot, as (number - 1, angles): an
+    episode from its start to its end, a single burst at its peak."""
+    out = []
+    for it in items:
+        row = it["row"]
+        if row["class"] not in JOVIAN:
+            continue
+        if it["kind"] == "episode":
+            row = {**row, "cml3_deg": row.get("cml3_start_deg"), "io_phase_deg": row.get("io_phase_start_deg")}
+        out.append((it["number"] - 1, row))
+    return out
 
 
 def jupiter_track(cfg, jupiter_up: list[tuple[float, float]]):

@@ -1,6 +1,6 @@
 """A night's summary: the numbers the page and the terminal show (recording and gaps,
-masked fraction, events per class, Sun and Jupiter up, forecast windows and what fell in
-them), and how times and numbers are written — every time with its zone.
+masked fraction, review items and events per class, Sun and Jupiter up, forecast windows
+and what fell in them), and how times and numbers are written — every time with its zone.
 """
 
 from __future__ import annotations
@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from rxlog.review.items import is_review_item, review_items, span
 from rxlog.review.night import Night
 from rxlog.store import CLASSES
 from rxlog.timeutil import iso, parse_iso
@@ -21,16 +22,24 @@ JOVIAN = ("jovian_l", "jovian_s")   # the classes counted as Jovian candidates
 
 
 def night_summary(cfg, night: Night, events: list[dict], data: NightData, quality: list[dict],
-                  jupiter_up, sun_up, forecast) -> dict:
-    """The numbers the page and the terminal show, as plain values."""
+                  jupiter_up, sun_up, forecast, items: list[dict] | None = None) -> dict:
+    """The numbers the page and the terminal show, as plain values.
+
+    ``items``: the night's review items (rxlog.review.items; default: each event its own
+    item). Forecast windows list the Jovian items seen in them by item key."""
+    items = review_items(events, []) if items is None else items
     length = night.t1 - night.t0
     per_class = {c: 0 for c in CLASSES}
     for e in events:
         per_class[e["class"]] = per_class.get(e["class"], 0) + 1
+    items_per_class = {c: 0 for c in CLASSES}
+    for it in items:
+        items_per_class[it["row"]["class"]] = items_per_class.get(it["row"]["class"], 0) + 1
     masked_total, hourly, masked_source = _masked(night, data, quality)
-    windows = [_forecast_window(w, events, data) for w in forecast]
-    in_windows = {eid for w in windows for eid in w["seen"]}
-    outside = [e["event_id"] for e in events if e["class"] in JOVIAN and e["event_id"] not in in_windows]
+    jovian = [it for it in items if it["row"]["class"] in JOVIAN]
+    windows = [_forecast_window(w, jovian, data) for w in forecast]
+    in_windows = {key for w in windows for key in w["seen"]}
+    outside = [it["key"] for it in jovian if it["key"] not in in_windows]
     return {
         "station": cfg["station"]["name"], "night": night.name, "timezone": str(night.tz),
         "start": night.t0, "end": night.t1, "length_s": length,
@@ -40,22 +49,24 @@ def night_summary(cfg, night: Night, events: list[dict], data: NightData, qualit
         "hourly_masked": hourly,
         "n_events": len(events), "per_class": per_class,
         "n_labelled": sum(1 for e in events if e.get("label")),
+        "n_items": sum(1 for it in items if is_review_item(it)), "items_per_class": items_per_class,
+        "n_item_episodes": sum(1 for it in items if is_review_item(it) and it["kind"] == "episode"),
+        "n_items_labelled": sum(1 for it in items if is_review_item(it) and it["row"].get("label")),
         "jupiter_up": jupiter_up, "sun_up": sun_up,
         "forecast": windows, "jovian_outside_forecast": outside,
         "generated_utc": iso(time.time()),
     }
 
 
-def _forecast_window(w: dict, events: list[dict], data: NightData) -> dict:
-    """A forecast window with how much of it was recorded and the Jovian events inside it."""
+def _forecast_window(w: dict, jovian: list[dict], data: NightData) -> dict:
+    """A forecast window with how much of it was recorded and the keys of the Jovian review
+    items inside it."""
     a, b = float(w["start"]), float(w["end"])
-    seen = [e for e in events if e["class"] in JOVIAN
-            and overlap_s(parse_iso(e["start_utc"]), parse_iso(e["end_utc"]), a, b) > 0]
+    seen = [it["key"] for it in jovian if overlap_s(*span(it), a, b) > 0]
     rec = sum(overlap_s(c0, c1, a, b) for c0, c1 in data.covered)
     return {"start": a, "end": b, "region": w.get("region", ""),
             "max_jupiter_alt_deg": w.get("max_jupiter_alt_deg"),
-            "recorded_fraction": rec / (b - a) if b > a else 0.0,
-            "seen": [e["event_id"] for e in seen]}
+            "recorded_fraction": rec / (b - a) if b > a else 0.0, "seen": seen}
 
 
 def _masked(night: Night, data: NightData, quality: list[dict]):
@@ -124,6 +135,13 @@ def format_summary(summary: dict, night: Night) -> str:
         lines.append(f"  masked as interference: {100 * s['masked_fraction']:.1f} % (from {s['masked_source']})")
     else:
         lines.append("  masked as interference: not measured yet (run rxlog detect over this night)")
+    items = ", ".join(f"{c} {n}" for c, n in s["items_per_class"].items() if n and c != "rfi")
+    n_ep, n_single = s["n_item_episodes"], s["n_items"] - s["n_item_episodes"]
+    lines.append(f"  to review: {s['n_items']} item{'s' if s['n_items'] != 1 else ''}"
+                 + (f" ({items})" if items else "")
+                 + f": {n_ep} episode{'s' if n_ep != 1 else ''}, {n_single} single burst{'s' if n_single != 1 else ''}"
+                 + f"; labelled {s['n_items_labelled']}"
+                 + (f"; interference: {s['items_per_class']['rfi']} items" if s["items_per_class"]["rfi"] else ""))
     counts = ", ".join(f"{c} {n}" for c, n in s["per_class"].items() if n)
     lines.append(f"  events: {s['n_events']}" + (f" ({counts})" if counts else "")
                  + f"; labelled {s['n_labelled']}")
@@ -132,12 +150,12 @@ def format_summary(summary: dict, night: Night) -> str:
         lines.append(f"  {body} up: {spans}")
     if s["forecast"]:
         for w in s["forecast"]:
-            seen = f"seen {len(w['seen'])} Jovian event{'s' if len(w['seen']) != 1 else ''}" if w["seen"] \
+            seen = f"seen {len(w['seen'])} Jovian item{'s' if len(w['seen']) != 1 else ''}" if w["seen"] \
                 else "nothing seen"
             lines.append(f"  forecast {w['region']} {fmt_span(night, w['start'], w['end'])}: {seen} "
                          f"(recorded {100 * w['recorded_fraction']:.0f} %)")
     else:
         lines.append("  forecast: no windows this night")
     if s["jovian_outside_forecast"]:
-        lines.append(f"  Jovian candidates outside forecast windows: {len(s['jovian_outside_forecast'])}")
+        lines.append(f"  Jovian items outside forecast windows: {len(s['jovian_outside_forecast'])}")
     return "\n".join(lines)
