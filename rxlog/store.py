@@ -31,7 +31,6 @@ from rxlog.episode_context import episode_context
 from rxlog.errors import RxlogError
 from rxlog.timeutil import iso, parse_iso
 
-
 CLASSES = ("jovian_l", "jovian_s", "solar_iii", "solar_ii", "solar_iv", "fadeout", "rfi", "unknown")
 LABELS = CLASSES + ("noise", "unsure")
 

@@ -11,7 +11,13 @@ from click.testing import CliRunner
 from exchange_helpers import T0, event, list_header, sky, station_config, station_list
 
 from rxlog.cli import main
-from rxlog.exchange.columns import EPISODE_COLUMNS, EPISODE_FORMAT_NAME, EPISODE_FORMAT_VERSION, FORMATS, SUFFIX
+from rxlog.exchange.columns import (
+    EPISODE_COLUMNS,
+    EPISODE_FORMAT_NAME,
+    EPISODE_FORMAT_VERSION,
+    FORMATS,
+    SUFFIX,
+)
 from rxlog.exchange.compare import compare_stations
 from rxlog.exchange.export import export_events
 from rxlog.exchange.importer import EventList, read_event_list
