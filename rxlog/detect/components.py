@@ -27,7 +27,7 @@ from scipy.sparse.csgraph import connected_components
 from rxlog.constants import MAD_TO_SIGMA
 from rxlog.detect.drift import PROFILE_MAX_ROWS
 from rxlog.detect.grid import Grid
-from rxlog.detect.settings import Settings
+from rxlog.detect.settings import LONG_EDGE_FRACTION, Settings
 
 
 @dataclass
@@ -328,7 +328,8 @@ class LinePath:
 
 class SlowPath:
     """Long events on coarse channels, one block at a time: ``slow+`` above the slow
-    baseline, ``slow-`` below it (fadeouts)."""
+    baseline, ``slow-`` below it (fadeouts). Each event is cut to where its excess
+    exceeds LONG_EDGE_FRACTION of its peak (``trim_tails``)."""
 
     def __init__(self, grid: Grid, s: Settings):
         self.s = s
@@ -346,8 +347,26 @@ class SlowPath:
             es, ss = sign * e, sign * sg
             grow = (es >= s.slow_grow_db) & (ss >= s.slow_grow_sigma)
             seed = grow & (es >= s.slow_seed_db) & (ss >= s.slow_seed_sigma)
-            out += [(tag, c) for c in tracker.push(grow, seed, {"ex": e, "sig": sg, "tx": tx})]
+            out += [(tag, trim_tails(c, sign)) for c in tracker.push(grow, seed, {"ex": e, "sig": sg, "tx": tx})]
         return out
 
     def finish(self) -> list[tuple[str, Component]]:
-        return [("slow+", c) for c in self.pos.finish()] + [("slow-", c) for c in self.neg.finish()]
+        return ([("slow+", trim_tails(c, 1)) for c in self.pos.finish()]
+                + [("slow-", trim_tails(c, -1)) for c in self.neg.finish()])
+
+
+def trim_tails(c: Component, sign: int) -> Component:
+    """The event without the blocks before its rise and after its decay where its mean
+    excess over its channels stays under LONG_EDGE_FRACTION of its peak (profile smoothed
+    over three blocks): a recovery's slow tail, which the thresholds in dB would follow
+    for a long time after the event itself has ended."""
+    r = c.rows - c.rows.min()
+    n_cols = len(np.unique(c.cols))
+    prof = np.bincount(r, weights=sign * c.values["ex"].astype(np.float64)) / max(n_cols, 1)
+    if len(prof) >= 3:
+        prof = np.convolve(prof, np.ones(3) / 3.0, mode="same")
+    above = np.flatnonzero(prof >= LONG_EDGE_FRACTION * prof.max())
+    keep = (r >= above[0]) & (r <= above[-1])
+    if keep.all():
+        return c
+    return Component(c.rows[keep], c.cols[keep], {k: v[keep] for k, v in c.values.items()}, forced=c.forced)

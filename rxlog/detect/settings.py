@@ -123,6 +123,17 @@ SBURST_MAX_CADENCE_S = 0.01
 # simulated storms (1.5-2.6) and steady rises (1.0-1.1): a first setting, to check on
 # real nights.
 STORM_TEXTURE = 1.25
+# The slow baseline is carried across a long event it has found (its blocks left out of
+# the fit, the window reaching back for quiet blocks before it) for up to this long: a
+# Type IV continuum lasts tens of minutes to hours (Dulk 1985, ARA&A 23, 169, reviews the
+# types), a Jovian storm minutes to a couple of hours. An "event" longer than this is a
+# change of the background (a new noise source, a changed antenna) and the baseline follows it.
+BRIDGE_S = 4 * 3600.0
+# The extent of a long event is where its excess exceeds this share of its peak (as well
+# as the slow path's thresholds): the slow tail of a recovery or a decay is part of the
+# background's noise, not of the event (the 10 % level is the usual edge of a decaying
+# event's duration; common practice).
+LONG_EDGE_FRACTION = 0.1
 # Narrowband cells masked by SumThreshold are reported as an event once they line up over
 # this much of the band (a swept transmitter); less is a signal staying put, only masked.
 LINE_MIN_MHZ = 0.5
