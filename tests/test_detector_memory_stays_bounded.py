@@ -25,7 +25,7 @@ def test_state_is_bounded_over_hours_of_feeding():
         peak_coarse = max(peak_coarse, len(seg.background.coarse))
         det.pop_episodes()
         det.pop_quality()
-        assert len(det.episodes.by_id) <= 10     # open episodes only (32 events in all)
+        assert len(det.episodes.open) <= 10      # open episodes only (32 events in all)
     n_events += len(det.flush())
     assert n_events >= 16                            # the bursts were found along the way
     assert peak_rows <= 120 / 2.0 + 2 * seg.grid.rows_per_block     # the longest burst plus a block

@@ -350,6 +350,11 @@ class SlowPath:
             out += [(tag, trim_tails(c, sign)) for c in tracker.push(grow, seed, {"ex": e, "sig": sg, "tx": tx})]
         return out
 
+    def open_since(self) -> int | None:
+        """The first block of the long events still open (None: none is)."""
+        rows = [t.row0 + int(np.argmax(t.grow.any(axis=1))) for t in (self.pos, self.neg) if t.grow.any()]
+        return min(rows) if rows else None
+
     def finish(self) -> list[tuple[str, Component]]:
         return ([("slow+", trim_tails(c, 1)) for c in self.pos.finish()]
                 + [("slow-", trim_tails(c, -1)) for c in self.neg.finish()])

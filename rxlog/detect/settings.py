@@ -109,8 +109,12 @@ def band_problems(ranges, fmin_mhz: float, fmax_mhz: float) -> list[str]:
 # observed scatter of decametric Type III drifts about the fitted law is roughly a factor
 # of two (common practice).
 TYPE3_FACTOR = 2.0
-# Type II drift at decametric wavelengths: -0.02 to -0.5 MHz/s (common practice).
-TYPE2_DRIFT = (-0.5, -0.02)
+# Type II drift at decametric wavelengths: -0.02 to -0.5 MHz/s (common practice); near
+# 20 MHz a lane drifts of order -0.01 to -0.1 MHz/s (Nelson & Melrose 1985, in Solar
+# Radiophysics, review the lanes; values from memory), its harmonic lane as fast as the
+# fundamental at the same frequency. The range takes both, down to -0.005 MHz/s for a slow
+# lane of a shock moving along the limb.
+TYPE2_DRIFT = (-0.5, -0.005)
 # Jovian S-bursts drift at about -5 to -30 MHz/s (Zarka's reviews; from memory) and need
 # millisecond resolution: never inferred from spectra coarser than this.
 SBURST_DRIFT = (-40.0, -3.0)
