@@ -9,7 +9,10 @@ not absorbed into the Type IV it overlaps, a flare's episodes linked by one sequ
 a Jovian storm one episode.
 """
 
+import math
+
 import pytest
+from detector_helpers import CFG, Sky, sun_up
 
 from rxlog.detect.online import detect_spectrum
 from rxlog.sim.spectra import simulate_spectra
@@ -49,8 +52,35 @@ def _covers(episodes, cls, truth_row):
             max(parse_iso(e["end_utc"]) for e in eps) - t1)
 
 
+def test_a_continuum_longer_than_the_slow_window_is_reported_whole():
+    # 2.5 h of a 1-dB continuum rising over 5 min, under the synthetic sky's slow drift:
+    # longer than the two-hour slow window, so only a baseline carried across it keeps it.
+    sky = Sky(7 * 3600, n_chan=64, cadence=2.0)
+    sky.patch(5400, 5400 + 9000, 16.0, 24.0, 1.0, rise_s=300)
+    res = detect_spectrum(CFG, sky.spectrum(seed=1), tags_fn=sun_up)
+    iv = [e for e in res.events if e["class"] == "solar_iv" and "within" not in e["reason"]]
+    assert len(iv) == 1
+    assert parse_iso(iv[0]["start_utc"]) - sky.t0 == pytest.approx(5400, abs=EDGE_S)
+    assert parse_iso(iv[0]["end_utc"]) - sky.t0 == pytest.approx(5400 + 9000, abs=EDGE_S)
+    assert [e["class"] for e in res.episodes if e["class"] != "rfi"] == ["solar_iv"]
+
+
+def test_a_fadeout_is_followed_through_its_slow_recovery():
+    # onset over 5 min, recovered to a tenth of its 2-dB depth 45 min after it began
+    sky = Sky(5 * 3600, n_chan=64, cadence=2.0)
+    sky.fadeout(5400, 2.0, rise_s=300.0, decay_s=2400.0 / math.log(10))
+    res = detect_spectrum(CFG, sky.spectrum(seed=2), tags_fn=sun_up)
+    (fade,) = [e for e in res.events if e["class"] == "fadeout"]
+    assert parse_iso(fade["start_utc"]) - sky.t0 == pytest.approx(5400, abs=EDGE_S)
+    assert parse_iso(fade["end_utc"]) - sky.t0 == pytest.approx(5400 + 2700, abs=EDGE_S)
+
+
 @pytest.fixture(scope="module")
 def flare(cfg):
+    return flare_run(cfg)
+
+
+def flare_run(cfg):
     """A flare: a Type III group, a band-split patchy Type II, a 2-h Type IV from 10 min
     later; then, 40 min after the Type IV, a 45-min fadeout of its own."""
     t = NOON + 3600

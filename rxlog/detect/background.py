@@ -99,13 +99,16 @@ def interpolate_blocks(b_prev: np.ndarray, b_here: np.ndarray, b_next: np.ndarra
 
 def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: float,
                      reject_sigma: float, iterations: int = 4,
-                     w0: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                     w0: np.ndarray | None = None, side: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Slow baseline at ``t_eval`` from a window of coarse block levels.
 
     t: (n,) block centres (any unit); y: (n, G) levels in dB, NaN where missing.
     Fits y = a + b t + c t^2 per column by weighted least squares, leaving out cells
     whose residual exceeds max(reject_db, reject_sigma x robust scatter) and refitting;
     ``w0`` (n, G), when given, are the cells of the first fit (``seeded_weights``).
+    ``side`` (G,): the sign of a long event under way in each column (0: none); on that
+    side of the fit a third of ``reject_db`` is enough to leave a cell out, so the decay of
+    a continuum (or a fadeout's recovery) is not taken for the background it returns to.
     A column whose kept cells all lie on one side of ``t_eval`` (the middle of a long
     event, bridged from before it) gets a line: a parabola extrapolated over an hour
     would follow its own curvature, not the sky's.
@@ -126,7 +129,11 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
     A = powers[:d1].T                                                     # (n, d+1)
     kl = np.add.outer(np.arange(d1), np.arange(d1))
     w = ok.astype(np.float64) if w0 is None else (w0 & ok).astype(np.float64)
-    thresh = np.maximum(reject_db, reject_sigma * scatter)[None, :]
+    thresh = np.maximum(reject_db, reject_sigma * scatter)
+    tight = np.maximum(reject_db / 3.0, reject_sigma * scatter)
+    side = np.zeros(g) if side is None else side
+    hi = np.where(side > 0, tight, thresh)[None, :]
+    lo = np.where(side < 0, tight, thresh)[None, :]
     n_ok = ok.sum(axis=0)
     keep_min = np.maximum(3, n_ok // 3)
     before, after = tc < 0, tc > 0
@@ -142,7 +149,7 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
         v = (A.T @ (w * yy)).T                                            # (g, d+1)
         coef = np.linalg.solve(M, v[..., None])[..., 0].T                 # (d+1, g)
         resid = yy - A @ coef
-        w_new = (ok & (np.abs(resid) <= thresh)).astype(np.float64)
+        w_new = (ok & (resid <= hi) & (resid >= -lo)).astype(np.float64)
         # Keep at least a third of the points: a window dominated by an event falls back
         # to its quietest cells rather than to nothing.
         few = w_new.sum(axis=0) < np.minimum(keep_min, n_ok)
@@ -281,7 +288,10 @@ class Background:
         window's. Multiplicative noise keeps its width in dB under a steady rise (a
         continuum, arcing); the seconds-long L-bursts of a Jovian storm widen it.
         """
-        lo, hi = max(0, k - self.back), min(n_blocks, k + self.half_slow + 1)
+        # reach back beyond half a window only while a long event keeps blocks out
+        recent_busy = any(self.busy.get(i, self._idle).any() for i in range(max(0, k - self.half_slow), k))
+        lo = max(0, k - (self.back if recent_busy else self.half_slow))
+        hi = min(n_blocks, k + self.half_slow + 1)
         ks = np.arange(lo, hi)
         y = np.stack([self.coarse[i] for i in ks])
         past = ks < k
@@ -295,7 +305,7 @@ class Background:
         side = self.busy.get(k - 1, self._idle)
         w0 = seeded_weights(ks.astype(np.float64), y, keep_past, thresh, max(3, self.half_slow // 4), side)
         base, scatter = robust_quadratic(ks.astype(np.float64), y, float(k), self.reject_db, self.reject_sigma,
-                                         w0=w0)
+                                         w0=w0, side=side)
         e = self.coarse[k] - base
         with np.errstate(invalid="ignore", divide="ignore"):
             sg = np.where(scatter > 0, e / scatter, 0.0)
