@@ -158,3 +158,57 @@ def test_a_jovian_storm_is_one_episode_not_many(cfg):
     eps, d0, d1 = _covers(res.episodes, "jovian_l", truth["jovian_l"])
     assert abs(d0) <= EDGE_S and abs(d1) <= EDGE_S
     assert len([e for e in res.episodes if e["class"] != "rfi"]) <= 2
+
+
+# -- the episode rules on hand-made events (rxlog.detect.episodes) ----------------------
+
+def _ev(eid, cls, t0, t1, peak=1.0, reason="r"):
+    from rxlog.timeutil import iso
+    return {"event_id": eid, "station": "s", "class": cls, "confidence": 0.6, "reason": reason,
+            "start_utc": iso(NOON + t0), "end_utc": iso(NOON + t1), "fmin_mhz": 18.0, "fmax_mhz": 22.0,
+            "peak_excess_db": peak}
+
+
+def test_a_storms_late_envelope_joins_its_bursts_into_one_episode():
+    from rxlog.detect.episodes import Episodes
+    eps = Episodes(600.0, 3600.0)
+    bursts = [_ev(f"b{i}", "jovian_l", t, t + 20) for i, t in enumerate((0, 60, 120, 2000, 2060, 2120))]
+    for b in bursts:
+        assert eps.assign(b, "fine") == []
+    assert len({b["episode_id"] for b in bursts}) == 2          # a 30-min lull between them
+    moved = eps.assign(_ev("env", "jovian_l", -60, 2200), "slow")
+    assert {m["event_id"] for m in moved} == {"b3", "b4", "b5"}
+    assert {m["episode_id"] for m in moved} == {bursts[0]["episode_id"]}
+    eps.close_all()
+    (storm,) = eps.pop()
+    assert storm["class"] == "jovian_l" and storm["n_events"] == 7 and "envelope" in storm["reason"]
+
+
+def test_two_lone_blobs_amid_an_impulse_storm_are_not_a_storm():
+    from rxlog.detect.episodes import Episodes
+    eps = Episodes(600.0, 3600.0)
+    eps.assign(_ev("i1", "rfi", 0, 1800), "impulse")
+    eps.assign(_ev("b1", "jovian_l", 300, 310), "fine")
+    eps.assign(_ev("b2", "jovian_l", 700, 712), "fine")
+    eps.assign(_ev("q1", "jovian_l", 9000, 9010), "fine")         # alone, in a quiet hour
+    eps.close_all()
+    by = {e["episode_id"]: e for e in eps.pop()}
+    assert by["ep-b1"]["class"] == "rfi" and "impulse storm" in by["ep-b1"]["reason"]
+    assert by["ep-q1"]["class"] == "unknown"
+    assert all(e["class"] != "jovian_l" for e in by.values())
+
+
+def test_a_late_type_iv_links_the_closed_type_iii_group_into_its_sequence():
+    from rxlog.detect.episodes import Episodes
+    eps = Episodes(600.0, 4 * 3600.0)
+    for i, t in enumerate((0, 20, 45)):
+        eps.assign(_ev(f"iii{i}", "solar_iii", t, t + 10), "fine")
+    eps.close_before(NOON + 1500)
+    (iii,) = eps.pop()
+    assert iii["sequence_id"] is None and iii["n_events"] == 3
+    eps.assign(_ev("iv", "solar_iv", 600, 7800, peak=2.0), "slow")   # reported an hour after it ends
+    eps.assign(_ev("fade", "fadeout", 7900, 9000, peak=-1.0), "slow")  # starts as the Type IV ends
+    eps.close_all()
+    out = {e["episode_id"]: e for e in eps.pop()}
+    assert out["ep-iii0"]["sequence_id"] == out["ep-iv"]["sequence_id"] is not None   # handed out again
+    assert out["ep-fade"]["class"] == "unknown" and out["ep-fade"]["sequence_id"] is None

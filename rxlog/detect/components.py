@@ -27,7 +27,7 @@ from scipy.sparse.csgraph import connected_components
 from rxlog.constants import MAD_TO_SIGMA
 from rxlog.detect.drift import PROFILE_MAX_ROWS
 from rxlog.detect.grid import Grid
-from rxlog.detect.settings import LONG_EDGE_FRACTION, Settings
+from rxlog.detect.settings import FOLLOW_FRACTION, LONG_EDGE_FRACTION, Settings
 
 
 @dataclass
@@ -338,6 +338,8 @@ class SlowPath:
         fields = ("ex", "sig", "tx")
         self.pos = Tracker(grid.n_groups, gap_b, 1, 10 ** 9, fields, col_map=g_map)
         self.neg = Tracker(grid.n_groups, gap_b, 1, 10 ** 9, fields, col_map=g_map)
+        # the coarse channels in a long event at the last block, per sign
+        self.under_way = {1: np.zeros(grid.n_groups, dtype=bool), -1: np.zeros(grid.n_groups, dtype=bool)}
 
     def add(self, e: np.ndarray, sg: np.ndarray, tx: np.ndarray) -> list[tuple[str, Component]]:
         """One block's coarse excess (dB), its significance and texture, each (1, G)."""
@@ -345,7 +347,11 @@ class SlowPath:
         out = []
         for sign, tracker, tag in ((1, self.pos, "slow+"), (-1, self.neg, "slow-")):
             es, ss = sign * e, sign * sg
-            grow = (es >= s.slow_grow_db) & (ss >= s.slow_grow_sigma)
+            # hysteresis in time: an event under way is followed down to FOLLOW_FRACTION of
+            # the extent threshold, into the slow end of a decay or a recovery
+            floor = np.where(self.under_way[sign], FOLLOW_FRACTION * s.slow_grow_db, s.slow_grow_db)
+            grow = (es >= floor) & (ss >= s.slow_grow_sigma)
+            self.under_way[sign] = grow[0]
             seed = grow & (es >= s.slow_seed_db) & (ss >= s.slow_seed_sigma)
             out += [(tag, trim_tails(c, sign)) for c in tracker.push(grow, seed, {"ex": e, "sig": sg, "tx": tx})]
         return out
@@ -360,17 +366,21 @@ class SlowPath:
                 + [("slow-", trim_tails(c, -1)) for c in self.neg.finish()])
 
 
+EDGE_SMOOTH = 9        # blocks (4.5 min of 30-s blocks): longer than a continuum's swells are steep
+
+
 def trim_tails(c: Component, sign: int) -> Component:
     """The event without the blocks before its rise and after its decay where its mean
-    excess over its channels stays under LONG_EDGE_FRACTION of its peak (profile smoothed
-    over three blocks): a recovery's slow tail, which the thresholds in dB would follow
-    for a long time after the event itself has ended."""
+    excess over its channels stays under LONG_EDGE_FRACTION of its peak: a recovery's slow
+    tail, which the thresholds in dB would follow for a long time after the event itself
+    has ended. The peak is that of the profile smoothed over EDGE_SMOOTH blocks, so the
+    minutes-long swells of a continuum do not stand for its height."""
     r = c.rows - c.rows.min()
     n_cols = len(np.unique(c.cols))
     prof = np.bincount(r, weights=sign * c.values["ex"].astype(np.float64)) / max(n_cols, 1)
-    if len(prof) >= 3:
-        prof = np.convolve(prof, np.ones(3) / 3.0, mode="same")
-    above = np.flatnonzero(prof >= LONG_EDGE_FRACTION * prof.max())
+    n = min(EDGE_SMOOTH, len(prof))
+    peak = np.convolve(prof, np.ones(n) / n, mode="valid").max()
+    above = np.flatnonzero(prof >= LONG_EDGE_FRACTION * peak)
     keep = (r >= above[0]) & (r <= above[-1])
     if keep.all():
         return c

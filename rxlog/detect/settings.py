@@ -138,6 +138,10 @@ BRIDGE_S = 4 * 3600.0
 # background's noise, not of the event (the 10 % level is the usual edge of a decaying
 # event's duration; common practice).
 LONG_EDGE_FRACTION = 0.1
+# A coarse channel already in a long event stays in it down to this share of
+# ``slow_grow_db``: a 2-dB continuum's tenth is about that threshold, and its decay would
+# otherwise be cut minutes early. rxlog's own setting, from its simulated Type IV decays.
+FOLLOW_FRACTION = 2.0 / 3.0
 # Narrowband cells masked by SumThreshold are reported as an event once they line up over
 # this much of the band (a swept transmitter); less is a signal staying put, only masked.
 LINE_MIN_MHZ = 0.5
