@@ -366,21 +366,25 @@ class SlowPath:
                 + [("slow-", trim_tails(c, -1)) for c in self.neg.finish()])
 
 
-EDGE_SMOOTH = 9        # blocks (4.5 min of 30-s blocks): longer than a continuum's swells are steep
+EDGE_SMOOTH = 9        # blocks (4.5 min of 30-s blocks): a fadeout's depth, not one block's noise
 
 
 def trim_tails(c: Component, sign: int) -> Component:
     """The event without the blocks before its rise and after its decay where its mean
     excess over its channels stays under LONG_EDGE_FRACTION of its peak: a recovery's slow
     tail, which the thresholds in dB would follow for a long time after the event itself
-    has ended. The peak is that of the profile smoothed over EDGE_SMOOTH blocks, so the
-    minutes-long swells of a continuum do not stand for its height."""
+    has ended. A rise (a continuum, a storm) holds a plateau with swells: its height is the
+    median of the blocks above half its highest; a dip (a fadeout) has a sudden onset and
+    a slow recovery: its height is its depth, the profile smoothed over EDGE_SMOOTH blocks."""
     r = c.rows - c.rows.min()
     n_cols = len(np.unique(c.cols))
     prof = np.bincount(r, weights=sign * c.values["ex"].astype(np.float64)) / max(n_cols, 1)
-    n = min(EDGE_SMOOTH, len(prof))
-    peak = np.convolve(prof, np.ones(n) / n, mode="valid").max()
-    above = np.flatnonzero(prof >= LONG_EDGE_FRACTION * peak)
+    if sign > 0:
+        height = float(np.median(prof[prof >= 0.5 * prof.max()]))
+    else:
+        n = min(EDGE_SMOOTH, len(prof))
+        height = float(np.convolve(prof, np.ones(n) / n, mode="valid").max())
+    above = np.flatnonzero(prof >= LONG_EDGE_FRACTION * height)
     keep = (r >= above[0]) & (r <= above[-1])
     if keep.all():
         return c
