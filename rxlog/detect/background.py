@@ -99,14 +99,15 @@ def interpolate_blocks(b_prev: np.ndarray, b_here: np.ndarray, b_next: np.ndarra
 
 def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: float,
                      reject_sigma: float, iterations: int = 4,
-                     w0: np.ndarray | None = None, side: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                     w0: np.ndarray | None = None, side: np.ndarray | None = None,
+                     scatter: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Slow baseline at ``t_eval`` from a window of coarse block levels.
 
     t: (n,) block centres (any unit); y: (n, G) levels in dB, NaN where missing.
     Fits y = a + b t + c t^2 per column by weighted least squares, leaving out cells
     whose residual exceeds max(reject_db, reject_sigma x robust scatter) and refitting;
     ``w0`` (n, G), when given, are the cells of the first fit (``seeded_weights``).
-    ``side`` (G,): the sign of a long event under way in each column (0: none); on that
+    ``scatter`` (G,): ``level_scatter(y)``, when the caller has it. ``side`` (G,): the sign of a long event under way in each column (0: none); on that
     side of the fit a third of ``reject_db`` is enough to leave a cell out, so the decay of
     a continuum (or a fadeout's recovery) is not taken for the background it returns to.
     A column whose kept cells all lie on one side of ``t_eval`` (the middle of a long
@@ -122,7 +123,7 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
     tc = tc / span                                   # well-conditioned design
     ok = ~np.isnan(y)
     yy = np.where(ok, y, 0.0).astype(np.float64)
-    scatter = level_scatter(y)
+    scatter = level_scatter(y) if scatter is None else scatter
     degree = 2 if n >= 9 else (1 if n >= 4 else 0)
     d1 = degree + 1
     powers = np.stack([tc ** k for k in range(2 * degree + 1)], axis=0)     # (2d+1, n)
@@ -245,6 +246,7 @@ class Background:
         self.back = self.half_slow + max(0, int(round(BRIDGE_S / grid.block_s)))
         self.busy: dict[int, np.ndarray] = {}          # per block: +1 / -1 where above / below the baseline
         self._idle = np.zeros(self.n_groups, dtype=np.int8)
+        self.last_busy = -(10 ** 9)                    # the last block with any
         self.next_fast = 0
 
     def add_block(self, j: int, level: np.ndarray, sigma: np.ndarray, chan_mask: np.ndarray):
@@ -289,29 +291,33 @@ class Background:
         continuum, arcing); the seconds-long L-bursts of a Jovian storm widen it.
         """
         # reach back beyond half a window only while a long event keeps blocks out
-        recent_busy = any(self.busy.get(i, self._idle).any() for i in range(max(0, k - self.half_slow), k))
+        recent_busy = self.last_busy >= k - self.half_slow
         lo = max(0, k - (self.back if recent_busy else self.half_slow))
         hi = min(n_blocks, k + self.half_slow + 1)
         ks = np.arange(lo, hi)
         y = np.stack([self.coarse[i] for i in ks])
         past = ks < k
-        busy = np.stack([self.busy.get(i, self._idle) for i in ks]) != 0
-        quiet_past = past[:, None] & ~busy & ~np.isnan(y)
-        # the last half window of quiet blocks before k, per coarse channel
-        recent = np.cumsum(quiet_past[::-1], axis=0)[::-1] <= self.half_slow
-        keep_past = quiet_past & recent
-        y = np.where(past[:, None] & ~keep_past, np.nan, y)
-        thresh = np.maximum(self.reject_db, self.reject_sigma * level_scatter(y))
+        keep_past = past[:, None] & ~np.isnan(y)
+        if recent_busy:
+            busy = np.stack([self.busy.get(i, self._idle) for i in ks]) != 0
+            keep_past &= ~busy
+            # the last half window of quiet blocks before k, per coarse channel
+            keep_past &= np.cumsum(keep_past[::-1], axis=0)[::-1] <= self.half_slow
+            y = np.where(past[:, None] & ~keep_past, np.nan, y)
+        scatter = level_scatter(y)
+        thresh = np.maximum(self.reject_db, self.reject_sigma * scatter)
         side = self.busy.get(k - 1, self._idle)
         w0 = seeded_weights(ks.astype(np.float64), y, keep_past, thresh, max(3, self.half_slow // 4), side)
         base, scatter = robust_quadratic(ks.astype(np.float64), y, float(k), self.reject_db, self.reject_sigma,
-                                         w0=w0, side=side)
+                                         w0=w0, side=side, scatter=scatter)
         e = self.coarse[k] - base
         with np.errstate(invalid="ignore", divide="ignore"):
             sg = np.where(scatter > 0, e / scatter, 0.0)
         e = np.nan_to_num(e).astype(np.float32)
         sg = np.nan_to_num(sg).astype(np.float32)
         self.busy[k] = (np.sign(e) * ((np.abs(e) >= self.reject_db) & (np.abs(sg) >= self.reject_sigma))).astype(np.int8)
+        if self.busy[k].any():
+            self.last_busy = k
         sw = np.stack([self.coarse_sig[i] for i in range(max(0, k - self.half_slow), hi)])
         srt = np.sort(sw, axis=0)                                    # NaN sort last
         n_ok = np.count_nonzero(~np.isnan(sw), axis=0)
