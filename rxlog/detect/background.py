@@ -99,7 +99,7 @@ def interpolate_blocks(b_prev: np.ndarray, b_here: np.ndarray, b_next: np.ndarra
 
 def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: float,
                      reject_sigma: float, iterations: int = 4,
-                     w0: np.ndarray | None = None, side: np.ndarray | None = None,
+                     w0: np.ndarray | None = None,
                      scatter: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Slow baseline at ``t_eval`` from a window of coarse block levels.
 
@@ -107,9 +107,7 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
     Fits y = a + b t + c t^2 per column by weighted least squares, leaving out cells
     whose residual exceeds max(reject_db, reject_sigma x robust scatter) and refitting;
     ``w0`` (n, G), when given, are the cells of the first fit (``seeded_weights``).
-    ``scatter`` (G,): ``level_scatter(y)``, when the caller has it. ``side`` (G,): the sign of a long event under way in each column (0: none); on that
-    side of the fit a third of ``reject_db`` is enough to leave a cell out, so the decay of
-    a continuum (or a fadeout's recovery) is not taken for the background it returns to.
+    ``scatter`` (G,): ``level_scatter(y)``, when the caller has it.
     A column whose kept cells all lie on one side of ``t_eval`` (the middle of a long
     event, bridged from before it) gets a line: a parabola extrapolated over an hour
     would follow its own curvature, not the sky's.
@@ -130,11 +128,7 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
     A = powers[:d1].T                                                     # (n, d+1)
     kl = np.add.outer(np.arange(d1), np.arange(d1))
     w = ok.astype(np.float64) if w0 is None else (w0 & ok).astype(np.float64)
-    thresh = np.maximum(reject_db, reject_sigma * scatter)
-    tight = np.maximum(reject_db / 3.0, reject_sigma * scatter)
-    side = np.zeros(g) if side is None else side
-    hi = np.where(side > 0, tight, thresh)[None, :]
-    lo = np.where(side < 0, tight, thresh)[None, :]
+    thresh = np.maximum(reject_db, reject_sigma * scatter)[None, :]
     n_ok = ok.sum(axis=0)
     keep_min = np.maximum(3, n_ok // 3)
     before, after = tc < 0, tc > 0
@@ -150,7 +144,7 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
         v = (A.T @ (w * yy)).T                                            # (g, d+1)
         coef = np.linalg.solve(M, v[..., None])[..., 0].T                 # (d+1, g)
         resid = yy - A @ coef
-        w_new = (ok & (resid <= hi) & (resid >= -lo)).astype(np.float64)
+        w_new = (ok & (np.abs(resid) <= thresh)).astype(np.float64)
         # Keep at least a third of the points: a window dominated by an event falls back
         # to its quietest cells rather than to nothing.
         few = w_new.sum(axis=0) < np.minimum(keep_min, n_ok)
@@ -309,7 +303,7 @@ class Background:
         side = self.busy.get(k - 1, self._idle)
         w0 = seeded_weights(ks.astype(np.float64), y, keep_past, thresh, max(3, self.half_slow // 4), side)
         base, scatter = robust_quadratic(ks.astype(np.float64), y, float(k), self.reject_db, self.reject_sigma,
-                                         w0=w0, side=side, scatter=scatter)
+                                         w0=w0, scatter=scatter)
         e = self.coarse[k] - base
         with np.errstate(invalid="ignore", divide="ignore"):
             sg = np.where(scatter > 0, e / scatter, 0.0)
