@@ -17,7 +17,11 @@ Two scales follow from those block values:
   over a centred window of ``slow_window_s``, with cells that stand out by more than the
   rejection threshold (in dB and in noise units) left out and the fit repeated. A
   Type IV continuum, a Jovian storm or a fadeout lasting well under half the window is
-  rejected rather than absorbed, and negative excess (fadeouts) is kept as such.
+  rejected rather than absorbed, and negative excess (fadeouts) is kept as such. Longer
+  events are *bridged*: blocks the slow path found in an event leave the fit, the window
+  reaches back (up to BRIDGE_S) for quiet blocks before it, the first fit starts from a
+  line through those, and later blocks join once the event is over, so the baseline runs
+  under a two-hour continuum from the quiet before it to the quiet after it.
 
 Everything here is a pure function of whole blocks, so feeding rows in chunks of any
 size gives the same numbers as one pass over the segment; ``Background`` keeps one
