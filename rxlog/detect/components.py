@@ -366,7 +366,7 @@ class SlowPath:
                 + [("slow-", trim_tails(c, -1)) for c in self.neg.finish()])
 
 
-EDGE_SMOOTH = 9        # blocks (4.5 min of 30-s blocks): a fadeout's depth, not one block's noise
+EDGE_SMOOTH = 3        # blocks (1.5 min of 30-s blocks): a fadeout's depth at its cusp, not one block's noise
 
 
 def trim_tails(c: Component, sign: int) -> Component:
