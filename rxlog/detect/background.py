@@ -17,7 +17,11 @@ Two scales follow from those block values:
   over a centred window of ``slow_window_s``, with cells that stand out by more than the
   rejection threshold (in dB and in noise units) left out and the fit repeated. A
   Type IV continuum, a Jovian storm or a fadeout lasting well under half the window is
-  rejected rather than absorbed, and negative excess (fadeouts) is kept as such.
+  rejected rather than absorbed, and negative excess (fadeouts) is kept as such. Longer
+  events are *bridged*: blocks the slow path found in an event leave the fit, the window
+  reaches back (up to BRIDGE_S) for quiet blocks before it, the first fit starts from a
+  line through those, and later blocks join once the event is over, so the baseline runs
+  under a two-hour continuum from the quiet before it to the quiet after it.
 
 Everything here is a pure function of whole blocks, so feeding rows in chunks of any
 size gives the same numbers as one pass over the segment; ``Background`` keeps one
@@ -31,7 +35,7 @@ import numpy as np
 
 from rxlog.constants import MAD_TO_SIGMA
 from rxlog.detect.grid import Grid
-from rxlog.detect.settings import Settings
+from rxlog.detect.settings import BRIDGE_S, Settings
 
 
 def nanmedian(x: np.ndarray, axis: int = 0) -> np.ndarray:
@@ -98,12 +102,19 @@ def interpolate_blocks(b_prev: np.ndarray, b_here: np.ndarray, b_next: np.ndarra
 
 
 def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: float,
-                     reject_sigma: float, iterations: int = 4) -> tuple[np.ndarray, np.ndarray]:
+                     reject_sigma: float, iterations: int = 4,
+                     w0: np.ndarray | None = None,
+                     scatter: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Slow baseline at ``t_eval`` from a window of coarse block levels.
 
     t: (n,) block centres (any unit); y: (n, G) levels in dB, NaN where missing.
     Fits y = a + b t + c t^2 per column by weighted least squares, leaving out cells
-    whose residual exceeds max(reject_db, reject_sigma x robust scatter) and refitting.
+    whose residual exceeds max(reject_db, reject_sigma x robust scatter) and refitting;
+    ``w0`` (n, G), when given, are the cells of the first fit (``seeded_weights``).
+    ``scatter`` (G,): ``level_scatter(y)``, when the caller has it.
+    A column whose kept cells all lie on one side of ``t_eval`` (the middle of a long
+    event, bridged from before it) gets a line: a parabola extrapolated over an hour
+    would follow its own curvature, not the sky's.
     Returns (baseline at t_eval (G,), scatter (G,)): the scatter is the robust noise of
     the block levels from their first differences (insensitive to the trend).
     Falls back to a line or a constant when too few blocks are present.
@@ -114,32 +125,37 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
     tc = tc / span                                   # well-conditioned design
     ok = ~np.isnan(y)
     yy = np.where(ok, y, 0.0).astype(np.float64)
-    diff = np.abs(np.diff(np.where(ok, y, np.nan), axis=0)) if n >= 2 else np.full((1, g), np.nan)
-    scatter = MAD_TO_SIGMA / np.sqrt(2.0) * nanmedian(diff, axis=0).astype(np.float64)
-    scatter = np.where(np.isfinite(scatter), scatter, 0.0)
+    scatter = level_scatter(y) if scatter is None else scatter
     degree = 2 if n >= 9 else (1 if n >= 4 else 0)
     d1 = degree + 1
     powers = np.stack([tc ** k for k in range(2 * degree + 1)], axis=0)     # (2d+1, n)
     A = powers[:d1].T                                                     # (n, d+1)
     kl = np.add.outer(np.arange(d1), np.arange(d1))
-    w = ok.astype(np.float64)
+    w = ok.astype(np.float64) if w0 is None else (w0 & ok).astype(np.float64)
     thresh = np.maximum(reject_db, reject_sigma * scatter)[None, :]
-    keep_min = max(3, n // 3)
+    n_ok = ok.sum(axis=0)
+    keep_min = np.maximum(3, n_ok // 3)
+    before, after = tc < 0, tc > 0
     coef = np.zeros((d1, g))
     for _ in range(iterations):
         moments = powers @ w                                              # (2d+1, g)
         M = np.moveaxis(moments[kl], -1, 0) + 1e-9 * np.eye(d1)[None]     # (g, d+1, d+1)
+        if degree == 2:
+            # one-sided columns: pin the curvature to zero
+            kept = w.sum(axis=0)
+            one_sided = np.minimum(before @ w, after @ w) < 0.1 * np.maximum(kept, 1.0)
+            M[:, 2, 2] += np.where(one_sided, 1e6 * np.maximum(kept, 1.0), 0.0)
         v = (A.T @ (w * yy)).T                                            # (g, d+1)
         coef = np.linalg.solve(M, v[..., None])[..., 0].T                 # (d+1, g)
         resid = yy - A @ coef
         w_new = (ok & (np.abs(resid) <= thresh)).astype(np.float64)
         # Keep at least a third of the points: a window dominated by an event falls back
         # to its quietest cells rather than to nothing.
-        few = w_new.sum(axis=0) < keep_min
+        few = w_new.sum(axis=0) < np.minimum(keep_min, n_ok)
         if np.any(few):
             r = np.where(ok, np.abs(resid), np.inf)[:, few]
-            k = min(keep_min, n - 1)
-            cut = np.partition(r, k, axis=0)[k]
+            k = np.clip(keep_min[few], 1, n - 1)
+            cut = np.take_along_axis(np.sort(r, axis=0), k[None, :], axis=0)[0]
             w_new[:, few] = (r <= cut).astype(np.float64)
         if np.array_equal(w_new, w):
             break
@@ -147,6 +163,42 @@ def robust_quadratic(t: np.ndarray, y: np.ndarray, t_eval: float, reject_db: flo
     base = coef[0]                                   # value at t_eval (tc = 0)
     base = np.where(ok.any(axis=0), base, np.nan)
     return base.astype(np.float32), scatter.astype(np.float32)
+
+
+def level_scatter(y: np.ndarray) -> np.ndarray:
+    """Robust noise of block levels (n, G) from their first differences (G,), 0 where unknown."""
+    ok = ~np.isnan(y)
+    if y.shape[0] < 2:
+        return np.zeros(y.shape[1])
+    diff = np.abs(np.diff(np.where(ok, y, np.nan), axis=0))
+    scatter = MAD_TO_SIGMA / np.sqrt(2.0) * nanmedian(diff, axis=0).astype(np.float64)
+    return np.where(np.isfinite(scatter), scatter, 0.0)
+
+
+def seeded_weights(t: np.ndarray, y: np.ndarray, past: np.ndarray, thresh: np.ndarray,
+                   min_past: int, side: np.ndarray) -> np.ndarray:
+    """The cells a slow fit starts from: a line through the ``past`` cells (n, G) of each
+    column (quiet blocks before the one evaluated), and every cell near it. A long event
+    under way, or starting within the window, then cannot pull the first fit up (or down)
+    to meet it. ``side`` (G,): the sign of the event under way in each column (0: none);
+    where +1, every later cell not above the line by more than ``thresh`` counts (the
+    background after the event ends may have drifted either way during it, but the event
+    only ever adds), where -1 every cell not below it, else those within ``thresh``.
+    Columns with fewer than ``min_past`` past cells start from all their cells."""
+    ok = ~np.isnan(y)
+    w = (past & ok).astype(np.float64)
+    tc = (t - t.mean()) / max(np.ptp(t), 1e-9)
+    yy = np.where(ok, y, 0.0)
+    s0, s1, s2 = w.sum(axis=0), tc @ w, (tc * tc) @ w
+    b0, b1 = (w * yy).sum(axis=0), tc @ (w * yy)
+    det = s0 * s2 - s1 * s1
+    enough = (s0 >= min_past) & (det > 1e-12 * np.maximum(s0, 1.0) ** 2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = np.where(enough, (s2 * b0 - s1 * b1) / det, 0.0)
+        b = np.where(enough, (s0 * b1 - s1 * b0) / det, 0.0)
+    r = yy - a[None, :] - b[None, :] * tc[:, None]
+    near = np.where(side > 0, r <= thresh, np.where(side < 0, r >= -thresh, np.abs(r) <= thresh))
+    return np.where(enough[None, :], ok & (near | past), ok)
 
 
 def coarse_groups(freq_hz: np.ndarray, width_mhz: float) -> np.ndarray:
@@ -188,6 +240,11 @@ class Background:
         self.fast: dict[int, tuple] = {}
         self.coarse: dict[int, np.ndarray] = {}
         self.coarse_sig: dict[int, np.ndarray] = {}    # coarse second-to-second noise of each block
+        # how far back the slow baseline may reach for quiet blocks across a long event
+        self.back = self.half_slow + max(0, int(round(BRIDGE_S / grid.block_s)))
+        self.busy: dict[int, np.ndarray] = {}          # per block: +1 / -1 where above / below the baseline
+        self._idle = np.zeros(self.n_groups, dtype=np.int8)
+        self.last_busy = -(10 ** 9)                    # the last block with any
         self.next_fast = 0
 
     def add_block(self, j: int, level: np.ndarray, sigma: np.ndarray, chan_mask: np.ndarray):
@@ -222,26 +279,50 @@ class Background:
         """Block k on coarse channels against the slow baseline, each (1, G): excess in dB,
         in noise units of the block levels, and texture.
 
+        The baseline is fitted to the window's future half and to the last half window
+        of *quiet* blocks before k: blocks the slow path found in an event (``busy``) are
+        left out and the window reaches back past them, up to ``back`` blocks, so the
+        baseline is carried across a long event (bridged) instead of rising into it.
+
         Texture: this block's second-to-second noise against the quiet quarter of the
         window's. Multiplicative noise keeps its width in dB under a steady rise (a
         continuum, arcing); the seconds-long L-bursts of a Jovian storm widen it.
         """
-        lo, hi = max(0, k - self.half_slow), min(n_blocks, k + self.half_slow + 1)
+        # reach back beyond half a window only while a long event keeps blocks out
+        recent_busy = self.last_busy >= k - self.half_slow
+        lo = max(0, k - (self.back if recent_busy else self.half_slow))
+        hi = min(n_blocks, k + self.half_slow + 1)
         ks = np.arange(lo, hi)
         y = np.stack([self.coarse[i] for i in ks])
-        base, scatter = robust_quadratic(ks.astype(np.float64), y, float(k), self.reject_db, self.reject_sigma)
+        past = ks < k
+        keep_past = past[:, None] & ~np.isnan(y)
+        if recent_busy:
+            busy = np.stack([self.busy.get(i, self._idle) for i in ks]) != 0
+            keep_past &= ~busy
+            # the last half window of quiet blocks before k, per coarse channel
+            keep_past &= np.cumsum(keep_past[::-1], axis=0)[::-1] <= self.half_slow
+            y = np.where(past[:, None] & ~keep_past, np.nan, y)
+        scatter = level_scatter(y)
+        thresh = np.maximum(self.reject_db, self.reject_sigma * scatter)
+        side = self.busy.get(k - 1, self._idle)
+        w0 = seeded_weights(ks.astype(np.float64), y, keep_past, thresh, max(3, self.half_slow // 4), side)
+        base, scatter = robust_quadratic(ks.astype(np.float64), y, float(k), self.reject_db, self.reject_sigma,
+                                         w0=w0, scatter=scatter)
         e = self.coarse[k] - base
         with np.errstate(invalid="ignore", divide="ignore"):
             sg = np.where(scatter > 0, e / scatter, 0.0)
-        e = np.nan_to_num(e).astype(np.float32)[None, :]
-        sg = np.nan_to_num(sg).astype(np.float32)[None, :]
-        sw = np.stack([self.coarse_sig[i] for i in ks])
+        e = np.nan_to_num(e).astype(np.float32)
+        sg = np.nan_to_num(sg).astype(np.float32)
+        self.busy[k] = (np.sign(e) * ((np.abs(e) >= self.reject_db) & (np.abs(sg) >= self.reject_sigma))).astype(np.int8)
+        if self.busy[k].any():
+            self.last_busy = k
+        sw = np.stack([self.coarse_sig[i] for i in range(max(0, k - self.half_slow), hi)])
         srt = np.sort(sw, axis=0)                                    # NaN sort last
         n_ok = np.count_nonzero(~np.isnan(sw), axis=0)
         ref = np.take_along_axis(srt, np.clip((n_ok - 1) // 4, 0, None)[None, :], axis=0)[0]
         with np.errstate(invalid="ignore", divide="ignore"):
             tx = np.nan_to_num(self.coarse_sig[k] / ref, nan=1.0, posinf=1.0).astype(np.float32)[None, :]
-        return e, sg, tx
+        return e[None, :], sg[None, :], tx
 
     def forget(self, next_m: int, next_slow: int):
         """Drop what no later block needs: fast levels before the block the mask stage
@@ -249,7 +330,7 @@ class Background:
         levels before the oldest slow window."""
         for d, keep_from in ((self.fast, next_m - 1),
                              (self.sigma, self.next_fast - self.W), (self.level, self.next_fast - self.W),
-                             (self.coarse, next_slow - self.half_slow),
+                             (self.coarse, next_slow - self.back), (self.busy, next_slow - self.back),
                              (self.coarse_sig, next_slow - self.half_slow)):
             for k in [k for k in d if k < keep_from]:
                 del d[k]

@@ -27,7 +27,7 @@ from scipy.sparse.csgraph import connected_components
 from rxlog.constants import MAD_TO_SIGMA
 from rxlog.detect.drift import PROFILE_MAX_ROWS
 from rxlog.detect.grid import Grid
-from rxlog.detect.settings import Settings
+from rxlog.detect.settings import FOLLOW_FRACTION, LONG_EDGE_FRACTION, Settings
 
 
 @dataclass
@@ -328,7 +328,8 @@ class LinePath:
 
 class SlowPath:
     """Long events on coarse channels, one block at a time: ``slow+`` above the slow
-    baseline, ``slow-`` below it (fadeouts)."""
+    baseline, ``slow-`` below it (fadeouts). Each event is cut to where its excess
+    exceeds LONG_EDGE_FRACTION of its peak (``trim_tails``)."""
 
     def __init__(self, grid: Grid, s: Settings):
         self.s = s
@@ -337,6 +338,8 @@ class SlowPath:
         fields = ("ex", "sig", "tx")
         self.pos = Tracker(grid.n_groups, gap_b, 1, 10 ** 9, fields, col_map=g_map)
         self.neg = Tracker(grid.n_groups, gap_b, 1, 10 ** 9, fields, col_map=g_map)
+        # the coarse channels in a long event at the last block, per sign
+        self.under_way = {1: np.zeros(grid.n_groups, dtype=bool), -1: np.zeros(grid.n_groups, dtype=bool)}
 
     def add(self, e: np.ndarray, sg: np.ndarray, tx: np.ndarray) -> list[tuple[str, Component]]:
         """One block's coarse excess (dB), its significance and texture, each (1, G)."""
@@ -344,10 +347,45 @@ class SlowPath:
         out = []
         for sign, tracker, tag in ((1, self.pos, "slow+"), (-1, self.neg, "slow-")):
             es, ss = sign * e, sign * sg
-            grow = (es >= s.slow_grow_db) & (ss >= s.slow_grow_sigma)
+            # hysteresis in time: an event under way is followed down to FOLLOW_FRACTION of
+            # the extent threshold, into the slow end of a decay or a recovery
+            floor = np.where(self.under_way[sign], FOLLOW_FRACTION * s.slow_grow_db, s.slow_grow_db)
+            grow = (es >= floor) & (ss >= s.slow_grow_sigma)
+            self.under_way[sign] = grow[0]
             seed = grow & (es >= s.slow_seed_db) & (ss >= s.slow_seed_sigma)
-            out += [(tag, c) for c in tracker.push(grow, seed, {"ex": e, "sig": sg, "tx": tx})]
+            out += [(tag, trim_tails(c, sign)) for c in tracker.push(grow, seed, {"ex": e, "sig": sg, "tx": tx})]
         return out
 
+    def open_since(self) -> int | None:
+        """The first block of the long events still open (None: none is)."""
+        rows = [t.row0 + int(np.argmax(t.grow.any(axis=1))) for t in (self.pos, self.neg) if t.grow.any()]
+        return min(rows) if rows else None
+
     def finish(self) -> list[tuple[str, Component]]:
-        return [("slow+", c) for c in self.pos.finish()] + [("slow-", c) for c in self.neg.finish()]
+        return ([("slow+", trim_tails(c, 1)) for c in self.pos.finish()]
+                + [("slow-", trim_tails(c, -1)) for c in self.neg.finish()])
+
+
+EDGE_SMOOTH = 3        # blocks (1.5 min of 30-s blocks): a fadeout's depth at its cusp, not one block's noise
+
+
+def trim_tails(c: Component, sign: int) -> Component:
+    """The event without the blocks before its rise and after its decay where its mean
+    excess over its channels stays under LONG_EDGE_FRACTION of its peak: a recovery's slow
+    tail, which the thresholds in dB would follow for a long time after the event itself
+    has ended. A rise (a continuum, a storm) holds a plateau with swells: its height is the
+    median of the blocks above half its highest; a dip (a fadeout) has a sudden onset and
+    a slow recovery: its height is its depth, the profile smoothed over EDGE_SMOOTH blocks."""
+    r = c.rows - c.rows.min()
+    n_cols = len(np.unique(c.cols))
+    prof = np.bincount(r, weights=sign * c.values["ex"].astype(np.float64)) / max(n_cols, 1)
+    if sign > 0:
+        height = float(np.median(prof[prof >= 0.5 * prof.max()]))
+    else:
+        n = min(EDGE_SMOOTH, len(prof))
+        height = float(np.convolve(prof, np.ones(n) / n, mode="valid").max())
+    above = np.flatnonzero(prof >= LONG_EDGE_FRACTION * height)
+    keep = (r >= above[0]) & (r <= above[-1])
+    if keep.all():
+        return c
+    return Component(c.rows[keep], c.cols[keep], {k: v[keep] for k, v in c.values.items()}, forced=c.forced)

@@ -39,7 +39,7 @@ from rxlog.detect.events import (
 )
 from rxlog.detect.mask import Occupancy, add_hours, new_occupancy
 from rxlog.detect.segment import Segment
-from rxlog.detect.settings import Settings
+from rxlog.detect.settings import BRIDGE_S, Settings
 from rxlog.sky.tags import station_tags
 from rxlog.spectrum import DynamicSpectrum
 from rxlog.timeutil import iso
@@ -62,11 +62,13 @@ class OnlineDetector:
     ``feed(spec_chunk)`` takes the next rows (any number, in time order; a new segment
     id, channel grid, cadence or a jump in time starts a new segment) and returns the
     events finished so far; ``flush()`` ends the current segment and returns the rest.
-    ``pop_episodes()`` and ``pop_quality()`` return the episodes updated and the hourly
-    quality rows finished since the last call. Fine bursts come out a few minutes after
-    they end; long events half a slow window (``slow_window_s`` / 2) after, together with
+    ``pop_episodes()`` and ``pop_quality()`` return the episodes decided and the hourly
+    quality rows finished since the last call (an episode is decided once no path can
+    add to it: after the slow path has passed it, half a slow window or more later).
+    Fine bursts come out a few minutes after they end; long events half a slow window (``slow_window_s`` / 2) after, together with
     updated versions (same event_id) of the "unknown" bursts that turned out to be pieces
-    of them: keep the last version of each event (``latest``; the event store upserts).
+    of them, and of events whose episode was joined to an earlier one: keep the last
+    version of each event (``latest``; the event store upserts).
     """
 
     def __init__(self, cfg, tags_fn: TagsFn | None = None, settings: Settings | None = None,
@@ -76,7 +78,7 @@ class OnlineDetector:
         self.tags_fn = tags_fn if tags_fn is not None else default_tags_fn(cfg)
         self.mask_sink = mask_sink
         self.seg: Segment | None = None
-        self.episodes = Episodes(self.s.episode_gap_s, self.s.slow_window_s)
+        self.episodes = Episodes(self.s.episode_gap_s, BRIDGE_S + self.s.slow_window_s)
         self.pieces = LongEventPieces(self.s.block_s, self.s.slow_window_s)
         self._quality: list[dict] = []
         self._hours: dict[float, list[float]] = {}
@@ -92,6 +94,7 @@ class OnlineDetector:
         if self.seg is None:
             self.seg = Segment(self.s, spec, self.mask_sink, self._occupancy(spec))
         out += self._events(self.seg.add(spec))
+        self.episodes.close_before(self._frontier())
         self._collect_quality(final=False)
         return out
 
@@ -129,7 +132,19 @@ class OnlineDetector:
             occ.load(st)
             self.occupancy[key] = occ
 
+    def _frontier(self) -> float:
+        """The time before which no path can report another event: where the slow path
+        (half a slow window behind) and the fine path (an event's longest span behind)
+        have got to, and the start of any long event still open."""
+        seg = self.seg
+        g = seg.grid
+        t = min(g.t0 + seg.next_slow * g.block_s, g.t0 + seg.next_s * g.block_s - self.s.max_event_s)
+        since = seg.slow.open_since()
+        return t if since is None else min(t, g.t0 + since * g.block_s)
+
     def pop_episodes(self) -> list[dict]:
+        """The episodes closed (decided) since the last call, and closed ones handed out
+        again because a later episode of the same flare linked to them."""
         return self.episodes.pop()
 
     def pop_quality(self) -> list[dict]:
@@ -173,10 +188,13 @@ class OnlineDetector:
             cls, conf, reason = classify(f, self.s)
             events.append((f, event_record(self.s.station, f, ctx, cls, conf, reason)))
         events.sort(key=lambda fe: fe[1]["peak_utc"])
-        for _, e in events:
-            self.episodes.assign(e)
+        moved = []
+        for f, e in events:
+            moved += self.episodes.assign(e, f["path"])
         updates = self.pieces.updates(events)
-        return [e for _, e in events] + updates
+        for u in updates:
+            moved += self.episodes.reassign(u, "fine")
+        return [e for _, e in events] + updates + moved
 
 
 @dataclass

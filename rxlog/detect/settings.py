@@ -109,8 +109,12 @@ def band_problems(ranges, fmin_mhz: float, fmax_mhz: float) -> list[str]:
 # observed scatter of decametric Type III drifts about the fitted law is roughly a factor
 # of two (common practice).
 TYPE3_FACTOR = 2.0
-# Type II drift at decametric wavelengths: -0.02 to -0.5 MHz/s (common practice).
-TYPE2_DRIFT = (-0.5, -0.02)
+# Type II drift at decametric wavelengths: -0.02 to -0.5 MHz/s (common practice); near
+# 20 MHz a lane drifts of order -0.01 to -0.1 MHz/s (Nelson & Melrose 1985, in Solar
+# Radiophysics, review the lanes; values from memory), its harmonic lane as fast as the
+# fundamental at the same frequency. The range takes both, down to -0.005 MHz/s for a slow
+# lane of a shock moving along the limb.
+TYPE2_DRIFT = (-0.5, -0.005)
 # Jovian S-bursts drift at about -5 to -30 MHz/s (Zarka's reviews; from memory) and need
 # millisecond resolution: never inferred from spectra coarser than this.
 SBURST_DRIFT = (-40.0, -3.0)
@@ -123,6 +127,21 @@ SBURST_MAX_CADENCE_S = 0.01
 # simulated storms (1.5-2.6) and steady rises (1.0-1.1): a first setting, to check on
 # real nights.
 STORM_TEXTURE = 1.25
+# The slow baseline is carried across a long event it has found (its blocks left out of
+# the fit, the window reaching back for quiet blocks before it) for up to this long: a
+# Type IV continuum lasts tens of minutes to hours (Dulk 1985, ARA&A 23, 169, reviews the
+# types), a Jovian storm minutes to a couple of hours. An "event" longer than this is a
+# change of the background (a new noise source, a changed antenna) and the baseline follows it.
+BRIDGE_S = 4 * 3600.0
+# The extent of a long event is where its excess exceeds this share of its peak (as well
+# as the slow path's thresholds): the slow tail of a recovery or a decay is part of the
+# background's noise, not of the event (the 10 % level is the usual edge of a decaying
+# event's duration; common practice).
+LONG_EDGE_FRACTION = 0.1
+# A coarse channel already in a long event stays in it down to this share of
+# ``slow_grow_db``: a 2-dB continuum's tenth is about that threshold, and its decay would
+# otherwise be cut minutes early. rxlog's own setting, from its simulated Type IV decays.
+FOLLOW_FRACTION = 2.0 / 3.0
 # Narrowband cells masked by SumThreshold are reported as an event once they line up over
 # this much of the band (a swept transmitter); less is a signal staying put, only masked.
 LINE_MIN_MHZ = 0.5
