@@ -1,7 +1,9 @@
 """The event store: one SQLite file (WAL mode) through sqlite-utils.
 
 Tables: stations, segments, events, episodes, labels, quality (hourly masked fraction
-and gaps), health, and schema_version. Detections and human labels are kept apart: a
+and gaps, and the masked fraction per coarse channel group), mask_occupancy (what the
+RFI mask learned, per channel grid: carried across restarts of the logger), health, and
+schema_version. Detections and human labels are kept apart: a
 label belongs to the event it was given to (by event id) for as long as that event
 exists. Only when re-running detection replaced the event (a change of thresholds, and
 thus of event ids) does the label move, to the new event whose time-frequency box
@@ -14,6 +16,7 @@ are never lost and never land on an event a reviewer did not mean.
 from __future__ import annotations
 
 import functools
+import json
 import math
 import sqlite3
 import time
@@ -25,7 +28,7 @@ from rxlog import boxes
 from rxlog.errors import RxlogError
 from rxlog.timeutil import iso, parse_iso
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 
 CLASSES = ("jovian_l", "jovian_s", "solar_iii", "solar_ii", "solar_iv", "fadeout", "rfi", "unknown")
 LABELS = CLASSES + ("noise", "unsure")
@@ -38,7 +41,7 @@ EVENT_COLUMNS = {
     "peak_excess_db": float, "snr": float, "integrated_excess": float,
     "drift_mhz_s": float, "drift_err_mhz_s": float,
     "duration_s": float, "bandwidth_mhz": float,
-    "class": str, "confidence": float, "reason": str,
+    "class": str, "confidence": float, "reason": str, "rfi_kind": str,
     "cml3_deg": float, "io_phase_deg": float,
     "cml3_start_deg": float, "cml3_end_deg": float,
     "io_phase_start_deg": float, "io_phase_end_deg": float,
@@ -72,7 +75,8 @@ def _v1(db: sqlite_utils.Database):
                            "cadence_s": float, "settings": str},
                           pk="segment_id", if_not_exists=True)
     cols = {k: v for k, v in EVENT_COLUMNS.items() if k not in ("cml3_start_deg", "cml3_end_deg",
-                                                                  "io_phase_start_deg", "io_phase_end_deg")}
+                                                                  "io_phase_start_deg", "io_phase_end_deg",
+                                                                  "rfi_kind")}
     db["events"].create(cols, pk="event_id", if_not_exists=True)
     db["events"].create_index(["station", "peak_utc"], if_not_exists=True)
     db["episodes"].create({"episode_id": str, "station": str, "start_utc": str, "end_utc": str,
@@ -116,7 +120,27 @@ def _v3(db: sqlite_utils.Database):
     reattach_orphans(db)
 
 
-MIGRATIONS = {1: _v1, 2: _v2, 3: _v3}  # version -> function bringing the store from version-1 to it
+def _v4(db: sqlite_utils.Database):
+    """Version 4 names the kind of each interference event (``events.rfi_kind``: impulse,
+    impulse_train, narrowband_burst, switched_broadband, sweep, carrier, broadband_noise,
+    non_gaussian; null for other classes), keeps the hourly masked fraction per coarse
+    channel group (``quality.group_fmin_mhz``, ``group_mhz`` and ``masked_by_group``, a JSON
+    list of fractions, null where a group had no data) and what the RFI mask learned
+    (``mask_occupancy``: per station and channel grid, the recent and hour-of-day occupancy
+    of each channel as JSON lists). Interference events stored before say their kind only
+    in their reason; they keep a null kind."""
+    if "rfi_kind" not in db["events"].columns_dict:
+        db["events"].add_column("rfi_kind", str)
+    existing = db["quality"].columns_dict
+    for col, kind in (("group_fmin_mhz", float), ("group_mhz", float), ("masked_by_group", str)):
+        if col not in existing:
+            db["quality"].add_column(col, kind)
+    db["mask_occupancy"].create({"station": str, "channels": int, "fmin_hz": float, "fmax_hz": float,
+                                 "updated_utc": str, "recent": str, "by_hour": str},
+                                pk=("station", "channels", "fmin_hz", "fmax_hz"), if_not_exists=True)
+
+
+MIGRATIONS = {1: _v1, 2: _v2, 3: _v3, 4: _v4}  # version -> function bringing the store from version-1 to it
 
 
 class EventStore:
@@ -302,8 +326,11 @@ class EventStore:
 
     # -- quality and health ---------------------------------------------------------------
     def record_quality(self, rows: list[dict]):
-        """Hourly data quality rows {station, hour_utc, masked_fraction, gap_s, covered_s} (upsert)."""
+        """Hourly data quality rows {station, hour_utc, masked_fraction, gap_s, covered_s,
+        and optionally group_fmin_mhz, group_mhz, masked_by_group (a list)} (upsert)."""
         if rows:
+            rows = [dict(r, masked_by_group=json.dumps(r["masked_by_group"]))
+                    if isinstance(r.get("masked_by_group"), list) else r for r in rows]
             with self.db.conn:
                 self.db["quality"].upsert_all(rows, pk=("station", "hour_utc"))
 
@@ -314,7 +341,34 @@ class EventStore:
         if t1 is not None:
             where.append("hour_utc < ?"); args.append(iso(t1))
         sql = "select * from quality" + (" where " + " and ".join(where) if where else "") + " order by hour_utc"
-        return [dict(r) for r in self.db.query(sql, args)]
+        rows = [dict(r) for r in self.db.query(sql, args)]
+        for r in rows:
+            if r.get("masked_by_group"):
+                r["masked_by_group"] = json.loads(r["masked_by_group"])
+        return rows
+
+    # -- what the RFI mask learned ------------------------------------------------------------
+    def save_occupancy(self, station: str, states: list[dict]):
+        """Keep the RFI mask's occupancy per channel grid (``OnlineDetector.occupancy_state``)."""
+        now = iso(time.time())
+        rows = [{"station": station, "channels": int(st["channels"]), "fmin_hz": float(st["fmin_hz"]),
+                 "fmax_hz": float(st["fmax_hz"]), "updated_utc": now, "recent": json.dumps(st["recent"]),
+                 "by_hour": json.dumps(st["by_hour"])} for st in states]
+        if rows:
+            with self.db.conn:
+                self.db["mask_occupancy"].upsert_all(rows, pk=("station", "channels", "fmin_hz", "fmax_hz"))
+
+    def occupancy(self, station: str | None = None) -> list[dict]:
+        """The stored occupancy states (newest first), ready for ``OnlineDetector.load_occupancy``."""
+        sql, args = "select * from mask_occupancy", []
+        if station is not None:
+            sql += " where station = ?"; args.append(station)
+        out = []
+        for r in self.db.query(sql + " order by updated_utc desc", args):
+            r = dict(r)
+            r["recent"], r["by_hour"] = json.loads(r["recent"]), json.loads(r["by_hour"])
+            out.append(r)
+        return out
 
     def record_health(self, row: dict):
         with self.db.conn:

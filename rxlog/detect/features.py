@@ -14,11 +14,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rxlog.detect.components import Component
+from rxlog.detect.components import Component, smoothing_box
 from rxlog.detect.drift import fit_drift, profile_arrivals
 from rxlog.detect.grid import Grid
 from rxlog.detect.impulses import Storm
-from rxlog.detect.settings import Settings
+from rxlog.detect.settings import PULSE_DARK, Settings
 
 # ------------------------------------------------------------------------------------
 # Bursts (the fine path, and SumThreshold lines)
@@ -74,8 +74,43 @@ def fine_features(g: Grid, s: Settings, c: Component, has_sk: bool, smooth_ch: i
         "n_dwells": int(len(np.unique(g.sb_id[core.ucols]))) if g.n_sub > 1 else 2,
         "subband_rows": len(core.urows) <= 10 and all(_fills_one_subband(g, int(a), int(b), smooth_ch)
                                                       for a, b in zip(core.rmin, core.rmax)),
+        "pulse_share": _pulse_share(g, s, c),
         **d,
     }
+
+
+def _pulse_share(g: Grid, s: Settings, c: Component) -> float | None:
+    """Share of the event's unsmoothed excess (dB, positive part) in cells lit for one
+    time step only: at their channel the steps before and after are under PULSE_DARK of
+    it (cells outside the event and what the buffer still held around it count as dark).
+    Only cells 4 noise units above the background or a quarter of the event's bright end
+    count as lit (the noise per cell is the smoothed excess over its significance, times
+    the square root of the smoothing box's cells). None when nothing is lit."""
+    rows, cols, raw = c.rows, c.cols, c.values["raw"].astype(np.float64)
+    ar, ac, av = c.around if c.around is not None else (rows[:0], cols[:0], {"raw": raw[:0]})
+    kr = np.concatenate([rows, ar]).astype(np.int64)
+    kv = np.concatenate([raw, av["raw"].astype(np.float64)])
+    key = kr * g.n_chan + np.concatenate([cols, ac])
+    order = np.argsort(key)
+    skey, sval = key[order], kv[order]
+
+    def at(k):
+        i = np.clip(np.searchsorted(skey, k), 0, max(len(skey) - 1, 0))
+        return np.where(skey[i] == k, sval[i], 0.0)
+
+    ex, sig = c.values["ex"], c.values["sig"]
+    ok = sig > 0
+    T, F = smoothing_box(g, s)
+    noise = float(np.median(ex[ok] / sig[ok])) * math.sqrt(T * F) if ok.any() else 0.0
+    pos = np.clip(raw, 0.0, None)
+    if not len(pos) or pos.max() <= 0:
+        return None
+    lit = pos >= max(0.25 * float(np.percentile(pos, 99)), 4.0 * noise)
+    if not lit.any():
+        return None
+    k = rows.astype(np.int64) * g.n_chan + cols
+    dark = (at(k - g.n_chan) <= PULSE_DARK * raw) & (at(k + g.n_chan) <= PULSE_DARK * raw)
+    return float(pos[lit & dark].sum() / pos[lit].sum())
 
 
 def _core(g: Grid, rows: np.ndarray, cols: np.ndarray, ex: np.ndarray) -> _Core:

@@ -35,7 +35,8 @@ from rxlog.detect.features import fine_features, impulse_features, slow_features
 from rxlog.detect.grid import segment_grid
 from rxlog.detect.impulses import Impulses
 from rxlog.detect.mask import SegmentMask, always_masked, kurtosis_flags
-from rxlog.detect.settings import LINE_MIN_MHZ, Settings
+from rxlog.detect.settings import LINE_MIN_MHZ, STEP_NEAR_S, Settings
+from rxlog.detect.steps import BandSteps
 from rxlog.spectrum import (
     FLAG_GAP,
     FLAG_RETUNE,
@@ -81,6 +82,7 @@ class Segment:
         self.background = Background(g, s)
         self.mask = SegmentMask(g, s, occupancy)
         self.impulses = Impulses(g, s)
+        self.steps = BandSteps(g)
         self.fine = FinePath(g, s)
         self.lines = LinePath(g, s)
         self.slow = SlowPath(g, s)
@@ -213,6 +215,7 @@ class Segment:
         n = b.power.shape[0]
         x = self._excess(j, n)
         w = x.w
+        self.steps.add(b.power, x.data & ~x.masked)
         st = self.mask.narrowband(x.z, w)
         w &= ~st
         self.lines.add(st, x.excess, x.z)
@@ -249,7 +252,7 @@ class Segment:
         g, s = self.grid, self.s
         if kind == "fine":
             f = fine_features(g, s, c, self.has_sk, self.fine.F)
-            return None if self.impulses.absorb(f) else f
+            return None if self.impulses.absorb(f) else self._with_steps(f, max(STEP_NEAR_S, 3 * g.cadence))
         if kind == "impulse":
             return impulse_features(g, c)
         if kind == "line":
@@ -258,7 +261,17 @@ class Segment:
                 return None
             f["path"] = "line"
             return f
-        return slow_features(g, s, c, 1 if kind == "slow+" else -1)
+        f = slow_features(g, s, c, 1 if kind == "slow+" else -1)
+        # a long event's edges are known to a block (or two: the slow threshold is
+        # crossed in the block after a step that falls late in one)
+        return None if f is None else self._with_steps(f, 2 * g.block_s + STEP_NEAR_S)
+
+    def _with_steps(self, f: dict, tol_s: float) -> dict:
+        """The event with the band-level steps at its edges: ``step_on`` (dB) of the
+        event's own sign near its start, ``step_off`` of the other sign near its end."""
+        f["step_on"] = self.steps.near(f["start"], tol_s, f["sign"])
+        f["step_off"] = self.steps.near(f["end"], tol_s, -f["sign"])
+        return f
 
     def band_mhz(self) -> float:
         """Width of the band covered so far (channels that ever carried data)."""

@@ -1,0 +1,104 @@
+"""Switched broadband noise: steps of the band's median level from one time step to the next.
+
+An appliance, a switching power supply, a plasma or LED driver switched on raises the
+whole band by a fraction of a dB to several dB *within one time step*, and it drops as
+suddenly when switched off, minutes or hours later, at any hour (../shared/domain.md,
+common practice). Natural continua do not: a Type IV rises over minutes, a fadeout sets
+in over minutes (it follows the flare's X-ray rise), a Type III passes each frequency in
+seconds. So the level that tells them apart is the median over the band of each row's
+power (dB): robust to anything narrower than half the band, and with a noise of about
+1.25 sigma_cell / sqrt(channels), a few thousandths of a dB.
+
+``BandSteps`` keeps that median per row (bounded: three hold windows) and finds the
+steps in it: the median of the next ``hold`` rows differs from the median of the
+``hold`` rows before by STEP_MIN_DB and STEP_SIGMA row-noise units or more, and the
+change happens within two rows (a sweeping receiver samples its sub-bands at different
+moments of a row, so a switch can light part of one row). Each step is kept (time,
+jump in dB) for a day at most, so features can ask for the steps near an event's edges.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
+
+from rxlog.constants import MAD_TO_SIGMA
+from rxlog.detect.grid import Grid
+from rxlog.detect.settings import STEP_ABRUPT, STEP_HOLD_S, STEP_MIN_DB, STEP_SIGMA
+
+KEEP_S = 86400.0        # steps older than this are forgotten (a long event lasts hours)
+
+
+class BandSteps:
+    """Steps of the per-row band median of one segment, found as the rows arrive."""
+
+    def __init__(self, g: Grid):
+        self.t0, self.cad = g.t0, g.cadence
+        # rows either side of a step; at most 256 however fine the cadence
+        self.hold = int(min(max(3, round(STEP_HOLD_S / g.cadence)), 256))
+        self.m = np.zeros(0, dtype=np.float64)     # band median (dB) of rows row0 ..
+        self.row0 = 0
+        self.next_r = 0                             # the next row a step may sit at
+        self.steps: list[tuple[float, float]] = []  # (time of the first row after the step, jump dB)
+
+    def add(self, power: np.ndarray, use: np.ndarray):
+        """The next rows: ``power`` (dB) and the cells ``use`` to take the median over
+        (data, not masked)."""
+        with np.errstate(all="ignore"):
+            x = np.where(use, power, np.nan)
+            ok = use.sum(axis=1) >= max(8, 0.25 * use.shape[1])
+            med = np.full(power.shape[0], np.nan)
+            if ok.any():
+                med[ok] = np.nanmedian(x[ok], axis=1)
+        self.m = np.concatenate([self.m, med])
+        self._scan()
+
+    def _scan(self):
+        """Steps at the rows whose hold windows either side have arrived."""
+        h, m = self.hold, self.m
+        end = self.row0 + len(m) - h                 # last row whose post window is complete + 1
+        lo = max(self.next_r, self.row0 + h + 1)
+        if end > lo:
+            with np.errstate(all="ignore"):
+                win = np.nanmedian(sliding_window_view(m, h), axis=1)          # win[i]: median of rows row0+i .. +h-1
+                d = np.diff(m)
+                d = d[np.isfinite(d)]
+            if len(d) >= 8:
+                sigma = MAD_TO_SIGMA * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
+                r = np.arange(lo, end)
+                i = r - self.row0
+                pre, post = win[i - 1 - h], win[i]                   # rows r-1-h .. r-2, and r .. r+h-1
+                jump = post - pre
+                # the change happens between rows r-2 and r (two rows: the one the switch
+                # fell in may be lit in part)
+                fast = m[i] - m[i - 2]
+                big = np.abs(jump) >= np.maximum(STEP_MIN_DB, STEP_SIGMA * sigma)
+                abrupt = np.sign(fast) == np.sign(jump)
+                abrupt &= np.abs(fast) >= STEP_ABRUPT * np.abs(jump)
+                hit = np.flatnonzero(big & abrupt & np.isfinite(jump))
+                self._keep(r[hit], jump[hit])
+            self.next_r = end
+        keep_from = max(0, len(m) - 3 * h - 2)
+        self.m = m[keep_from:]
+        self.row0 += keep_from
+
+    def _keep(self, rows: np.ndarray, jumps: np.ndarray):
+        """One step per run of neighbouring candidate rows: the largest jump among them."""
+        for r, j in zip(rows, jumps):
+            t = self.t0 + float(r) * self.cad
+            if self.steps and t - self.steps[-1][0] <= 2 * self.cad and np.sign(j) == np.sign(self.steps[-1][1]):
+                if abs(j) > abs(self.steps[-1][1]):
+                    self.steps[-1] = (t, float(j))
+                continue
+            self.steps.append((t, float(j)))
+        if self.steps:
+            newest = self.steps[-1][0]
+            self.steps = [s for s in self.steps if s[0] >= newest - KEEP_S]
+
+    def near(self, t: float, tol_s: float, sign: int) -> float:
+        """The largest jump (dB, > 0) of a step of this sign within ``tol_s`` of ``t``; 0 if none."""
+        best = 0.0
+        for ts, j in self.steps:
+            if abs(ts - t) <= tol_s and sign * j > best:
+                best = sign * j
+        return best
