@@ -119,7 +119,7 @@ def _impulse(f: dict) -> Verdict:
     bw, n = f["bandwidth_mhz"], f["n_impulses"]
     if n == 1:
         return _rfi("impulse", 0.9, f"{bw:.1f} MHz lit for one time step, nothing before or after")
-    return _rfi("impulse_train", 0.9, f"{n} impulses over {f['span_s'] / 60:.1f} min "
+    return _rfi("impulse_train", 0.9, f"impulse storm of {n} impulses over {f['span_s'] / 60:.1f} min "
                                       f"(sferics, power line, fence or appliance)")
 
 
@@ -218,19 +218,30 @@ def _man_made(f: dict, s: Settings, c: _Sky) -> Verdict | None:
 
 def _switched(f: dict) -> Verdict | None:
     """Switched broadband noise: the band's level stepped within one time step at the
-    event's start (rxlog.detect.steps), by enough to make most of the event; a long event
-    must also end with the step back. A Type IV rises over minutes and a fadeout sets in
-    over minutes: neither steps."""
+    event's edge (rxlog.detect.steps) by a good part of the event's excess (STEP_SHARE).
+
+    A burst starts with a step up (a switch-on), or ends with a step down (a switch-off:
+    the fast background, centred on each block, already holds the lower level after it,
+    so the steps before it stand out). A long event from the slow path starts with the
+    step and, when it is a rise, ends with the step back (a Type IV that merely began
+    beside an appliance's switch-on keeps its class). A Type IV rises over minutes and a
+    fadeout sets in over minutes: neither steps."""
     on, off, depth = f.get("step_on", 0.0), f.get("step_off", 0.0), abs(f["peak_excess_db"])
-    if f["bandwidth_mhz"] < 0.5 * max(f["band_mhz"], 1e-6) or on < STEP_SHARE * depth:
+    if f["bandwidth_mhz"] < 0.5 * max(f["band_mhz"], 1e-6):
         return None
-    if f["path"] == "slow" and off < STEP_SHARE * depth:
+    need = STEP_SHARE * depth
+    if f["path"] == "slow":
+        ok = on >= need and (f["sign"] < 0 or off >= need)
+    else:
+        ok = on >= need or off >= need
+    if not ok:
         return None
-    way = "rose" if f["sign"] > 0 else "fell"
-    back = f" and went back by {off:.2f} dB at its end" if off > 0 else ""
-    return _rfi("switched_broadband", 0.8, f"the band's level {way} by {on:.2f} dB within one time step at its "
-                                           f"start{back}: switched broadband noise (an appliance, a power supply); "
-                                           "natural continua rise over minutes")
+    way = ("rose", "fell") if f["sign"] > 0 else ("fell", "rose")
+    edges = [f"{way[0]} by {on:.2f} dB at its start" if on > 0 else "",
+             f"{way[1]} by {off:.2f} dB at its end" if off > 0 else ""]
+    return _rfi("switched_broadband", 0.8, f"the band's level {' and '.join(e for e in edges if e)}, each within "
+                                           "a time step: switched broadband noise (an appliance, a power "
+                                           "supply); natural continua rise over minutes")
 
 
 def _pulses(f: dict) -> Verdict | None:

@@ -14,7 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from rxlog.detect.components import Component, smoothing_box
+from rxlog.constants import MAD_TO_SIGMA
+from rxlog.detect.components import Component
 from rxlog.detect.drift import fit_drift, profile_arrivals
 from rxlog.detect.grid import Grid
 from rxlog.detect.impulses import Storm
@@ -82,10 +83,11 @@ def fine_features(g: Grid, s: Settings, c: Component, has_sk: bool, smooth_ch: i
 def _pulse_share(g: Grid, s: Settings, c: Component) -> float | None:
     """Share of the event's unsmoothed excess (dB, positive part) in cells lit for one
     time step only: at their channel the steps before and after are under PULSE_DARK of
-    it (cells outside the event and what the buffer still held around it count as dark).
-    Only cells 4 noise units above the background or a quarter of the event's bright end
-    count as lit (the noise per cell is the smoothed excess over its significance, times
-    the square root of the smoothing box's cells). None when nothing is lit."""
+    it (cells outside the event and what the buffer still held around it count as dark,
+    and so do cells masked as impulses: a pulse of the same bunch). Only cells 4 noise
+    units above the background and a quarter of the event's bright end count as lit (the
+    noise per cell from the observed cells just around the event). None when nothing is
+    lit."""
     rows, cols, raw = c.rows, c.cols, c.values["raw"].astype(np.float64)
     ar, ac, av = c.around if c.around is not None else (rows[:0], cols[:0], {"raw": raw[:0]})
     kr = np.concatenate([rows, ar]).astype(np.int64)
@@ -98,10 +100,9 @@ def _pulse_share(g: Grid, s: Settings, c: Component) -> float | None:
         i = np.clip(np.searchsorted(skey, k), 0, max(len(skey) - 1, 0))
         return np.where(skey[i] == k, sval[i], 0.0)
 
-    ex, sig = c.values["ex"], c.values["sig"]
-    ok = sig > 0
-    T, F = smoothing_box(g, s)
-    noise = float(np.median(ex[ok] / sig[ok])) * math.sqrt(T * F) if ok.any() else 0.0
+    # the noise per cell from the cells around the event that were observed
+    seen = av["unseen"] == 0 if c.around is not None else np.zeros(0, dtype=bool)
+    noise = MAD_TO_SIGMA * float(np.median(np.abs(av["raw"][seen]))) if seen.sum() >= 16 else 0.0
     pos = np.clip(raw, 0.0, None)
     if not len(pos) or pos.max() <= 0:
         return None
@@ -302,3 +303,4 @@ def slow_features(g: Grid, s: Settings, c: Component, sign: int) -> dict | None:
         "full_rows": 1.0, "n_rows": span_blocks, "sk_fraction": None,
         "bursty": rough > 0.3, "texture": float(np.median(c.values["tx"])), **d,
     }
+

@@ -268,9 +268,12 @@ class Segment:
 
     def _with_steps(self, f: dict, tol_s: float) -> dict:
         """The event with the band-level steps at its edges: ``step_on`` (dB) of the
-        event's own sign near its start, ``step_off`` of the other sign near its end."""
-        f["step_on"] = self.steps.near(f["start"], tol_s, f["sign"])
-        f["step_off"] = self.steps.near(f["end"], tol_s, -f["sign"])
+        event's own sign near its start, ``step_off`` of the other sign near its end
+        (within ``tol_s``, or a quarter of the event inside it: an impulse just before a
+        switch-on can start the event a few seconds early)."""
+        a, b, inner = f["start"], f["end"], tol_s + 0.25 * (f["end"] - f["start"])
+        f["step_on"] = self.steps.between(a - tol_s, a + inner, f["sign"])
+        f["step_off"] = self.steps.between(b - inner, b + tol_s, -f["sign"])
         return f
 
     def band_mhz(self) -> float:

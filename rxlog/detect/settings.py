@@ -148,12 +148,12 @@ STEP_HOLD_S = 20.0
 STEP_MIN_DB = 0.1
 STEP_SIGMA = 10.0
 STEP_ABRUPT = 0.7
-# An event that starts within STEP_NEAR_S of a step up (and a long one that ends within
-# it of a step down) and whose excess the step explains (STEP_SHARE of its peak) is
-# switched broadband noise (rxlog's own simulation, a first setting; the slow path's
+# An event with a step up within STEP_NEAR_S of its start or a step down as near its end
+# (a long one: both), the step STEP_SHARE of its peak excess or more (a comb of switching
+# harmonics peaks well above the band's median), is switched broadband noise (rxlog's own simulation, a first setting; the slow path's
 # blocks are 30 s long, so its edges are known to a block).
 STEP_NEAR_S = 3.0
-STEP_SHARE = 0.3
+STEP_SHARE = 0.2
 # Sferics and fence pulses last one time step at each frequency (a millisecond pulse;
 # domain.md): an event whose excess sits for PULSE_SHARE or more in cells lit for one step
 # only at their channel (the steps either side under PULSE_DARK of it), before any

@@ -95,10 +95,10 @@ class BandSteps:
             newest = self.steps[-1][0]
             self.steps = [s for s in self.steps if s[0] >= newest - KEEP_S]
 
-    def near(self, t: float, tol_s: float, sign: int) -> float:
-        """The largest jump (dB, > 0) of a step of this sign within ``tol_s`` of ``t``; 0 if none."""
+    def between(self, t0: float, t1: float, sign: int) -> float:
+        """The largest jump (dB, > 0) of a step of this sign from ``t0`` to ``t1``; 0 if none."""
         best = 0.0
         for ts, j in self.steps:
-            if abs(ts - t) <= tol_s and sign * j > best:
+            if t0 <= ts <= t1 and sign * j > best:
                 best = sign * j
         return best
