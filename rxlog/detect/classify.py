@@ -15,6 +15,8 @@ from dataclasses import dataclass
 from rxlog.detect.drift import ah_drift
 from rxlog.detect.settings import (
     CARRIER_MIN_S,
+    DWELL_MAX_S,
+    DWELL_SHARE,
     NARROWBAND_MHZ,
     PULSE_SHARE,
     STEP_SHARE,
@@ -245,19 +247,24 @@ def _switched(f: dict) -> Verdict | None:
 
 
 def _pulses(f: dict) -> Verdict | None:
-    """A bunch of impulses the smoothing welded into one shape: most of the event's
-    unsmoothed excess sits in cells lit for one time step only (see PULSE_SHARE), and
-    no Type III drift explains it."""
-    share = f.get("pulse_share")
-    if share is None or share < PULSE_SHARE:
+    """A bunch of impulses the smoothing welded into one shape, told per pulse from the
+    unsmoothed excess: most of it sits in pieces lit for one time step only (see
+    PULSE_SHARE), or, under a sweep, a short event's rows are lit in whole dwells and
+    nothing else (see DWELL_SHARE); and no Type III drift explains it."""
+    share, dwell = f.get("pulse_share"), f.get("dwell_rows")
+    by_step = share is not None and share >= PULSE_SHARE
+    by_dwell = dwell is not None and dwell >= DWELL_SHARE and f["span_s"] <= DWELL_MAX_S
+    if not (by_step or by_dwell):
         return None
     if f["resolved"] and f["drift"] is not None and f["drift"] < 0:
         ratio = f["drift"] / float(ah_drift(f["fc_mhz"]))
         if 1 / TYPE3_FACTOR <= ratio <= TYPE3_FACTOR:
             return None
+    why = (f"{100 * share:.0f}% of its excess in pieces lit for one time step only" if by_step else
+           f"{100 * dwell:.0f}% of its steps lit in whole sweep dwells and nothing else")
     return _rfi("impulse_train" if f["n_rows"] > 2 else "impulse", 0.7,
-                f"{100 * share:.0f}% of its excess in cells lit for one time step only ({f['bandwidth_mhz']:.1f} MHz, "
-                f"{f['span_s']:.0f} s): pulses (sferics, a fence), not a burst lasting seconds")
+                f"{why} ({f['bandwidth_mhz']:.1f} MHz, {f['span_s']:.0f} s): pulses (sferics, a fence), "
+                "not a burst lasting seconds")
 
 
 def _caught_by_sweep(f: dict, c: _Sky) -> Verdict | None:
