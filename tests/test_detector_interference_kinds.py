@@ -35,11 +35,12 @@ def _no_burst_and_kind(events, kinds):
     assert {e["rfi_kind"] for e in events} & set(kinds), [(e["rfi_kind"], e["reason"]) for e in events]
 
 
-def sferic(sky, t, peak_db, sweep=True):
-    """One lightning stroke at ``t`` (s): under a millisecond, so it lights the cells whose
-    dwell holds it (every channel of the row without a sweep); power falling with
-    frequency as f^-2 (common practice: sferic spectra fall off above a few MHz)."""
-    held = (sky.t <= t) & (t < sky.t + (DWELL if sweep else sky.cadence))
+def sferic(sky, t, peak_db, sweep=True, dur=0.0):
+    """A lightning flash from ``t`` (s) lasting ``dur`` (0: a single stroke under a
+    millisecond): it lights the cells whose dwell overlaps it (every channel of the row
+    without a sweep); power falling with frequency as f^-2 (common practice: sferic
+    spectra fall off above a few MHz)."""
+    held = (sky.t <= t + dur) & (t < sky.t + (DWELL if sweep else sky.cadence))
     sky.extra += held * sky.lin(peak_db) * (16.0 / sky.f[None, :]) ** 2
 
 
@@ -61,6 +62,18 @@ def test_sferic_bunches_caught_by_a_sweep_stay_impulses_not_jovian_bursts(seed):
             sferic(sky, t + dt, rng.uniform(1.0, 12.0))
         t += rng.uniform(20, 60)
     _no_burst_and_kind(_events(sky, jupiter_up, seed=seed), {"impulse", "impulse_train"})
+
+
+def test_flashes_a_sweep_cycle_apart_stay_impulses_though_they_light_one_dwell_step_after_step():
+    # Flashes of a quarter second (longer than a dwell), about one sweep cycle apart and
+    # fading: each lights the same one or two dwells in consecutive steps, so at those
+    # channels the bunch looks like a burst lasting three seconds. Row by row each is lit
+    # in whole dwells and nothing else, which no natural burst is.
+    sky = Sky(900, offsets=OFFSETS)
+    for t0 in (200.3, 420.5, 610.1):
+        for k, db in enumerate((6.0, 2.0, 0.7)):
+            sferic(sky, t0 + 1.07 * k, db, dur=0.25)
+    _no_burst_and_kind(_events(sky, jupiter_up), {"impulse", "impulse_train"})
 
 
 def test_a_single_sideband_burst_is_a_narrowband_burst_not_an_l_burst():
