@@ -63,9 +63,13 @@ def classify(f: dict, s: Settings) -> Verdict:
     steps at fixed frequency, Sun up, from either path; Type IV -- long (10 min or
     more) broadband (half the band or more) positive continuum, Sun up; fadeout --
     band-wide drop with the Sun up; Jovian L -- Jupiter up, the rest of the morphology
-    natural (in an Io source region raises the confidence); rfi -- impulsive (every
-    channel at once for a time step or two), swept narrowband lines (ionosonde chirps,
-    any upward drift), narrowband signals, or persistent non-Gaussian spectral kurtosis.
+    natural (in an Io source region raises the confidence); rfi, with its kind
+    (RFI_KINDS, see ``rfi_kind``) -- impulsive (every channel at once for a time step or
+    two, or, judged before smoothing, pieces lit for one step only or rows lit in whole
+    sweep dwells), switched broadband noise (a step of the band's level at an edge,
+    rxlog.detect.steps; tried first on long events too), swept narrowband lines
+    (ionosonde chirps, any upward drift), narrowband signals, or persistent non-Gaussian
+    spectral kurtosis.
     """
     sky = _sky(f, s)
     if f["path"] == "line":
