@@ -43,7 +43,9 @@ class BandSteps:
 
     def add(self, power: np.ndarray, use: np.ndarray):
         """The next rows: ``power`` (dB) and the cells ``use`` to take the median over
-        (data, not masked)."""
+        (data, not masked). Every fourth channel is plenty: the median of 256 channels
+        still has a noise of ~0.01 dB per row, a tenth of the smallest step."""
+        power, use = power[:, ::4], use[:, ::4]
         with np.errstate(all="ignore"):
             x = np.where(use, power, np.nan)
             ok = use.sum(axis=1) >= max(8, 0.25 * use.shape[1])
