@@ -101,15 +101,16 @@ def _rfi(kind: str, conf: float, text: str) -> Verdict:
 
 def rfi_kind(f: dict, verdict: Verdict) -> str | None:
     """The kind of an ``rfi`` verdict (one of RFI_KINDS; None for other classes): the first
-    word of its reason, or for a reason that names none, the event's path (a long event:
-    broadband noise; a line: a sweep; an impulse storm: impulses)."""
+    word of its reason, or for a reason that names none, the event's path (a line: a
+    sweep; an impulse storm: impulses; a long event, the steady rise of arcing or a
+    switching supply: broadband noise)."""
     cls, _, reason = verdict
     if cls != "rfi":
         return None
     head = reason.split(":", 1)[0]
     if head in RFI_KINDS:
         return head
-    return {"slow": "broadband_noise", "line": "sweep", "impulse": "impulse_train"}.get(f.get("path"), "non_gaussian")
+    return {"line": "sweep", "impulse": "impulse_train"}.get(f.get("path"), "broadband_noise")
 
 
 def _line(f: dict) -> Verdict:
