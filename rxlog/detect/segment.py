@@ -11,8 +11,9 @@ at a time, in chunks, or all at once gives the same events
   persistent kurtosis);
 * once blocks up to j + W exist: its fast background;
 * once the fast background of j + 1 exists, the *mask stage*: the excess map in noise
-  units, SumThreshold lines (rxlog.detect.components), impulses and pulse trains
-  (rxlog.detect.impulses), the flags handed to ``mask_sink`` and the hourly counts;
+  units, the band's level per row and its steps (rxlog.detect.steps), SumThreshold lines
+  (rxlog.detect.components), impulses and pulse trains (rxlog.detect.impulses), the
+  flags handed to ``mask_sink`` and the hourly counts;
 * once the mask stage of j + 1 has run: smoothing, hysteresis and components (the fine
   path);
 * once half a slow window of blocks after it exists: the slow baseline and the slow
@@ -252,7 +253,9 @@ class Segment:
         g, s = self.grid, self.s
         if kind == "fine":
             f = fine_features(g, s, c, self.has_sk, self.fine.F)
-            return None if self.impulses.absorb(f) else self._with_steps(f, max(STEP_NEAR_S, 3 * g.cadence))
+            # an impulse just before a switch-on can start a burst a few seconds early
+            tol = max(STEP_NEAR_S, 3 * g.cadence)
+            return None if self.impulses.absorb(f) else self._with_steps(f, tol, min(0.25 * f["span_s"], 10.0))
         if kind == "impulse":
             return impulse_features(g, c)
         if kind == "line":
@@ -264,14 +267,13 @@ class Segment:
         f = slow_features(g, s, c, 1 if kind == "slow+" else -1)
         # a long event's edges are known to a block (or two: the slow threshold is
         # crossed in the block after a step that falls late in one)
-        return None if f is None else self._with_steps(f, 2 * g.block_s + STEP_NEAR_S)
+        return None if f is None else self._with_steps(f, 2 * g.block_s + STEP_NEAR_S, 0.0)
 
-    def _with_steps(self, f: dict, tol_s: float) -> dict:
+    def _with_steps(self, f: dict, tol_s: float, inside_s: float) -> dict:
         """The event with the band-level steps at its edges: ``step_on`` (dB) of the
         event's own sign near its start, ``step_off`` of the other sign near its end
-        (within ``tol_s``, or a quarter of the event inside it: an impulse just before a
-        switch-on can start the event a few seconds early)."""
-        a, b, inner = f["start"], f["end"], tol_s + 0.25 * (f["end"] - f["start"])
+        (within ``tol_s`` of the edge, and ``inside_s`` more inside the event)."""
+        a, b, inner = f["start"], f["end"], tol_s + inside_s
         f["step_on"] = self.steps.between(a - tol_s, a + inner, f["sign"])
         f["step_off"] = self.steps.between(b - inner, b + tol_s, -f["sign"])
         return f
