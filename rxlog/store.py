@@ -1,12 +1,14 @@
 """The event store: one SQLite file (WAL mode) through sqlite-utils.
 
 Tables: stations, segments, events, episodes, labels, episode_labels, quality (hourly
-masked fraction and gaps), health, and schema_version. Detections and human labels are
-kept apart: a label belongs to the event it was given to (by event id) for as long as
-that event exists. Only when re-running detection replaced the event (a change of
-thresholds, and thus of event ids) does the label move, to the new event whose
-time-frequency box matches the label's own box best (intersection over union), and only
-to an event that carries no label of its own. A label that finds no such event stays in the store as an
+masked fraction and gaps, and the masked fraction per coarse channel group),
+mask_occupancy (what the RFI mask learned, per channel grid: carried across restarts of
+the logger), health, and schema_version. Detections and human labels are kept apart: a
+label belongs to the event it was given to (by event id) for as long as that event
+exists. Only when re-running detection replaced the event (a change of thresholds, and
+thus of event ids) does the label move, to the new event whose time-frequency box
+matches the label's own box best (intersection over union), and only to an event that
+carries no label of its own. A label that finds no such event stays in the store as an
 orphan, listed by ``orphan_labels`` and tried again at the next re-detection: labels
 are never lost and never land on an event a reviewer did not mean.
 
@@ -19,6 +21,7 @@ except for a burst that carries a label of its own: the burst's own label wins.
 from __future__ import annotations
 
 import functools
+import json
 import math
 import sqlite3
 import time
@@ -29,30 +32,11 @@ import sqlite_utils
 from rxlog import boxes
 from rxlog.episode_context import episode_context
 from rxlog.errors import RxlogError
+from rxlog.store_schema import EVENT_COLUMNS, MIGRATIONS, SCHEMA_VERSION
 from rxlog.timeutil import iso, parse_iso
 
 CLASSES = ("jovian_l", "jovian_s", "solar_iii", "solar_ii", "solar_iv", "fadeout", "rfi", "unknown")
 LABELS = CLASSES + ("noise", "unsure")
-
-# Event columns and their SQLite types; the order is the one listings and exports use.
-EVENT_COLUMNS = {
-    "event_id": str, "station": str, "episode_id": str,
-    "start_utc": str, "end_utc": str, "peak_utc": str,
-    "fmin_mhz": float, "fmax_mhz": float,
-    "peak_excess_db": float, "snr": float, "integrated_excess": float,
-    "drift_mhz_s": float, "drift_err_mhz_s": float,
-    "duration_s": float, "bandwidth_mhz": float,
-    "class": str, "confidence": float, "reason": str,
-    "cml3_deg": float, "io_phase_deg": float,
-    "cml3_start_deg": float, "cml3_end_deg": float,
-    "io_phase_start_deg": float, "io_phase_end_deg": float,
-    "source_region": str, "jupiter_alt_deg": float, "sun_alt_deg": float,
-    "cutout_path": str,
-    "detected_utc": str,
-}
-
-# Episode columns added in version 5 (the detector hands them out; older stores lack them).
-EPISODE_EXTRA_COLUMNS = {"confidence": float, "reason": str, "sequence_id": str, "peak_excess_db": float}
 
 # A label whose event was replaced by re-detection moves to the new event whose box
 # matches the label's box best, if their intersection over union is at least this. A
@@ -67,83 +51,6 @@ def make_event_id(station: str, peak_unix: float, fmin_mhz: float, fmax_mhz: flo
     t = iso(peak_unix)  # 2026-12-01T22:10:00.123Z
     stamp = t[:4] + t[5:7] + t[8:10] + "T" + t[11:13] + t[14:16] + t[17:21]
     return f"{station}-{stamp}-{(fmin_mhz + fmax_mhz) / 2:.3f}"
-
-
-def _v1(db: sqlite_utils.Database):
-    db["stations"].create({"name": str, "latitude_deg": float, "longitude_deg": float,
-                           "elevation_m": float, "antenna": str, "operator_contact": str,
-                           "updated_utc": str}, pk="name", if_not_exists=True)
-    db["segments"].create({"segment_id": str, "station": str, "start_utc": str, "end_utc": str,
-                           "center_hz": float, "rate_hz": float, "gain_db": float,
-                           "channels": int, "fmin_mhz": float, "fmax_mhz": float,
-                           "cadence_s": float, "settings": str},
-                          pk="segment_id", if_not_exists=True)
-    cols = {k: v for k, v in EVENT_COLUMNS.items() if k not in ("cml3_start_deg", "cml3_end_deg",
-                                                                  "io_phase_start_deg", "io_phase_end_deg")}
-    db["events"].create(cols, pk="event_id", if_not_exists=True)
-    db["events"].create_index(["station", "peak_utc"], if_not_exists=True)
-    db["episodes"].create({"episode_id": str, "station": str, "start_utc": str, "end_utc": str,
-                           "class": str, "n_events": int, "fmin_mhz": float, "fmax_mhz": float},
-                          pk="episode_id", if_not_exists=True)
-    db["labels"].create({"label_id": int, "station": str, "event_id": str, "label": str, "note": str,
-                         "who": str, "created_utc": str, "start_utc": str, "end_utc": str,
-                         "fmin_mhz": float, "fmax_mhz": float}, pk="label_id", if_not_exists=True)
-    db["labels"].create_index(["station", "start_utc"], if_not_exists=True)
-    db["quality"].create({"station": str, "hour_utc": str, "masked_fraction": float,
-                          "gap_s": float, "covered_s": float}, pk=("station", "hour_utc"),
-                         if_not_exists=True)
-    db["health"].create({"station": str, "time_utc": str, "samples_received": int,
-                         "samples_dropped": int, "queue_depth": int, "cpu_percent": float,
-                         "disk_free_mb": float, "clock_sync": str, "receiver_state": str,
-                         "note": str}, pk=("station", "time_utc"), if_not_exists=True)
-
-
-def _v2(db: sqlite_utils.Database):
-    """Version 2 keeps CML and Io phase at event start and end beside the peak values."""
-    existing = db["events"].columns_dict
-    for col in ("cml3_start_deg", "cml3_end_deg", "io_phase_start_deg", "io_phase_end_deg"):
-        if col not in existing:
-            db["events"].add_column(col, float)
-
-
-def _v3(db: sqlite_utils.Database):
-    """Version 3 binds labels to events by id: ``given_event_id`` keeps the event a reviewer
-    labelled, ``event_id`` is the event that owns the label now, ``peak_utc`` breaks ties
-    between identical boxes and ``reattached_utc`` says when re-detection moved it. Labels
-    whose event is gone (earlier versions re-attached them by overlap at every read) are
-    bound once, here, by the same rule re-detection uses."""
-    existing = db["labels"].columns_dict
-    for col, kind in (("given_event_id", str), ("peak_utc", str), ("reattached_utc", str)):
-        if col not in existing:
-            db["labels"].add_column(col, kind)
-    db.execute("update labels set given_event_id = event_id where given_event_id is null")
-    db.execute("update labels set peak_utc = (select e.peak_utc from events e where e.event_id = labels.event_id) "
-               "where peak_utc is null")
-    db["labels"].create_index(["event_id"], if_not_exists=True)
-    reattach_orphans(db)
-
-
-def _v5(db: sqlite_utils.Database):
-    """Version 5 makes episodes the unit of review: their class confidence, one-line reason,
-    flare sequence and peak excess are kept beside the span and band, the bursts of an
-    episode are found by an index, and reviewers' episode labels get their own table
-    (bound to the episode, with its box for reattachment, as event labels are)."""
-    have = db["episodes"].columns_dict
-    for col, kind in EPISODE_EXTRA_COLUMNS.items():
-        if col not in have:
-            db["episodes"].add_column(col, kind)
-    db["events"].create_index(["episode_id"], if_not_exists=True)
-    db["episodes"].create_index(["station", "start_utc"], if_not_exists=True)
-    db["episode_labels"].create({"label_id": int, "station": str, "episode_id": str, "given_episode_id": str,
-                                 "label": str, "note": str, "who": str, "created_utc": str,
-                                 "start_utc": str, "end_utc": str, "fmin_mhz": float, "fmax_mhz": float,
-                                 "reattached_utc": str}, pk="label_id", if_not_exists=True)
-    db["episode_labels"].create_index(["episode_id"], if_not_exists=True)
-
-
-# Version -> function bringing the store to that version, applied in increasing order.
-MIGRATIONS = {1: _v1, 2: _v2, 3: _v3, 5: _v5}
-SCHEMA_VERSION = max(MIGRATIONS)
 
 
 class EventStore:
@@ -178,6 +85,8 @@ class EventStore:
         for v in sorted(v for v in MIGRATIONS if v > current):
             with self.db.conn:
                 MIGRATIONS[v](self.db)
+                if v == 3:          # labels bound to events: the orphans once, by the rule of re-detection
+                    reattach_orphans(self.db)
                 self.db["schema_version"].insert({"version": v, "applied_utc": iso(time.time())},
                                                  pk="version", replace=True)
         return self.version
@@ -352,8 +261,11 @@ class EventStore:
 
     # -- quality and health ---------------------------------------------------------------
     def record_quality(self, rows: list[dict]):
-        """Hourly data quality rows {station, hour_utc, masked_fraction, gap_s, covered_s} (upsert)."""
+        """Hourly data quality rows {station, hour_utc, masked_fraction, gap_s, covered_s,
+        and optionally group_fmin_mhz, group_mhz, masked_by_group (a list)} (upsert)."""
         if rows:
+            rows = [dict(r, masked_by_group=json.dumps(r["masked_by_group"]))
+                    if isinstance(r.get("masked_by_group"), list) else r for r in rows]
             with self.db.conn:
                 self.db["quality"].upsert_all(rows, pk=("station", "hour_utc"))
 
@@ -364,7 +276,34 @@ class EventStore:
         if t1 is not None:
             where.append("hour_utc < ?"); args.append(iso(t1))
         sql = "select * from quality" + (" where " + " and ".join(where) if where else "") + " order by hour_utc"
-        return [dict(r) for r in self.db.query(sql, args)]
+        rows = [dict(r) for r in self.db.query(sql, args)]
+        for r in rows:
+            if r.get("masked_by_group"):
+                r["masked_by_group"] = json.loads(r["masked_by_group"])
+        return rows
+
+    # -- what the RFI mask learned ------------------------------------------------------------
+    def save_occupancy(self, station: str, states: list[dict]):
+        """Keep the RFI mask's occupancy per channel grid (``OnlineDetector.occupancy_state``)."""
+        now = iso(time.time())
+        rows = [{"station": station, "channels": int(st["channels"]), "fmin_hz": float(st["fmin_hz"]),
+                 "fmax_hz": float(st["fmax_hz"]), "updated_utc": now, "recent": json.dumps(st["recent"]),
+                 "by_hour": json.dumps(st["by_hour"])} for st in states]
+        if rows:
+            with self.db.conn:
+                self.db["mask_occupancy"].upsert_all(rows, pk=("station", "channels", "fmin_hz", "fmax_hz"))
+
+    def occupancy(self, station: str | None = None) -> list[dict]:
+        """The stored occupancy states (newest first), ready for ``OnlineDetector.load_occupancy``."""
+        sql, args = "select * from mask_occupancy", []
+        if station is not None:
+            sql += " where station = ?"; args.append(station)
+        out = []
+        for r in self.db.query(sql + " order by updated_utc desc", args):
+            r = dict(r)
+            r["recent"], r["by_hour"] = json.loads(r["recent"]), json.loads(r["by_hour"])
+            out.append(r)
+        return out
 
     def record_health(self, row: dict):
         with self.db.conn:

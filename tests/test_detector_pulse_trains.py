@@ -64,7 +64,9 @@ def test_slow_lane_as_wide_as_a_sub_band_is_not_taken_for_pulses():
 
 def test_steady_broadband_rise_at_night_is_rfi_but_a_textured_storm_is_jovian():
     steady = Sky(4 * 3600, n_chan=128)
-    steady.patch(7200, 7500, 16.0, 24.0, 1.0, rise_s=2)           # five minutes of arcing
+    # five minutes of arcing that builds up over half a minute (one that steps on within a
+    # time step is switched broadband noise: tests/test_detector_interference_kinds.py)
+    steady.patch(7200, 7500, 16.0, 24.0, 1.0, rise_s=30)
     ev = [e for e in _run(steady, jupiter_up).events if e["duration_s"] >= 120]
     assert ev and all(e["class"] == "rfi" for e in ev)
     assert "texture" in ev[0]["reason"]

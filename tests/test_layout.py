@@ -21,7 +21,7 @@ ROOT = Path(rxlog.__file__).parent
 STAGES = ["core", "sky", "receive", "archive", "sim", "store", "detect", "review", "exchange", "season",
           "station", "demo", "cli"]
 SUBPACKAGES = {"sky", "receive", "archive", "sim", "detect", "review", "exchange", "season", "station", "cli"}
-TOP_LEVEL = {"store": "store", "demo": "demo", "api": "cli", "__main__": "cli"}
+TOP_LEVEL = {"store": "store", "store_schema": "store", "demo": "demo", "api": "cli", "__main__": "cli"}
 MAX_LINES = 600
 
 

@@ -6,7 +6,8 @@ import pytest
 import sqlite_utils
 
 from rxlog.errors import RxlogError
-from rxlog.store import SCHEMA_VERSION, EventStore, _v1, _v2, make_event_id
+from rxlog.store import SCHEMA_VERSION, EventStore, make_event_id
+from rxlog.store_schema import _v1, _v2
 from rxlog.timeutil import iso
 
 T0 = 1_800_000_000.0  # 2027-01-15T08:00:00Z

@@ -3,7 +3,8 @@ labels that cascade to unlabelled bursts and survive re-detection."""
 
 import sqlite_utils
 
-from rxlog.store import SCHEMA_VERSION, EventStore, _v1, _v2, _v3, make_event_id
+from rxlog.store import SCHEMA_VERSION, EventStore, make_event_id
+from rxlog.store_schema import _v1, _v2, _v3
 from rxlog.timeutil import iso
 
 T0 = 1_800_000_000.0  # 2027-01-15T08:00:00Z

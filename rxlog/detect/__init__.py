@@ -8,6 +8,7 @@ those above it:
     background  block levels and noise, the fast background, the slow baseline
     mask        static ranges, carriers, SumThreshold, spectral kurtosis, hourly quality
     impulses    impulses, impulse storms, pulse trains
+    steps       switched broadband noise: steps of the band's median level
     drift       arrival times from light curves, fit_drift, the Alvarez & Haddock law
     components  the tracker (threshold, label, merge) and the fine, line and slow paths
     features    what is measured on each event

@@ -14,8 +14,14 @@ from dataclasses import dataclass
 
 from rxlog.detect.drift import ah_drift
 from rxlog.detect.settings import (
+    CARRIER_MIN_S,
+    DWELL_MAX_S,
+    DWELL_SHARE,
+    NARROWBAND_MHZ,
+    PULSE_SHARE,
     SBURST_DRIFT,
     SBURST_MAX_CADENCE_S,
+    STEP_SHARE,
     STORM_TEXTURE,
     TYPE2_DRIFT,
     TYPE3_FACTOR,
@@ -23,6 +29,14 @@ from rxlog.detect.settings import (
 )
 
 Verdict = tuple[str, float, str]
+
+# The kinds of interference an ``rfi`` event names (its ``rfi_kind`` and the first word of
+# its reason): impulses (sferics, fence and arcing pulses) alone or in trains;
+# narrowband bursts (single-sideband voice, data); switched broadband noise (appliances,
+# power supplies); swept sounders; carriers; broadband noise that rises without a step;
+# and signals flagged only by their spectral kurtosis.
+RFI_KINDS = ("impulse", "impulse_train", "narrowband_burst", "switched_broadband", "sweep", "carrier",
+             "broadband_noise", "non_gaussian")
 
 
 @dataclass(frozen=True)
@@ -49,9 +63,13 @@ def classify(f: dict, s: Settings) -> Verdict:
     steps at fixed frequency, Sun up, from either path; Type IV -- long (10 min or
     more) broadband (half the band or more) positive continuum, Sun up; fadeout --
     band-wide drop with the Sun up; Jovian L -- Jupiter up, the rest of the morphology
-    natural (in an Io source region raises the confidence); rfi -- impulsive (every
-    channel at once for a time step or two), swept narrowband lines (ionosonde chirps,
-    any upward drift), narrowband signals, or persistent non-Gaussian spectral kurtosis.
+    natural (in an Io source region raises the confidence); rfi, with its kind
+    (RFI_KINDS, see ``rfi_kind``) -- impulsive (every channel at once for a time step or
+    two, or, judged before smoothing, pieces lit for one step only or rows lit in whole
+    sweep dwells), switched broadband noise (a step of the band's level at an edge,
+    rxlog.detect.steps; tried first on long events too), swept narrowband lines
+    (ionosonde chirps, any upward drift), narrowband signals, or persistent non-Gaussian
+    spectral kurtosis.
     """
     sky = _sky(f, s)
     if f["path"] == "line":
@@ -59,7 +77,7 @@ def classify(f: dict, s: Settings) -> Verdict:
     if f["path"] == "impulse":
         return _impulse(f)
     if f["path"] == "slow":
-        return _long_event(f, sky)
+        return _switched(f) or _long_event(f, sky)
     return _sburst(f, sky) or _man_made(f, s, sky) or _natural_burst(f, sky)
 
 
@@ -76,21 +94,40 @@ def _why(*parts) -> str:
     return "; ".join(p for p in parts if p)
 
 
+def _rfi(kind: str, conf: float, text: str) -> Verdict:
+    """An interference verdict; its reason starts with the kind (see ``rfi_kind``)."""
+    return "rfi", conf, f"{kind}: {text}"
+
+
+def rfi_kind(f: dict, verdict: Verdict) -> str | None:
+    """The kind of an ``rfi`` verdict (one of RFI_KINDS; None for other classes): the first
+    word of its reason, or for a reason that names none, the event's path (a line: a
+    sweep; an impulse storm: impulses; a long event, the steady rise of arcing or a
+    switching supply: broadband noise)."""
+    cls, _, reason = verdict
+    if cls != "rfi":
+        return None
+    head = reason.split(":", 1)[0]
+    if head in RFI_KINDS:
+        return head
+    return {"line": "sweep", "impulse": "impulse_train"}.get(f.get("path"), "broadband_noise")
+
+
 def _line(f: dict) -> Verdict:
     """Narrowband cells SumThreshold masked, lined up over the band."""
     bw, drift = f["bandwidth_mhz"], f["drift"]
     if f["resolved"]:
-        return "rfi", 0.85, (f"swept narrowband line, drift {drift:+.2f} MHz/s over {bw:.1f} MHz "
-                             "(ionosonde-like), masked")
-    return "rfi", 0.7, f"narrowband signals over {bw:.1f} MHz for {f['span_s']:.0f} s, masked"
+        return _rfi("sweep", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s over {bw:.1f} MHz "
+                                   "(ionosonde-like), masked")
+    return _rfi("narrowband_burst", 0.7, f"narrowband signals over {bw:.1f} MHz for {f['span_s']:.0f} s, masked")
 
 
 def _impulse(f: dict) -> Verdict:
     bw, n = f["bandwidth_mhz"], f["n_impulses"]
     if n == 1:
-        return "rfi", 0.9, f"impulse: {bw:.1f} MHz lit for one time step, nothing before or after"
-    return "rfi", 0.9, (f"impulse storm: {n} impulses over {f['span_s'] / 60:.1f} min "
-                        f"(power line, fence or appliance)")
+        return _rfi("impulse", 0.9, f"{bw:.1f} MHz lit for one time step, nothing before or after")
+    return _rfi("impulse_train", 0.9, f"impulse storm of {n} impulses over {f['span_s'] / 60:.1f} min "
+                                      f"(sferics, power line, fence or appliance)")
 
 
 # -- long events from the slow path ---------------------------------------------------
@@ -154,19 +191,26 @@ def _man_made(f: dict, s: Settings, c: _Sky) -> Verdict | None:
     bw, band = f["bandwidth_mhz"], max(f["band_mhz"], 1e-6)
     cad, drift, run = f["cadence_s"], f["drift"], f["run_s"]
     if f["sk_fraction"] is not None and f["sk_fraction"] >= 0.5 and bw < 0.5 * band:
-        return "rfi", 0.8, f"non-Gaussian (spectral kurtosis) in {100 * f['sk_fraction']:.0f}% of cells, {bw:.2f} MHz wide"
-    if bw <= max(0.1, 3 * f["chan_mhz"]):
-        return "rfi", 0.8, f"narrowband signal ({1000 * bw:.0f} kHz wide) for {f['span_s']:.0f} s"
+        return _rfi("non_gaussian", 0.8, f"spectral kurtosis departs from 1 in {100 * f['sk_fraction']:.0f}% of "
+                                         f"cells, {bw:.2f} MHz wide")
+    if bw <= max(NARROWBAND_MHZ, 3 * f["chan_mhz"]):
+        kind = "carrier" if f["span_s"] >= CARRIER_MIN_S else "narrowband_burst"
+        return _rfi(kind, 0.8, f"narrowband signal ({1000 * bw:.0f} kHz wide) for {f['span_s']:.0f} s; "
+                               "Jovian L-bursts are hundreds of kHz to MHz wide")
+    step = _switched(f)
+    if step:
+        return step
     # An impulse covers every channel of the event at once for a step or two; decide only
     # where a Type III would have been resolved as a drift at this time step.
     ah_spread = bw / abs(float(ah_drift(f["fc_mhz"])))
     if (not f["resolved"] and run <= max(2 * cad, 2.0) and f["full_rows"] >= 0.8
             and bw >= 0.5 * band and ah_spread >= 2 * cad):
-        return "rfi", 0.85, (f"impulsive: {bw:.1f} MHz at once, {run:.1f} s at fixed frequency, no drift"
-                             + (f", {f['n_rows']} steps over {f['span_s']:.0f} s" if f["span_s"] > 3 * cad else ""))
+        kind = "impulse_train" if f["span_s"] > 3 * cad else "impulse"
+        return _rfi(kind, 0.85, f"{bw:.1f} MHz at once, {run:.1f} s at fixed frequency, no drift"
+                                + (f", {f['n_rows']} steps over {f['span_s']:.0f} s" if f["span_s"] > 3 * cad else ""))
     if (f["resolved"] and run <= max(2 * cad, 2.0) and abs(drift) <= 0.5
             and f["inst_bw_mhz"] <= max(0.3, 3 * abs(drift) * cad)):
-        return "rfi", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)"
+        return _rfi("sweep", 0.85, f"swept narrowband line, drift {drift:+.2f} MHz/s (ionosonde-like)")
     # A narrow signal that moves across much more of the band than its own width, a step or
     # two at each frequency, for several seconds: a swept transmitter (an ionosonde) whose
     # drift the fit could not resolve (it swept up and down). Natural bursts are MHz wide
@@ -174,9 +218,58 @@ def _man_made(f: dict, s: Settings, c: _Sky) -> Verdict | None:
     narrow = max(0.3, 3 * f["chan_mhz"]) + s.smooth_freq_mhz
     if (f["inst_bw_mhz"] <= narrow and bw >= 8 * f["inst_bw_mhz"]
             and run <= max(2 * cad, 2.0) and f["span_s"] >= 5.0 and not c.jup_up):
-        return "rfi", 0.6, (f"narrow signal ({1000 * f['inst_bw_mhz']:.0f} kHz at a time) moving over {bw:.1f} MHz "
-                            f"in {f['span_s']:.0f} s: a swept transmitter (ionosonde-like)")
+        return _rfi("sweep", 0.6, f"narrow signal ({1000 * f['inst_bw_mhz']:.0f} kHz at a time) moving over "
+                                  f"{bw:.1f} MHz in {f['span_s']:.0f} s: a swept transmitter (ionosonde-like)")
     return _caught_by_sweep(f, c)
+
+
+def _switched(f: dict) -> Verdict | None:
+    """Switched broadband noise: the band's level stepped within one time step at the
+    event's edge (rxlog.detect.steps) by a good part of the event's excess (STEP_SHARE).
+
+    A burst starts with a step up (a switch-on), or ends with a step down (a switch-off:
+    the fast background, centred on each block, already holds the lower level after it,
+    so the steps before it stand out). A long event from the slow path starts with the
+    step and, when it is a rise, ends with the step back (a Type IV that merely began
+    beside an appliance's switch-on keeps its class). A Type IV rises over minutes and a
+    fadeout sets in over minutes: neither steps."""
+    on, off, depth = f.get("step_on", 0.0), f.get("step_off", 0.0), abs(f["peak_excess_db"])
+    if f["bandwidth_mhz"] < 0.5 * max(f["band_mhz"], 1e-6):
+        return None
+    need = STEP_SHARE * depth
+    if f["path"] == "slow":
+        ok = on >= need and (f["sign"] < 0 or off >= need)
+    else:
+        ok = on >= need or off >= need
+    if not ok:
+        return None
+    way = ("rose", "fell") if f["sign"] > 0 else ("fell", "rose")
+    edges = [f"{way[0]} by {on:.2f} dB at its start" if on > 0 else "",
+             f"{way[1]} by {off:.2f} dB at its end" if off > 0 else ""]
+    return _rfi("switched_broadband", 0.8, f"the band's level {' and '.join(e for e in edges if e)}, each within "
+                                           "a time step: switched broadband noise (an appliance, a power "
+                                           "supply); natural continua rise over minutes")
+
+
+def _pulses(f: dict) -> Verdict | None:
+    """A bunch of impulses the smoothing welded into one shape, told per pulse from the
+    unsmoothed excess: most of it sits in pieces lit for one time step only (see
+    PULSE_SHARE), or, under a sweep, a short event's rows are lit in whole dwells and
+    nothing else (see DWELL_SHARE); and no Type III drift explains it."""
+    share, dwell = f.get("pulse_share"), f.get("dwell_rows")
+    by_step = share is not None and share >= PULSE_SHARE
+    by_dwell = dwell is not None and dwell >= DWELL_SHARE and f["span_s"] <= DWELL_MAX_S
+    if not (by_step or by_dwell):
+        return None
+    if f["resolved"] and f["drift"] is not None and f["drift"] < 0:
+        ratio = f["drift"] / float(ah_drift(f["fc_mhz"]))
+        if 1 / TYPE3_FACTOR <= ratio <= TYPE3_FACTOR:
+            return None
+    why = (f"{100 * share:.0f}% of its excess in pieces lit for one time step only" if by_step else
+           f"{100 * dwell:.0f}% of its steps lit in whole sweep dwells and nothing else")
+    return _rfi("impulse_train" if f["n_rows"] > 2 else "impulse", 0.7,
+                f"{why} ({f['bandwidth_mhz']:.1f} MHz, {f['span_s']:.0f} s): pulses (sferics, a fence), "
+                "not a burst lasting seconds")
 
 
 def _caught_by_sweep(f: dict, c: _Sky) -> Verdict | None:
@@ -185,23 +278,27 @@ def _caught_by_sweep(f: dict, c: _Sky) -> Verdict | None:
     # (A drift fitted inside one dwell over two steps is only the two steps: every channel
     # of a sub-band is sampled at the same moment.)
     if f.get("one_subband") and f["span_s"] <= 3 * cad and run <= 2 * cad:
-        return "rfi", 0.6, ("lit inside one sweep sub-band for a step or two: a short signal caught "
-                            "by the sweep")
+        return _rfi("impulse", 0.6, "lit inside one sweep sub-band for a step or two: a short signal caught "
+                                    "by the sweep")
     if f.get("subband_rows") and run <= 2 * cad:
-        return "rfi", 0.6, (f"each of {f['n_rows']} steps lit in exactly one sweep sub-band, edge to edge: "
-                            "pulses caught by the sweep, not a burst")
+        return _rfi("impulse_train", 0.6, f"each of {f['n_rows']} steps lit in exactly one sweep sub-band, edge to "
+                                          "edge: pulses caught by the sweep, not a burst")
+    pulses = _pulses(f)
+    if pulses:
+        return pulses
     # Narrowness means something only where the event is not cut by the RFI mask.
     if bw < 0.5 and f["span_s"] <= 5.0:
         if not f.get("truncated"):
-            return "rfi", 0.6, f"brief narrowband flash ({bw:.2f} MHz, {f['span_s']:.0f} s): no natural burst is that small"
+            return _rfi("narrowband_burst", 0.6, f"brief narrowband flash ({bw:.2f} MHz, {f['span_s']:.0f} s): "
+                                                 "no natural burst is that small")
         if not c.jup_up:
-            return "rfi", 0.5, (f"brief flash ({bw:.2f} MHz, {f['span_s']:.0f} s) in a gap of the RFI mask, "
-                                "seen nowhere else in the band")
+            return _rfi("narrowband_burst", 0.5, f"brief flash ({bw:.2f} MHz, {f['span_s']:.0f} s) in a gap of "
+                                                 "the RFI mask, seen nowhere else in the band")
     if f.get("n_dwells", 2) < 2 and f["span_s"] <= 10.0 and not c.jup_up:
-        return "rfi", 0.5, (f"confined to one sweep dwell ({bw:.1f} MHz) for {f['span_s']:.0f} s: solar bursts "
-                            "are broader, or drift across dwells")
+        return _rfi("impulse", 0.5, f"confined to one sweep dwell ({bw:.1f} MHz) for {f['span_s']:.0f} s: solar "
+                                    "bursts are broader, or drift across dwells")
     if f["resolved"] and drift > 0 and not c.jup_up:
-        return "rfi", 0.6, f"upward drift {drift:+.2f} MHz/s: solar bursts drift down, Jupiter is not up"
+        return _rfi("sweep", 0.6, f"upward drift {drift:+.2f} MHz/s: solar bursts drift down, Jupiter is not up")
     return None
 
 

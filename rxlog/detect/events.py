@@ -14,7 +14,7 @@ from rxlog.timeutil import iso, parse_iso
 EVENT_FIELDS = ("station", "event_id", "episode_id", "start_utc", "end_utc", "peak_utc",
                 "fmin_mhz", "fmax_mhz", "peak_excess_db", "snr", "integrated_excess",
                 "drift_mhz_s", "drift_err_mhz_s", "duration_s", "bandwidth_mhz", "class",
-                "confidence", "reason", "cml3_deg", "io_phase_deg", "cml3_start_deg",
+                "confidence", "reason", "rfi_kind", "cml3_deg", "io_phase_deg", "cml3_start_deg",
                 "cml3_end_deg", "io_phase_start_deg", "io_phase_end_deg", "source_region",
                 "jupiter_alt_deg", "sun_alt_deg", "cutout_path")
 

@@ -14,11 +14,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from rxlog.constants import MAD_TO_SIGMA
 from rxlog.detect.components import Component
 from rxlog.detect.drift import fit_drift, profile_arrivals
 from rxlog.detect.grid import Grid
 from rxlog.detect.impulses import Storm
-from rxlog.detect.settings import Settings
+from rxlog.detect.settings import DWELL_DARK, DWELL_LIT, PULSE_DARK, Settings
 
 # ------------------------------------------------------------------------------------
 # Bursts (the fine path, and SumThreshold lines)
@@ -74,8 +75,84 @@ def fine_features(g: Grid, s: Settings, c: Component, has_sk: bool, smooth_ch: i
         "n_dwells": int(len(np.unique(g.sb_id[core.ucols]))) if g.n_sub > 1 else 2,
         "subband_rows": len(core.urows) <= 10 and all(_fills_one_subband(g, int(a), int(b), smooth_ch)
                                                       for a, b in zip(core.rmin, core.rmax)),
+        "pulse_share": _pulse_share(g, c), "dwell_rows": _dwell_rows(g, c),
         **d,
     }
+
+
+def _pulse_share(g: Grid, c: Component) -> float | None:
+    """Share of the event's unsmoothed excess (dB, positive part) in pieces lit for one
+    time step only, a piece being a row of a coarse channel (``slow_freq_mhz``): its mean
+    excess over the observed cells, with the same coarse channel in the steps before and
+    after under PULSE_DARK of it. Pieces outside the event (and beyond what the buffer
+    held around it) count as dark, and so do pieces masked as impulses (a pulse of the
+    same bunch). A piece is lit 4 noise units above the background (the noise per cell
+    from the observed cells just around the event, over the root of its cells) and at a
+    quarter of the event's brightest pieces. None when nothing is lit."""
+    rows, cols = c.rows, c.cols
+    ar, ac, av = c.around if c.around is not None else (rows[:0], cols[:0], {k: v[:0] for k, v in c.values.items()})
+    r = np.concatenate([rows, ar]).astype(np.int64)
+    raw = np.concatenate([c.values["raw"], av["raw"]]).astype(np.float64)
+    seen = np.concatenate([c.values["unseen"], av["unseen"]]) == 0
+    inside = np.arange(len(r)) < len(rows)
+    gr = g.groups[np.concatenate([cols, ac])].astype(np.int64)
+    key = (r - r.min() + 1) * (g.n_groups + 1) + gr
+    ukey, inv = np.unique(key, return_inverse=True)
+    n = np.bincount(inv, seen.astype(np.float64))
+    mean = np.bincount(inv, np.where(seen, raw, 0.0)) / np.maximum(n, 1.0)
+    own = np.bincount(inv, inside.astype(np.float64)) > 0          # pieces of the event itself
+    around_seen = seen & ~inside
+    noise = MAD_TO_SIGMA * float(np.median(np.abs(raw[around_seen]))) if around_seen.sum() >= 16 else 0.0
+
+    def at(k):
+        i = np.clip(np.searchsorted(ukey, k), 0, len(ukey) - 1)
+        return np.where(ukey[i] == k, mean[i], 0.0)
+
+    pos = np.where(own & (n > 0), np.clip(mean, 0.0, None), 0.0)
+    if pos.max(initial=0.0) <= 0:
+        return None
+    lit = (pos >= 0.25 * float(np.percentile(pos[pos > 0], 99))) & (pos >= 4.0 * noise / np.sqrt(np.maximum(n, 1.0)))
+    if not lit.any():
+        return None
+    step = g.n_groups + 1
+    dark = (at(ukey - step) <= PULSE_DARK * mean) & (at(ukey + step) <= PULSE_DARK * mean)
+    return float(pos[lit & dark].sum() / pos[lit].sum())
+
+
+def _dwell_rows(g: Grid, c: Component) -> float | None:
+    """For a sweeping receiver: the share of the event's rows (weighted by their peak,
+    unsmoothed excess) lit in whole sweep dwells and nothing else. In such a row every
+    sub-band is either lit (DWELL_LIT of its peak or more in three eighths of it in four)
+    or dark (under DWELL_DARK of it in three eighths in four), and one at least is lit: a
+    pulse shorter than a dwell lights every channel sampled with it at once and none
+    sampled a dwell earlier or later, whereas a natural burst's edges fall anywhere.
+    None without a sweep."""
+    if g.n_sub < 2:
+        return None
+    rows, cols = c.rows, c.cols
+    seen = c.values["unseen"] == 0
+    raw = np.where(seen, c.values["raw"], 0.0).astype(np.float64)
+    nq = len(g.q_start)
+    q = np.searchsorted(g.q_start, cols, side="right") - 1
+    r = rows - rows.min()
+    key = r * nq + q
+    ukey, inv = np.unique(key, return_inverse=True)
+    mean = np.bincount(inv, raw) / np.maximum(np.bincount(inv, seen.astype(np.float64)), 1.0)
+    ur, uq = ukey // nq, ukey % nq
+    n_rows = int(r.max()) + 1
+    row_pk = np.zeros(n_rows)
+    np.maximum.at(row_pk, ur, mean)
+    sb = g.q_owner[uq]
+    per_sb = np.bincount(g.q_owner, minlength=g.n_sub).astype(np.float64)
+    lit = np.zeros((n_rows, g.n_sub))
+    on = np.zeros((n_rows, g.n_sub))
+    np.add.at(lit, (ur, sb), (mean >= DWELL_LIT * row_pk[ur]).astype(np.float64))
+    np.add.at(on, (ur, sb), (mean > DWELL_DARK * row_pk[ur]).astype(np.float64))
+    whole = lit >= 0.75 * per_sb[None, :]
+    partial = (on > 0.25 * per_sb[None, :]) & ~whole
+    aligned = whole.any(axis=1) & ~partial.any(axis=1) & (row_pk > 0)
+    w = np.clip(row_pk, 0.0, None)
+    return float(w[aligned].sum() / w.sum()) if w.sum() > 0 else None
 
 
 def _core(g: Grid, rows: np.ndarray, cols: np.ndarray, ex: np.ndarray) -> _Core:
@@ -267,3 +344,4 @@ def slow_features(g: Grid, s: Settings, c: Component, sign: int) -> dict | None:
         "full_rows": 1.0, "n_rows": span_blocks, "sk_fraction": None,
         "bursty": rough > 0.3, "texture": float(np.median(c.values["tx"])), **d,
     }
+

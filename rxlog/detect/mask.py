@@ -24,7 +24,7 @@ however the rows arrive:
   Type III onsets and S-bursts raise SK too -- they are reported on the event instead.
 
 ``SegmentMask`` applies them to one segment block by block and counts the masked cells
-per UTC hour (``hour_quality``). Impulses and pulse trains are masked by
+per UTC hour, in all and per channel group of ``slow_freq_mhz`` (``hour_quality``). Impulses and pulse trains are masked by
 rxlog.detect.impulses. What is thrown away is also shown: impulse storms, and
 SumThreshold cells that line up across the band (an ionosonde sweep, the line path in
 rxlog.detect.components) become ``rfi`` events a reviewer sees.
@@ -225,8 +225,17 @@ def neighbour_mean(z: np.ndarray, w: np.ndarray, width_ch: int, skip_ch: int = 1
     return mean.astype(np.float32), den
 
 
-def hour_quality(times: np.ndarray, flags: np.ndarray, cadence_s: float) -> dict[float, list[float]]:
-    """Per UTC hour start: [masked cells, covered cells, gap seconds, covered seconds].
+def group_index(freq_hz: np.ndarray, group_mhz: float) -> np.ndarray:
+    """(C,) the channel group of each channel on a fixed grid of ``group_mhz`` from 0 Hz
+    (so hours of different tunings add up group by group)."""
+    return np.floor(np.asarray(freq_hz, dtype=np.float64) / 1e6 / group_mhz + 1e-9).astype(np.int64)
+
+
+def hour_quality(times: np.ndarray, flags: np.ndarray, cadence_s: float,
+                 group_of: np.ndarray | None = None) -> dict[float, list]:
+    """Per UTC hour start: [masked cells, covered cells, gap seconds, covered seconds],
+    and with ``group_of`` (each channel's group, ``group_index``) also [first group,
+    masked cells per group, covered cells per group].
 
     Covered cells are cells with data in channels the receiver covered; a gap row is a
     row where no channel has data.
@@ -242,15 +251,48 @@ def hour_quality(times: np.ndarray, flags: np.ndarray, cadence_s: float) -> dict
         sel = hours == h
         out[float(h)] = [float(row_mask[sel].sum()), float(row_cov[sel].sum()),
                          float(gap_row[sel].sum() * cadence_s), float((~gap_row[sel]).sum() * cadence_s)]
+        if group_of is not None and len(group_of):
+            k0 = int(group_of.min())
+            n = int(group_of.max()) - k0 + 1
+            out[float(h)] += [k0, np.bincount(group_of - k0, masked[sel].sum(axis=0), n),
+                              np.bincount(group_of - k0, covered[sel].sum(axis=0), n)]
     return out
 
 
-def add_hours(into: dict[float, list[float]], hours) -> None:
-    """Add ``hour_quality`` rows (hour, [masked, covered, gap s, covered s]) into running sums."""
+def add_hours(into: dict[float, list], hours) -> None:
+    """Add ``hour_quality`` rows (hour, [masked, covered, gap s, covered s] and the groups'
+    [first group, masked, covered] where given) into running sums."""
     for h, v in hours:
         acc = into.setdefault(h, [0.0, 0.0, 0.0, 0.0])
         for i in range(4):
             acc[i] += v[i]
+        if len(v) > 4:
+            _add_groups(acc, *v[4:])
+
+
+def _add_groups(acc: list, k0: int, masked: np.ndarray, covered: np.ndarray) -> None:
+    """Add per-group counts starting at group ``k0`` into ``acc[4:]``, widening its range."""
+    if len(acc) == 4:
+        acc += [k0, masked.astype(np.float64), covered.astype(np.float64)]
+        return
+    a0, am, ac = acc[4], acc[5], acc[6]
+    lo, hi = min(a0, k0), max(a0 + len(am), k0 + len(masked))
+    m, c = np.zeros(hi - lo), np.zeros(hi - lo)
+    for k, x, y in ((a0, am, ac), (k0, masked, covered)):
+        m[k - lo:k - lo + len(x)] += x
+        c[k - lo:k - lo + len(y)] += y
+    acc[4:] = [lo, m, c]
+
+
+def group_fractions(acc: list, group_mhz: float) -> dict:
+    """The quality row's per-group fields from an hour's sums: group_fmin_mhz, group_mhz
+    and masked_by_group (the masked share of each group's covered cells; None where a
+    group had no data)."""
+    if len(acc) <= 4:
+        return {}
+    k0, m, c = acc[4], acc[5], acc[6]
+    frac = [None if cc <= 0 else round(float(mm / cc), 4) for mm, cc in zip(m, c)]
+    return {"group_fmin_mhz": round(k0 * group_mhz, 6), "group_mhz": group_mhz, "masked_by_group": frac}
 
 
 class SegmentMask:
@@ -266,6 +308,7 @@ class SegmentMask:
         self.st_f = max(1, int(s.sumthreshold_max_mhz / grid.chan_mhz))
         self.st_t = max(1, int(s.sumthreshold_max_s / grid.cadence))
         self.carriers = occupancy if occupancy is not None else new_occupancy(grid.n_chan, grid.block_s, s)
+        self.group_of = group_index(grid.freq, s.slow_freq_mhz)
         self.chan_mask: dict[int, np.ndarray] = {}
         self.quality: dict[float, list[float]] = {}
 
@@ -310,7 +353,7 @@ class SegmentMask:
     def count_hours(self, t0: float, flags: np.ndarray):
         """Add a block's flags (rows from ``t0``) to the hourly counts."""
         times = t0 + self.cadence * np.arange(flags.shape[0])
-        add_hours(self.quality, hour_quality(times, flags, self.cadence).items())
+        add_hours(self.quality, hour_quality(times, flags, self.cadence, self.group_of).items())
 
     def hours_before(self, t: float) -> list[tuple[float, list[float]]]:
         """Hand out (and forget) the hours that end by ``t``."""

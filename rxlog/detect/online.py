@@ -28,7 +28,7 @@ from typing import Callable
 
 import numpy as np
 
-from rxlog.detect.classify import classify
+from rxlog.detect.classify import classify, rfi_kind
 from rxlog.detect.episodes import Episodes
 from rxlog.detect.events import (
     LongEventPieces,
@@ -37,7 +37,7 @@ from rxlog.detect.events import (
     feature_tags,
     sky_context,
 )
-from rxlog.detect.mask import Occupancy, add_hours, new_occupancy
+from rxlog.detect.mask import Occupancy, add_hours, group_fractions, new_occupancy
 from rxlog.detect.segment import Segment
 from rxlog.detect.settings import BRIDGE_S, Settings
 from rxlog.sky.tags import station_tags
@@ -81,7 +81,7 @@ class OnlineDetector:
         self.episodes = Episodes(self.s.episode_gap_s, BRIDGE_S + self.s.slow_window_s)
         self.pieces = LongEventPieces(self.s.block_s, self.s.slow_window_s)
         self._quality: list[dict] = []
-        self._hours: dict[float, list[float]] = {}
+        self._hours: dict[float, list] = {}
         self.occupancy: dict[tuple, Occupancy] = {}    # what the mask learned, per channel grid
 
     # -- feeding -----------------------------------------------------------------------
@@ -161,10 +161,12 @@ class OnlineDetector:
             add_hours(self._hours, seg.mask.hours_before(math.inf if final else now))
         for h in sorted(self._hours):
             if final or h + 3600.0 <= now:
-                masked, cov, gap, covs = self._hours.pop(h)
+                acc = self._hours.pop(h)
+                masked, cov, gap, covs = acc[:4]
                 self._quality.append({"station": self.s.station, "hour_utc": iso(h),
                                       "masked_fraction": masked / cov if cov > 0 else None,
-                                      "gap_s": gap, "covered_s": covs})
+                                      "gap_s": gap, "covered_s": covs,
+                                      **group_fractions(acc, self.s.slow_freq_mhz)})
 
     # -- events ----------------------------------------------------------------------------
     def _events(self, comps: list) -> list[dict]:
@@ -185,8 +187,10 @@ class OnlineDetector:
             f.update(sun_alt=ctx.get("sun_alt_deg"), jupiter_alt=ctx.get("jupiter_alt_deg"),
                      source_region=region, band_mhz=seg.band_mhz(),
                      cadence_s=seg.grid.cadence, chan_mhz=seg.grid.chan_mhz)
-            cls, conf, reason = classify(f, self.s)
-            events.append((f, event_record(self.s.station, f, ctx, cls, conf, reason)))
+            verdict = classify(f, self.s)
+            e = event_record(self.s.station, f, ctx, *verdict)
+            e["rfi_kind"] = rfi_kind(f, verdict)
+            events.append((f, e))
         events.sort(key=lambda fe: fe[1]["peak_utc"])
         moved = []
         for f, e in events:

@@ -11,8 +11,9 @@ at a time, in chunks, or all at once gives the same events
   persistent kurtosis);
 * once blocks up to j + W exist: its fast background;
 * once the fast background of j + 1 exists, the *mask stage*: the excess map in noise
-  units, SumThreshold lines (rxlog.detect.components), impulses and pulse trains
-  (rxlog.detect.impulses), the flags handed to ``mask_sink`` and the hourly counts;
+  units, the band's level per row and its steps (rxlog.detect.steps), SumThreshold lines
+  (rxlog.detect.components), impulses and pulse trains (rxlog.detect.impulses), the
+  flags handed to ``mask_sink`` and the hourly counts;
 * once the mask stage of j + 1 has run: smoothing, hysteresis and components (the fine
   path);
 * once half a slow window of blocks after it exists: the slow baseline and the slow
@@ -35,7 +36,8 @@ from rxlog.detect.features import fine_features, impulse_features, slow_features
 from rxlog.detect.grid import segment_grid
 from rxlog.detect.impulses import Impulses
 from rxlog.detect.mask import SegmentMask, always_masked, kurtosis_flags
-from rxlog.detect.settings import LINE_MIN_MHZ, Settings
+from rxlog.detect.settings import LINE_MIN_MHZ, STEP_NEAR_S, Settings
+from rxlog.detect.steps import BandSteps
 from rxlog.spectrum import (
     FLAG_GAP,
     FLAG_RETUNE,
@@ -81,6 +83,7 @@ class Segment:
         self.background = Background(g, s)
         self.mask = SegmentMask(g, s, occupancy)
         self.impulses = Impulses(g, s)
+        self.steps = BandSteps(g)
         self.fine = FinePath(g, s)
         self.lines = LinePath(g, s)
         self.slow = SlowPath(g, s)
@@ -213,6 +216,7 @@ class Segment:
         n = b.power.shape[0]
         x = self._excess(j, n)
         w = x.w
+        self.steps.add(b.power, x.data & ~x.masked)
         st = self.mask.narrowband(x.z, w)
         w &= ~st
         self.lines.add(st, x.excess, x.z)
@@ -249,7 +253,9 @@ class Segment:
         g, s = self.grid, self.s
         if kind == "fine":
             f = fine_features(g, s, c, self.has_sk, self.fine.F)
-            return None if self.impulses.absorb(f) else f
+            # an impulse just before a switch-on can start a burst a few seconds early
+            tol = max(STEP_NEAR_S, 3 * g.cadence)
+            return None if self.impulses.absorb(f) else self._with_steps(f, tol, min(0.25 * f["span_s"], 10.0))
         if kind == "impulse":
             return impulse_features(g, c)
         if kind == "line":
@@ -258,7 +264,19 @@ class Segment:
                 return None
             f["path"] = "line"
             return f
-        return slow_features(g, s, c, 1 if kind == "slow+" else -1)
+        f = slow_features(g, s, c, 1 if kind == "slow+" else -1)
+        # a long event's edges are known to a block (or two: the slow threshold is
+        # crossed in the block after a step that falls late in one)
+        return None if f is None else self._with_steps(f, 2 * g.block_s + STEP_NEAR_S, 0.0)
+
+    def _with_steps(self, f: dict, tol_s: float, inside_s: float) -> dict:
+        """The event with the band-level steps at its edges: ``step_on`` (dB) of the
+        event's own sign near its start, ``step_off`` of the other sign near its end
+        (within ``tol_s`` of the edge, and ``inside_s`` more inside the event)."""
+        a, b, inner = f["start"], f["end"], tol_s + inside_s
+        f["step_on"] = self.steps.between(a - tol_s, a + inner, f["sign"])
+        f["step_off"] = self.steps.between(b - inner, b + tol_s, -f["sign"])
+        return f
 
     def band_mhz(self) -> float:
         """Width of the band covered so far (channels that ever carried data)."""

@@ -149,6 +149,53 @@ LINE_MIN_MHZ = 0.5
 # period, nine in ten within their own dwell, is a pulse train (an electric fence: about one pulse
 # a second, from memory); its next pulses are masked where they fall, whatever surrounds them.
 TRAIN_PULSES = 40
+# -- interference kinds (rxlog.detect.classify's rfi rules) --
+# Single-sideband voice and data take 2.4-3 kHz, a channel or two; Jovian L-bursts are
+# hundreds of kHz to MHz wide (../shared/domain.md; common practice). An event no wider
+# than this (or three channels) is a narrowband burst, or a carrier once it lasts
+# CARRIER_MIN_S (broadcasters keep a frequency for hours; a first setting).
+NARROWBAND_MHZ = 0.1
+CARRIER_MIN_S = 600.0
+# Switched broadband noise (rxlog.detect.steps): the band's median level steps by a
+# fraction of a dB to several dB within one time step (domain.md, common practice). A step
+# is a change of the median of STEP_HOLD_S of rows against the same before, of STEP_MIN_DB
+# and STEP_SIGMA row-noise units at least, STEP_ABRUPT of it within two rows. A Type III
+# passes a frequency in seconds, so 20 s of rows after it are back near the level before;
+# a Type IV or a fadeout changes by far less than 0.7 of its depth in two steps. Values from
+# rxlog's own simulation, a first setting.
+STEP_HOLD_S = 20.0
+STEP_MIN_DB = 0.1
+STEP_SIGMA = 10.0
+STEP_ABRUPT = 0.7
+# An event with a step up within STEP_NEAR_S of its start or a step down as near its end
+# (a long one: both), the step STEP_SHARE of its peak excess or more (a comb of switching
+# harmonics peaks far above the band's median: 2-dB teeth over a 0.3-dB median step in
+# rxlog's simulation), is switched broadband noise (rxlog's own simulation, a first setting; the slow path's
+# blocks are 30 s long, so its edges are known to a block).
+STEP_NEAR_S = 3.0
+STEP_SHARE = 0.1
+# Sferics and fence pulses last one time step at each frequency (a millisecond pulse;
+# domain.md): an event whose excess sits for PULSE_SHARE or more in pieces lit for one step
+# only at their frequency (the steps either side under PULSE_DARK of it), before any
+# smoothing, is a bunch of impulses however the smoothing welds them. The test runs on
+# rows of coarse channels (0.25 MHz), whose mean lifts a pulse of a few tenths of a dB
+# well out of the noise of each cell. A Jovian L-burst
+# lasts seconds at a frequency, a Type III decays over ~2 s at 20 MHz. From rxlog's own
+# simulation, a first setting.
+PULSE_SHARE = 0.7
+PULSE_DARK = 0.3
+# A sweeping receiver samples all channels of a dwell at once: a pulse shorter than a dwell
+# lights them all, evenly (its f^-2 fall changes it by under 40 % over a 1.6-MHz dwell at
+# 16 MHz), and none of the dwells sampled before or after. A row of an event is "in whole
+# dwells" when each sub-band is lit (DWELL_LIT of the row's peak or more) or dark (under
+# DWELL_DARK) over three quarters of it; an event short enough for a bunch of strokes
+# (DWELL_MAX_S; multiple-stroke flashes last a second or two, domain.md) with DWELL_SHARE
+# of its rows so is a bunch of pulses unless a Type III drift explains it. From rxlog's
+# own simulation, a first setting.
+DWELL_LIT = 0.5
+DWELL_DARK = 0.3
+DWELL_SHARE = 0.8
+DWELL_MAX_S = 5.0
 
 
 @dataclass(frozen=True)

@@ -81,7 +81,7 @@ def render_page(cfg, night: Night, summary: dict, events: list[dict], images: di
         made=utc_stamp(parse_iso(s["generated_utc"]), seconds=False),
         facts=_facts(s, night),
         chips=[(c, LABEL_NAMES.get(c, c), n) for c, n in s["items_per_class"].items() if n],
-        overview="overview.png" in images, cml_io="cml_io.png" in images,
+        overview="overview.png" in images, cml_io="cml_io.png" in images, mask="mask.png" in images,
         windows=[{"region": w["region"], "span": fmt_span(night, w["start"], w["end"]),
                   "altitude": fmt_num(w.get("max_jupiter_alt_deg"), "{:.0f}", "°"),
                   "recorded": f"{100 * w['recorded_fraction']:.0f} %",

@@ -338,3 +338,69 @@ def _draw_candidates(ax, pts: list[tuple[int, dict]]) -> list:
             labelled.append((c, p))
     return [ax.scatter([], [], s=36, color=colour(cls), edgecolors="black", linewidths=0.8,
                        label=LABEL_NAMES[cls]) for cls in shown]
+
+
+def plot_mask(path: Path, night: Night, quality: list[dict], occupancy: list[dict], dpi: int = 100) -> Path | None:
+    """``mask_figure`` as a PNG; None (nothing written) when there is nothing to draw."""
+    fig = mask_figure(night, quality, occupancy, dpi)
+    if fig is None:
+        return None
+    fig.savefig(path, dpi=dpi, pil_kwargs={"compress_level": 3})
+    return path
+
+
+def mask_grid(quality: list[dict]) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """The night's masked share per channel group and UTC hour from the quality rows
+    that carry it: (hour starts POSIX s, group lower edges MHz + the last upper edge,
+    (hours, groups) fractions, NaN without data), or None when no row carries it."""
+    rows = [q for q in quality if q.get("masked_by_group")]
+    if not rows:
+        return None
+    g = float(rows[0]["group_mhz"])
+    lo = min(float(q["group_fmin_mhz"]) for q in rows)
+    hi = max(float(q["group_fmin_mhz"]) + g * len(q["masked_by_group"]) for q in rows)
+    n = int(round((hi - lo) / g))
+    hours = sorted({parse_iso(q["hour_utc"]) for q in rows})
+    at = {h: i for i, h in enumerate(hours)}
+    grid = np.full((len(hours), n), np.nan)
+    for q in rows:
+        k = int(round((float(q["group_fmin_mhz"]) - lo) / g))
+        vals = np.array([np.nan if v is None else v for v in q["masked_by_group"]], dtype=float)
+        grid[at[parse_iso(q["hour_utc"])], k:k + len(vals)] = vals
+    return np.asarray(hours), lo + g * np.arange(n + 1), grid
+
+
+def mask_figure(night: Night, quality: list[dict], occupancy: list[dict], dpi: int = 100):
+    """The RFI mask as pictures over frequency and hour: the share of each 0.25-MHz
+    channel group the mask took out in each hour of the night (from the hourly quality
+    rows), and the occupancy the mask has learned for each channel by UTC hour of day
+    (the first grid in ``occupancy``, from the event store's mask_occupancy). None when
+    neither is there."""
+    grid = mask_grid(quality)
+    occ = occupancy[0] if occupancy else None
+    if grid is None and occ is None:
+        return None
+    load_matplotlib()
+    fig = Figure(figsize=(11.0, 4.2), dpi=dpi)
+    cmap = matplotlib.colormaps["magma_r"]
+    if grid is not None:
+        ax = fig.add_axes((0.06, 0.14, 0.38, 0.74))
+        hours, edges, frac = grid
+        t_edges = [_dnum(h) for h in hours] + [_dnum(hours[-1] + 3600.0)]
+        im = ax.pcolormesh(t_edges, edges, np.ma.masked_invalid(frac.T), cmap=cmap, vmin=0, vmax=1)
+        ax.xaxis.set_major_formatter(mdates.DateFormatter("%H", tz=night.tz))
+        ax.set_xlabel(f"hour ({_tz_label(night)})")
+        ax.set_ylabel("frequency (MHz)")
+        ax.set_title("masked share, this night", loc="left", fontsize=10)
+        fig.colorbar(im, ax=ax, fraction=0.05, pad=0.02)
+    if occ is not None:
+        ax = fig.add_axes((0.56, 0.14, 0.38, 0.74))
+        by_hour = np.asarray(occ["by_hour"], dtype=float)
+        f = np.linspace(float(occ["fmin_hz"]), float(occ["fmax_hz"]), int(occ["channels"])) / 1e6
+        half = 0.5 * (f[1] - f[0]) if len(f) > 1 else 0.005
+        im = ax.pcolormesh(np.arange(25), np.append(f - half, f[-1] + half), by_hour.T, cmap=cmap, vmin=0, vmax=1)
+        ax.set_xticks(range(0, 25, 6))
+        ax.set_xlabel("hour of day (UTC)")
+        ax.set_title("learned occupancy by hour of day", loc="left", fontsize=10)
+        fig.colorbar(im, ax=ax, fraction=0.05, pad=0.02)
+    return fig

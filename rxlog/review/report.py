@@ -40,7 +40,7 @@ from rxlog.review.night import (
     report_dir,
 )
 from rxlog.review.page import event_image_name, render_page
-from rxlog.review.plots import plot_cml_io, plot_overview
+from rxlog.review.plots import plot_cml_io, plot_mask, plot_overview
 from rxlog.review.summary import JOVIAN, format_summary, night_summary
 from rxlog.review.zoom import ZoomPlotter
 from rxlog.sky.forecast import forecast_windows
@@ -64,6 +64,7 @@ def build_report(cfg, night: Night | str | dt.date | None = None, progress=None,
     store = EventStore(cfg.store_path)
     try:
         quality = store.quality(night.t0, night.t1)
+        occupancy = store.occupancy(cfg["station"]["name"])
     finally:
         store.close()
     jupiter_up = body_up_intervals(cfg, night.t0, night.t1, body="jupiter")
@@ -87,6 +88,8 @@ def build_report(cfg, night: Night | str | dt.date | None = None, progress=None,
         images["overview.png"] = "archive"
     plot_cml_io(out / "cml_io.png", cfg, night, jovian_points(items), track=jupiter_track(cfg, jupiter_up))
     images["cml_io.png"] = "event store"
+    if plot_mask(out / "mask.png", night, quality, occupancy) is not None:
+        images["mask.png"] = "event store"
     # Drop zooms of events that are no longer in the store (re-detection changed the ids).
     for old in (out / "events").glob("*.png"):
         if f"events/{old.name}" not in images:

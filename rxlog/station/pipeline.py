@@ -61,8 +61,8 @@ class Pipeline:
         self.archive_factory = archive_factory
         self.archive = None
         self.detector_factory = detector_factory
-        self.detector = detector_factory() if detector_factory else None
         self.writer, self.disk = writer, disk
+        self.detector = self._new_detector()
         self.ring, self.cutout, self.note = ring, cutout, note
         self.counts = Counters()
         self.events_stored = 0
@@ -216,9 +216,19 @@ class Pipeline:
         except Exception:
             log.error("detector: failure on %s..%s; spectra kept, detector restarted",
                       iso(spec.t0), iso(spec.t_end), exc_info=True)
-            self.detector = self.detector_factory()
+            self.detector = self._new_detector()
             return
         self.store_events(self.with_cutouts(events))
+
+    def _new_detector(self):
+        """A fresh online detector that takes up what the RFI mask learned in earlier runs
+        (kept in the event store every hour and at a stop), so a restart does not unmask
+        the station's broadcasters until it learns them again."""
+        if not self.detector_factory:
+            return None
+        det = self.detector_factory()
+        det.load_occupancy(self.writer.learned_occupancy())
+        return det
 
     def with_cutouts(self, events: list[dict]) -> list[dict]:
         """Keep each new event's stretch of the channelizer's full-resolution ring as a
@@ -245,7 +255,9 @@ class Pipeline:
         store cannot take now (disk full, a long lock) is held for the next try."""
         episodes = self.detector.pop_episodes() if self.detector is not None else []
         quality = self.detector.pop_quality() if self.detector is not None else []
-        written = self.writer.write_events(events, episodes, quality)
+        # the mask's occupancy goes with each hour's quality rows (and the last ones at a stop)
+        occupancy = self.detector.occupancy_state() if quality else None
+        written = self.writer.write_events(events, episodes, quality, occupancy)
         self.counts.events += written
         self.events_stored += written
 

@@ -8,6 +8,7 @@ changes nothing and needs no lock.
 
 from __future__ import annotations
 
+import json
 import math
 import sqlite3
 import time
@@ -20,6 +21,7 @@ from rxlog.timeutil import iso, parse_iso
 # What `rxlog status` reckons from history (rxlog's own choices).
 DAY_S = 86400.0
 GROWTH_MIN_DATA_S = 6 * 3600.0    # archive growth needs this much data in the last day, else "unknown"
+WORST_GROUPS = 5                  # channel groups `rxlog status` names as the most masked
 
 
 def station_status(cfg, now: float | None = None) -> dict:
@@ -32,6 +34,8 @@ def station_status(cfg, now: float | None = None) -> dict:
     - ``dropped_24h``: sums over the last day's health rows: ``samples_received``,
       ``samples_dropped``, ``spectra_dropped``, ``spectra_not_archived``;
     - ``last_event``: {event_id, class, peak_utc} of the latest event (by peak), or None;
+    - ``worst_channels``: the channel groups the RFI mask took out most in the last day
+      (see ``worst_channels``), worst first; empty before the first hour is stored;
     - ``last_archived``: {time_utc: end of the last archived row, path: the archive file
       holding it}, or None for an empty (or unreadable) archive; ``archive_error``: why
       the archive could not be read, or None;
@@ -57,7 +61,7 @@ def station_status(cfg, now: float | None = None) -> dict:
 
 def _store_status(cfg, now: float, pid: int | None) -> dict:
     out = {"health": None, "age_s": None, "started_utc": None, "starts_24h": 0,
-           "dropped_24h": None, "last_event": None}
+           "dropped_24h": None, "last_event": None, "worst_channels": []}
     path = cfg.store_path
     if not path.exists():
         return out
@@ -96,6 +100,7 @@ def _store_status(cfg, now: float, pid: int | None) -> dict:
                 "from health where station = ? and time_utc >= ?", [station, day_ago])
             out["last_event"] = one(conn, "select event_id, class, peak_utc from events where station = ? "
                                     "order by peak_utc desc limit 1", [station])
+            out["worst_channels"] = worst_channels(_day_quality(conn, station, day_ago))
         finally:
             conn.close()
     except sqlite3.Error as e:
@@ -103,6 +108,47 @@ def _store_status(cfg, now: float, pid: int | None) -> dict:
     if out["health"] is not None:
         out["age_s"] = now - parse_iso(out["health"]["time_utc"])
     return out
+
+
+def _day_quality(conn, station: str, since: str) -> list[dict]:
+    """The quality rows since ``since`` that carry per-group fractions (schema 4 on)."""
+    try:
+        rows = conn.execute("select hour_utc, covered_s, group_fmin_mhz, group_mhz, masked_by_group from quality "
+                            "where station = ? and hour_utc >= ? and masked_by_group is not null",
+                            [station, since]).fetchall()
+    except sqlite3.OperationalError as e:
+        if "no such" in str(e):              # a store from before schema version 4
+            return []
+        raise
+    return [dict(r, masked_by_group=json.loads(r["masked_by_group"])) for r in rows]
+
+
+def worst_channels(quality: list[dict], n: int = WORST_GROUPS) -> list[dict]:
+    """The ``n`` channel groups with the largest masked fraction over the quality rows
+    given (each hour weighted by its covered seconds), worst first, leaving out groups
+    never masked: dicts of fmin_mhz, fmax_mhz and masked_fraction."""
+    sums: dict[float, list[float]] = {}
+    for q in quality:
+        w = float(q.get("covered_s") or 0.0)
+        gmhz = float(q["group_mhz"])
+        for i, frac in enumerate(q["masked_by_group"]):
+            if frac is None or w <= 0:
+                continue
+            lo = round(float(q["group_fmin_mhz"]) + i * gmhz, 6)
+            acc = sums.setdefault((lo, gmhz), [0.0, 0.0])
+            acc[0] += w * frac
+            acc[1] += w
+    groups = [{"fmin_mhz": lo, "fmax_mhz": round(lo + g, 6), "masked_fraction": m / w}
+              for (lo, g), (m, w) in sums.items() if w > 0 and m > 0]
+    return sorted(groups, key=lambda x: -x["masked_fraction"])[:n]
+
+
+def describe_worst(groups: list[dict]) -> str:
+    """One line of ``rxlog status`` from ``worst_channels``."""
+    if not groups:
+        return "most masked channels (last 24 h): none masked, or no hourly quality rows yet"
+    return "most masked channels (last 24 h): " + ", ".join(
+        f"{g['fmin_mhz']:.2f}-{g['fmax_mhz']:.2f} MHz {100 * g['masked_fraction']:.0f} %" for g in groups)
 
 
 def _archive_status(cfg, now: float) -> dict:

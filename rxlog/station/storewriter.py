@@ -1,5 +1,5 @@
 """The logger's rows for the event store (events, episodes, hourly quality, health rows,
-data segments), held in memory while the store refuses them.
+data segments, what the RFI mask learned), held in memory while the store refuses them.
 
 The store refuses a write when the disk is full ("database or disk is full") or a long
 reader holds its lock. The rows are then kept (at most ``HELD_ROWS_MAX`` of each kind)
@@ -34,17 +34,22 @@ class StoreWriter:
         self.episodes: list[dict] = []
         self.quality: list[dict] = []
         self.health: list[dict] = []
+        self.occupancy: list[dict] | None = None   # the mask's latest learned state, not yet stored
         self.trouble: str | None = None    # why the event store refuses rows, while it does
         self._retry_at = -1e9
 
-    def write_events(self, events: list[dict], episodes: list[dict], quality: list[dict]) -> int:
-        """Hold new events, episodes and hourly quality rows and write all that is held;
-        return how many events reached the store (0 while it refuses them)."""
+    def write_events(self, events: list[dict], episodes: list[dict], quality: list[dict],
+                     occupancy: list[dict] | None = None) -> int:
+        """Hold new events, episodes, hourly quality rows and the mask's learned occupancy
+        (``OnlineDetector.occupancy_state``; the latest replaces any held) and write all
+        that is held; return how many events reached the store (0 while it refuses them)."""
         self.episodes.extend(episodes)
         self.quality.extend(quality)
+        if occupancy:
+            self.occupancy = occupancy
         if events:
             self.events.extend(events)
-        if not (self.episodes or self.quality or self.events) or not self.may_try():
+        if not (self.episodes or self.quality or self.events or self.occupancy) or not self.may_try():
             self._trim()
             return 0
         try:
@@ -52,6 +57,9 @@ class StoreWriter:
             self.episodes = []
             self.store.record_quality(self.quality)
             self.quality = []
+            if self.occupancy:
+                self.store.save_occupancy(self.station, self.occupancy)
+                self.occupancy = None
             if self.events:
                 self.store.upsert_events(self.events)
         except sqlite3.OperationalError as e:
@@ -113,6 +121,15 @@ class StoreWriter:
                 return text
             t += 0.001
         return text
+
+    def learned_occupancy(self) -> list[dict]:
+        """What the RFI mask of this station learned before (empty when the store cannot
+        tell: the mask then learns again from the data)."""
+        try:
+            return self.store.occupancy(self.station)
+        except sqlite3.Error as e:
+            log.warning("event store: the RFI mask's learned occupancy not read (%s); it learns again", e)
+            return []
 
     def stored_end(self) -> str | None:
         """End (ISO text) of the latest data segment this station stored, or None."""
