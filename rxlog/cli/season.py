@@ -66,3 +66,38 @@ def reprocess_command(cfg, start, end, workers, scheduler):
     if skipped:
         raise UserError(f"{len(skipped)} day(s) skipped for damaged archive files (listed above); "
                         "repair or remove them and run the same command again")
+
+
+@station_command("season")
+@click.option("--start", required=True, metavar="TIME", help=f"Start of the season: {TIME_HELP}.")
+@click.option("--end", required=True, metavar="TIME", help="End, exclusive, read like --start.")
+@click.option("--out", required=True, type=click.Path(file_okay=False), metavar="DIR",
+              help="Folder for the season page (index.html), its PNG plots and CSV tables.")
+@click.option("--partners", multiple=True, type=click.Path(exists=True, dir_okay=False), metavar="FILE",
+              help="A partner station's event list (CSV, JSON or VOTable, from rxlog export); repeat for more. "
+                   "Adds the network's occurrence map of emission confirmed at two or more stations.")
+def season_command(cfg, start, end, out, partners):
+    """Season statistics normalised by how long the station really listened.
+
+    Exposure is the time the logger ran with the band unmasked (the store's hourly
+    quality rows) and Jupiter (or the Sun) above [detector] jupiter_up_deg
+    (sun_up_deg). Writes the Jovian occurrence probability over CML III x Io phase
+    (10-degree bins, Wilson intervals, the source-region boxes drawn), rates per
+    region, solar bursts per type per day and against the Sun's altitude, fadeouts
+    per month, an uptime calendar with the health log's causes, and the masked
+    fraction by hour of day: PNG plots, CSV tables and index.html in --out.
+
+    \b
+    Examples:
+      rxlog season --config station.toml --start 2026-10-01 --end 2027-04-01 --out season
+      rxlog season --config station.toml --start 2026-12-01 --end 2027-01-01 --out dec \\
+          --partners partner-a.csv --partners partner-b.json
+    """
+    # imported on use: `rxlog --help` and the other commands start without this stage
+    from rxlog.season.report import season_report
+
+    t0 = parse_time_option(start, "--start", cfg)
+    t1 = parse_time_option(end, "--end", cfg)
+    res = season_report(cfg, t0, t1, out, partners=list(partners))
+    click.echo(f"{iso(t0)} to {iso(t1)}: {res['events']} events, {res['exposure_h']:.1f} h listened with Jupiter up, "
+               f"{res['emission_h']:.2f} h with Jovian emission; season page {res['paths']['index_html']}")
