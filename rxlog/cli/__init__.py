@@ -2,7 +2,8 @@
 each adding its commands to ``main``: ``base`` (the group, shared options, errors),
 ``station`` (config check, demo), ``simulate``, ``ingest``, ``archive`` (prune),
 ``detect``, ``ephem`` (ephem, forecast), ``review`` (review, events, label),
-``exchange`` (export, compare), ``service`` (run, status, service).
+``exchange`` (export, compare), ``season`` (reprocess, season), ``service`` (run, status,
+service).
 
 The commands import the stage they drive when they run, not here, so ``rxlog --help``
 and every command start without loading the stages the others need.
@@ -15,6 +16,7 @@ from rxlog.cli import (
     exchange,  # noqa: F401  (export, compare)
     ingest,  # noqa: F401  (ingest recordings and FITS dynamic spectra)
     review,  # noqa: F401  (review, events, label)
+    season,  # noqa: F401  (reprocess, season)
     service,  # noqa: F401  (run, status, service)
     simulate,  # noqa: F401  (simulate)
     station,  # noqa: F401  (config check, demo)

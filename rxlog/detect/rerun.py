@@ -2,7 +2,9 @@
 
 ``detect_range`` is what ``rxlog detect`` runs: it reads the archive an hour at a time
 (bounded memory), feeds the online detector, and replaces the station's detections in
-the span in one transaction; running it twice gives the same store.
+the span in one transaction; running it twice gives the same store. It is two steps,
+``detect_span`` (compute, no store) and ``store_detections`` (the one writer), so
+that many processes can compute days while one writes them.
 """
 
 from __future__ import annotations
@@ -40,6 +42,19 @@ def detect_range(cfg, t0: float | None = None, t1: float | None = None,
                          "(rxlog run) or ingest FITS dynamic spectra (rxlog ingest)")
     t0 = extent[0] if t0 is None else float(t0)
     t1 = extent[1] if t1 is None else float(t1)
+    found = detect_span(cfg, t0, t1, extent, progress=progress, tags_fn=tags_fn, hours_per_read=hours_per_read)
+    return store_detections(cfg, found)
+
+
+def detect_span(cfg, t0: float, t1: float, extent: tuple[float, float],
+                progress: Callable[[float, float], None] | None = None, tags_fn: TagsFn | None = None,
+                hours_per_read: float = 1.0) -> dict:
+    """What ``detect_range`` finds in [t0, t1), without touching the store: a pure function
+    of the archive, the detector settings and the archive's ``extent`` (first, last time).
+
+    Returns t0, t1, station, events, episodes, quality (hourly rows) and segments (count),
+    for ``store_detections``.
+    """
     if not t1 > t0:
         raise RxlogError(f"--end ({iso(t1)}) must be after --start ({iso(t0)})")
     s = Settings.from_config(cfg)
@@ -66,17 +81,26 @@ def detect_range(cfg, t0: float | None = None, t1: float | None = None,
     episodes = [ep for ep in det.pop_episodes() if t0 <= parse_iso(ep["start_utc"]) < t1]
     quality = _with_gaps([q for q in det.pop_quality() if t0 - 3600.0 < parse_iso(q["hour_utc"]) < t1],
                          gaps, s.station, t0, t1)
+    return {"t0": t0, "t1": t1, "station": s.station, "events": keep, "episodes": episodes,
+            "quality": quality, "segments": len(segments)}
+
+
+def store_detections(cfg, found: dict) -> dict:
+    """Write what ``detect_span`` found into the event store (one writer): replace the
+    station's detections in [t0, t1), re-attach labels, upsert the quality rows. Returns
+    ``detect_range``'s summary."""
+    keep, t0, t1 = found["events"], found["t0"], found["t1"]
     store = EventStore(cfg.store_path)
     try:
-        labels = store.replace_events(s.station, t0, t1, keep, episodes)
-        store.record_quality(quality)
+        labels = store.replace_events(found["station"], t0, t1, keep, found["episodes"])
+        store.record_quality(found["quality"])
     finally:
         store.close()
     by_class: dict[str, int] = {}
     for e in keep:
         by_class[e["class"]] = by_class.get(e["class"], 0) + 1
     return {"t0": t0, "t1": t1, "events": len(keep), "by_class": dict(sorted(by_class.items())),
-            "episodes": len(episodes), "hours": len(quality), "segments": len(segments),
+            "episodes": len(found["episodes"]), "hours": len(found["quality"]), "segments": found["segments"],
             "labels_moved": labels["reattached"], "labels_orphaned": labels["orphans"]}
 
 

@@ -12,5 +12,6 @@ samples, with the list of everything that was put there (the truth).
   of injected events on it);
 - outputs: ``spectra`` (dynamic spectra), ``iq`` (IQ samples, ``SimulatedReceiver``),
   ``truth`` (truth rows and CSV, the interference share), ``write`` (files, as
-  ``rxlog simulate`` writes them).
+  ``rxlog simulate`` writes them), ``season`` (a season written day by day: storms
+  planned over the whole span, solar activity varying from day to day).
 """
