@@ -85,3 +85,29 @@ def test_empty_archive_is_a_clean_error(tmp_path):
     cfg = config_from_text(CONFIG, tmp_path / "station.toml")
     r = CliRunner().invoke(main, ["detect", "--config", str(cfg.path)])
     assert r.exit_code == 2 and "no spectra" in r.output
+
+
+def _occupancy(cfg):
+    store = EventStore(cfg.store_path)
+    try:
+        return store.occupancy("test-station")
+    finally:
+        store.close()
+
+
+def test_rerun_keeps_the_masks_occupancy_only_where_no_logger_stored_one(tmp_path):
+    """The report's mask picture needs what the mask learned; a re-run over an archive no
+    logger wrote stores it, but never replaces a logger's own (newer) state."""
+    from rxlog.detect.rerun import detect_range
+
+    cfg = _station(tmp_path)
+    detect_range(cfg)
+    (learned,) = _occupancy(cfg)
+    assert learned["channels"] == 256 and len(learned["by_hour"]) == 24
+    live = dict(learned, by_hour=[[0.5] * 256] * 24, recent=[0.5] * 256)
+    store = EventStore(cfg.store_path)
+    store.save_occupancy("test-station", [live])
+    store.close()
+    detect_range(cfg)
+    (kept,) = _occupancy(cfg)
+    assert kept["by_hour"] == live["by_hour"]

@@ -82,18 +82,24 @@ def detect_span(cfg, t0: float, t1: float, extent: tuple[float, float],
     quality = _with_gaps([q for q in det.pop_quality() if t0 - 3600.0 < parse_iso(q["hour_utc"]) < t1],
                          gaps, s.station, t0, t1)
     return {"t0": t0, "t1": t1, "station": s.station, "events": keep, "episodes": episodes,
-            "quality": quality, "segments": len(segments)}
+            "quality": quality, "segments": len(segments), "occupancy": det.occupancy_state()}
 
 
 def store_detections(cfg, found: dict) -> dict:
     """Write what ``detect_span`` found into the event store (one writer): replace the
-    station's detections in [t0, t1), re-attach labels, upsert the quality rows. Returns
+    station's detections in [t0, t1), re-attach labels, upsert the quality rows, keep the
+    mask's occupancy where the store has none. Returns
     ``detect_range``'s summary."""
     keep, t0, t1 = found["events"], found["t0"], found["t1"]
     store = EventStore(cfg.store_path)
     try:
         labels = store.replace_events(found["station"], t0, t1, keep, found["episodes"])
         store.record_quality(found["quality"])
+        # What the mask learned, for the report's picture, where no logger has stored its
+        # own yet (an ingested or simulated archive): a logger's live state is never replaced
+        # by a re-run over older data.
+        if found.get("occupancy") and not store.occupancy(found["station"]):
+            store.save_occupancy(found["station"], found["occupancy"])
     finally:
         store.close()
     by_class: dict[str, int] = {}
