@@ -92,6 +92,17 @@ def check_era(t0: float, t1: float | None, where: str) -> None:
         raise RxlogError(f"{where}: {problem}")
 
 
+def read_capped(path, limit_bytes: int, what: str) -> bytes:
+    """The bytes of a file from elsewhere, refused before reading when it is larger than
+    ``limit_bytes`` (a mistaken or hostile file must not fill memory). ``what`` names the
+    kind of file in the message; an OSError goes to the caller, which knows the context."""
+    size = path.stat().st_size
+    if size > limit_bytes:
+        raise RxlogError(f"{path}: {size / 2**20:.0f} MB is too large for {what} "
+                         f"(limit {limit_bytes // 2**20} MB)")
+    return path.read_bytes()
+
+
 def is_number(value) -> bool:
     """An int or float and not a bool (JSON and TOML true/false are not numbers)."""
     return isinstance(value, (int, float)) and not isinstance(value, bool)

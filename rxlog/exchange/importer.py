@@ -116,11 +116,7 @@ def read_event_list(path) -> EventList:
     """
     p = Path(path)
     try:
-        size = p.stat().st_size
-        if size > MAX_FILE_BYTES:
-            raise RxlogError(f"{p}: {size / 2**20:.0f} MB is too large for an event list "
-                             f"(limit {MAX_FILE_BYTES // 2**20} MB)")
-        data = p.read_bytes()
+        data = validate.read_capped(p, MAX_FILE_BYTES, "an event list")
     except OSError as e:
         raise RxlogError(f"{p}: cannot read ({e.strerror or e})") from None
     fmt = _sniff(p, data)

@@ -238,11 +238,7 @@ def _start_time(start, what: str) -> float:
 def _read_sigmf_json(meta_path: Path):
     where = str(meta_path)
     try:
-        size = meta_path.stat().st_size
-        if size > MAX_SIGMF_META_BYTES:
-            raise RxlogError(f"{where}: {size / 2**20:.0f} MB is too large for SigMF metadata "
-                             f"(limit {MAX_SIGMF_META_BYTES // 2**20} MB)")
-        return json.loads(meta_path.read_bytes().decode("utf-8"))
+        return json.loads(validate.read_capped(meta_path, MAX_SIGMF_META_BYTES, "SigMF metadata").decode("utf-8"))
     except FileNotFoundError:
         raise RxlogError(f"{where}: SigMF metadata file not found") from None
     except (OSError, UnicodeDecodeError, RecursionError, ValueError) as e:   # JSONDecodeError is a ValueError
